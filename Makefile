@@ -1,0 +1,39 @@
+# Two commands do all the set-up: `make demo` and `make test`. Both create .venv on first use.
+PYTHON ?= $(shell command -v python3.11 || command -v python3)
+VENV := .venv
+BIN := $(VENV)/bin
+STAMP := $(VENV)/.installed
+# The CPU build of torch goes in first, so the dependency resolver never pulls a GPU build.
+TORCH_SPEC ?= torch==2.13.0
+DEMO_EXPERIMENT ?= dochar-demo
+
+.PHONY: install demo test test-all bench gate clean
+
+install: $(STAMP)
+
+$(STAMP): pyproject.toml
+	$(PYTHON) -m venv $(VENV)
+	$(BIN)/pip install --quiet --upgrade pip
+	$(BIN)/pip install --quiet "$(TORCH_SPEC)"
+	$(BIN)/pip install --quiet -e '.[test]'
+	touch $(STAMP)
+
+demo: $(STAMP)
+	$(BIN)/dochar run -m model=relational,random_forest experiment=$(DEMO_EXPERIMENT)
+	$(BIN)/dochar report --experiment $(DEMO_EXPERIMENT) --sweep latest
+	@echo
+	@echo "Browse every run in the MLflow UI (embedded SQLite store, no server to set up):"
+	@echo "  $(BIN)/mlflow ui --backend-store-uri sqlite:///$(CURDIR)/mlflow.db --port 5000"
+	@echo "then open http://127.0.0.1:5000 and pick the experiment '$(DEMO_EXPERIMENT)'."
+
+test: $(STAMP)
+	$(BIN)/python -m pytest -m "not slow" -q
+
+test-all: $(STAMP)
+	$(BIN)/python -m pytest -q
+
+bench: $(STAMP)
+	$(BIN)/python -m benchmarks
+
+clean:
+	rm -rf outputs mlflow.db mlartifacts reports/*.html test-artifacts

@@ -1,0 +1,149 @@
+"""The `dochar` command.
+
+    dochar run [-m] [key=value ...]      one run, or a sweep over comma-separated choices
+    dochar graph-stats [key=value ...]   graph diagnostics for a data/graph choice, no training
+    dochar compare RUN_A RUN_B           paired difference of two runs on the same test pages
+    dochar report [--experiment NAME]    static HTML page of an experiment's runs
+"""
+
+from __future__ import annotations
+
+import argparse
+import logging
+import os
+import sys
+from pathlib import Path
+
+CONFIG_DIR = Path(os.environ.get("DOCHAR_CONFIG_DIR", Path(__file__).resolve().parents[1] /
+                                 "configs")).resolve()
+log = logging.getLogger("dochar")
+
+
+def _hydra_main(task):
+    import hydra
+
+    return hydra.main(config_path=str(CONFIG_DIR), config_name="config",
+                      version_base="1.3")(task)
+
+
+def _run_job(cfg) -> float:
+    from hydra.core.hydra_config import HydraConfig
+
+    from dochar.experiment import run_experiment
+    from dochar.run_files import write_run_files
+    from dochar.summary import console, ranking_table
+    from dochar.tracking import log_run, resolve_uri
+
+    hydra_cfg = HydraConfig.get()
+    bundle, model = run_experiment(cfg)
+    overrides = list(hydra_cfg.overrides.task)
+    bundle.command = " ".join(["dochar", "run", *overrides])
+    folder = Path(hydra_cfg.runtime.output_dir) / "run"
+    write_run_files(folder, bundle, model)
+    if cfg.tracking.enabled:
+        uri = resolve_uri(cfg.tracking.uri)
+        log_run(bundle, folder, uri=uri, experiment=str(cfg.experiment))
+    else:
+        bundle.save(folder)
+    console.print(ranking_table([bundle], title=f"run {bundle.name}"))
+    return float(bundle.metrics["macro_f1"])
+
+
+def _graph_stats_job(cfg) -> None:
+    from dochar.document import iter_pages
+    from dochar.experiment import build_graph_builder
+    from dochar.graphs.diagnostics import format_stats, graph_stats
+    from dochar.sources import load_data
+
+    data = load_data(cfg.data, strict=bool(cfg.strict))
+    builder = build_graph_builder(cfg)
+    stats = graph_stats(list(iter_pages(data.table)), builder)
+    print(f"graph builder {cfg.graph.name} on {cfg.data.name}:")
+    print(format_stats(stats))
+
+
+def _hydra_command(task, argv: list[str]) -> int:
+    sys.argv = [f"dochar {argv[0]}", *argv[1:]]
+    try:
+        _hydra_main(task)()
+    except SystemExit as stop:
+        return int(stop.code or 0)
+    return 0
+
+
+def _load(uri: str, experiment: str, run_ids: list[str] | None):
+    from dochar.report.sources import load_bundles_from_mlflow
+
+    bundles = load_bundles_from_mlflow(uri, experiment, run_ids)
+    if not bundles:
+        raise SystemExit(f"dochar: no finished dochar runs in experiment {experiment!r} at {uri}")
+    return bundles
+
+
+def _compare(args: argparse.Namespace) -> int:
+    from dochar.comparison import compare_runs, format_comparison
+
+    bundles = _load(args.tracking_uri, args.experiment, [args.run_a, args.run_b])
+    by_id = {b.run_id: b for b in bundles}
+    missing = [r for r in (args.run_a, args.run_b) if r not in by_id]
+    if missing:
+        raise SystemExit(f"dochar compare: run(s) {missing} not found in {args.experiment!r}")
+    result = compare_runs(by_id[args.run_a], by_id[args.run_b], score=args.score,
+                          method=args.method, resamples=args.resamples, seed=args.seed)
+    print(format_comparison(by_id[args.run_a], by_id[args.run_b], result, args.score))
+    return 0
+
+
+def _report(args: argparse.Namespace) -> int:
+    from dochar.report import write_report
+
+    bundles = _load(args.tracking_uri, args.experiment, args.runs or None)
+    out = Path(args.out or Path("reports") / f"{args.experiment}.html")
+    path = write_report(bundles, out, title=f"dochar — {args.experiment}", score=args.score,
+                        reference=args.reference)
+    print(f"report written: {path.resolve()}")
+    return 0
+
+
+def _parser() -> argparse.ArgumentParser:
+    from dochar.tracking import resolve_uri
+
+    parser = argparse.ArgumentParser(prog="dochar", description=__doc__,
+                                     formatter_class=argparse.RawDescriptionHelpFormatter)
+    commands = parser.add_subparsers(dest="command", required=True)
+    for name in ("run", "graph-stats"):
+        commands.add_parser(name, help="Hydra overrides follow", add_help=False)
+
+    def tracked(sub: argparse.ArgumentParser) -> None:
+        sub.add_argument("--experiment", default="dochar-demo", help="MLflow experiment name")
+        sub.add_argument("--tracking-uri", default=resolve_uri(), help="MLflow store")
+        sub.add_argument("--score", default="macro_f1", help="metric to rank/compare by")
+
+    compare = commands.add_parser("compare", help="paired comparison of two runs")
+    compare.add_argument("run_a")
+    compare.add_argument("run_b")
+    compare.add_argument("--method", choices=["bootstrap", "randomisation"], default="bootstrap")
+    compare.add_argument("--resamples", type=int, default=2000)
+    compare.add_argument("--seed", type=int, default=0)
+    tracked(compare)
+    report = commands.add_parser("report", help="static HTML report of an experiment's runs")
+    report.add_argument("--runs", nargs="*", help="run ids (default: every finished run)")
+    report.add_argument("--reference", help="run name to compare every run against")
+    report.add_argument("--out", help="output HTML path (default reports/<experiment>.html)")
+    tracked(report)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    argv = list(sys.argv[1:] if argv is None else argv)
+    if argv and argv[0] == "run":
+        return _hydra_command(_run_job, argv)
+    if argv and argv[0] == "graph-stats":
+        return _hydra_command(_graph_stats_job, argv)
+    args = _parser().parse_args(argv)
+    handlers = {"compare": _compare, "report": _report}
+    return handlers[args.command](args)
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

@@ -1,0 +1,88 @@
+"""What one finished run leaves behind, as a folder of plain files.
+
+The same folder is logged to MLflow as the run's artifacts, so the report, the paired comparison
+and the gate read runs the same way whether they come from the tracking store or from disk.
+
+Folder layout::
+
+    summary.json         name, system, labels, flat metrics, cost, tags, command
+    config.yaml          the resolved config
+    predictions.parquet  one row per test word (see PREDICTION_COLUMNS) + prob:<label> columns
+    edges.parquet        typed edges of the test pages (doc_id, page, source, target, relation)
+    <table>.csv          per_class, per_layout, confusion, ... (listed in summary.json)
+    *.png, model/        figures and the fitted model (not read back)
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+import yaml
+
+PREDICTION_COLUMNS: tuple[str, ...] = (
+    "doc_id", "page", "word_id", "text", "x0", "y0", "x1", "y1", "page_width", "page_height",
+    "layout_id", "entity_id", "label", "predicted", "confidence",
+)
+PROBABILITY_PREFIX = "prob:"
+
+
+@dataclass
+class RunBundle:
+    """Everything downstream consumers need from a run; ``predictions`` is the test set only."""
+
+    name: str
+    labels: list[str]
+    metrics: dict[str, float]
+    predictions: pd.DataFrame
+    config: dict[str, Any] = field(default_factory=dict)
+    cost: dict[str, float] = field(default_factory=dict)
+    tags: dict[str, str] = field(default_factory=dict)
+    command: str = ""
+    edges: pd.DataFrame | None = None
+    run_id: str | None = None
+    tables: dict[str, pd.DataFrame] = field(default_factory=dict)
+
+    def save(self, folder: str | Path) -> Path:
+        folder = Path(folder)
+        folder.mkdir(parents=True, exist_ok=True)
+        summary = {"name": self.name, "labels": self.labels, "metrics": self.metrics,
+                   "cost": self.cost, "tags": self.tags, "command": self.command,
+                   "run_id": self.run_id, "tables": sorted(self.tables)}
+        (folder / "summary.json").write_text(json.dumps(summary, indent=2, sort_keys=True))
+        (folder / "config.yaml").write_text(yaml.safe_dump(self.config, sort_keys=False))
+        self.predictions.to_parquet(folder / "predictions.parquet", index=False)
+        if self.edges is not None:
+            self.edges.to_parquet(folder / "edges.parquet", index=False)
+        for name, table in self.tables.items():
+            table.to_csv(folder / f"{name}.csv")
+        return folder
+
+    @classmethod
+    def load(cls, folder: str | Path) -> RunBundle:
+        folder = Path(folder)
+        summary_path = folder / "summary.json"
+        if not summary_path.exists():
+            raise FileNotFoundError(f"{folder}: not a dochar run folder (no summary.json)")
+        summary = json.loads(summary_path.read_text())
+        config_path = folder / "config.yaml"
+        edges_path = folder / "edges.parquet"
+        return cls(
+            name=summary["name"], labels=list(summary["labels"]),
+            metrics={k: float(v) for k, v in summary["metrics"].items()},
+            predictions=pd.read_parquet(folder / "predictions.parquet"),
+            config=yaml.safe_load(config_path.read_text()) if config_path.exists() else {},
+            cost=summary.get("cost", {}), tags=summary.get("tags", {}),
+            command=summary.get("command", ""),
+            edges=pd.read_parquet(edges_path) if edges_path.exists() else None,
+            run_id=summary.get("run_id"),
+            tables={name: pd.read_csv(folder / f"{name}.csv", index_col=0)
+                    for name in summary.get("tables", []) if (folder / f"{name}.csv").exists()},
+        )
+
+    def probabilities(self) -> pd.DataFrame:
+        columns = [f"{PROBABILITY_PREFIX}{label}" for label in self.labels]
+        return self.predictions[columns]

@@ -1,0 +1,39 @@
+"""A finished run's folder: the bundle, its figures, and the fitted model.
+
+Logged to MLflow as the run's artifacts; the same folder stays in the job's output directory.
+"""
+
+from __future__ import annotations
+
+import base64
+from pathlib import Path
+from typing import Any
+
+import joblib
+import torch
+
+from dochar.metrics.words import row_normalise
+from dochar.report.plots import confusion_panels
+from dochar.results import RunBundle
+
+
+def _png(data_uri: str, path: Path) -> None:
+    path.write_bytes(base64.b64decode(data_uri.split(",", 1)[1]))
+
+
+def write_run_files(folder: Path, bundle: RunBundle, model: Any) -> Path:
+    """Figures and the model (a GNN as state dict, a baseline with joblib); the bundle itself is
+    saved by the caller once tracking has given it a run id."""
+    folder.mkdir(parents=True, exist_ok=True)
+    confusion = bundle.tables["confusion"]
+    _png(confusion_panels([(bundle.name, list(confusion.index),
+                            row_normalise(confusion.to_numpy()))]),
+         folder / "confusion_normalised.png")
+    model_dir = folder / "model"
+    model_dir.mkdir(exist_ok=True)
+    if isinstance(model, torch.nn.Module):
+        torch.save(model.state_dict(), model_dir / "state_dict.pt")
+        (model_dir / "architecture.txt").write_text(str(model))
+    else:
+        joblib.dump(model, model_dir / "estimator.joblib")
+    return folder
