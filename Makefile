@@ -19,7 +19,7 @@ $(STAMP): pyproject.toml
 	touch $(STAMP)
 
 demo: $(STAMP)
-	$(BIN)/dochar run -m model=relational,random_forest experiment=$(DEMO_EXPERIMENT)
+	$(BIN)/dochar run -m model=relational,random_forest tracking.experiment=$(DEMO_EXPERIMENT)
 	$(BIN)/dochar report --experiment $(DEMO_EXPERIMENT) --sweep latest
 	@echo
 	@echo "Browse every run in the MLflow UI (embedded SQLite store, no server to set up):"

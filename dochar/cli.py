@@ -42,7 +42,7 @@ def _run_job(cfg) -> float:
     write_run_files(folder, bundle, model)
     if cfg.tracking.enabled:
         uri = resolve_uri(cfg.tracking.uri)
-        log_run(bundle, folder, uri=uri, experiment=str(cfg.experiment))
+        log_run(bundle, folder, uri=uri, experiment=str(cfg.tracking.experiment))
     else:
         bundle.save(folder)
     console.print(ranking_table([bundle], title=f"run {bundle.name}"))
@@ -98,6 +98,13 @@ def _report(args: argparse.Namespace) -> int:
     from dochar.report import write_report
 
     bundles = _load(args.tracking_uri, args.experiment, args.runs or None)
+    if args.sweep:
+        sweeps = sorted({b.tags.get("sweep_id", "") for b in bundles} - {""})
+        wanted = sweeps[-1] if args.sweep == "latest" and sweeps else args.sweep
+        bundles = [b for b in bundles if b.tags.get("sweep_id") == wanted]
+        if not bundles:
+            raise SystemExit(f"dochar report: no runs of sweep {args.sweep!r} "
+                             f"(sweeps here: {sweeps or 'none'})")
     out = Path(args.out or Path("reports") / f"{args.experiment}.html")
     path = write_report(bundles, out, title=f"dochar — {args.experiment}", score=args.score,
                         reference=args.reference)
@@ -128,6 +135,7 @@ def _parser() -> argparse.ArgumentParser:
     tracked(compare)
     report = commands.add_parser("report", help="static HTML report of an experiment's runs")
     report.add_argument("--runs", nargs="*", help="run ids (default: every finished run)")
+    report.add_argument("--sweep", help="only the runs of one sweep: its id, or 'latest'")
     report.add_argument("--reference", help="run name to compare every run against")
     report.add_argument("--out", help="output HTML path (default reports/<experiment>.html)")
     tracked(report)

@@ -15,7 +15,7 @@ from torch_geometric.data import Data
 from tqdm import tqdm
 
 from dochar.document import Page
-from dochar.features import WordFeaturizer, char_ids, char_ngram_hashes
+from dochar.features import WordFeaturizer, char_ngram_hashes
 from dochar.graphs.base import GraphBuilder, TypedEdges
 
 
@@ -42,8 +42,8 @@ def label_indices(page: Page, label_index: dict[str, int]) -> np.ndarray:
     return np.array([label_index[label] for label in page.labels], dtype=np.int64)
 
 
-def to_graphs(page_set: PageSet, featurizer: WordFeaturizer, label_index: dict[str, int],
-              max_chars: int) -> list[Data]:
+def to_graphs(page_set: PageSet, featurizer: WordFeaturizer, label_index: dict[str, int]
+              ) -> list[Data]:
     graphs = []
     for page, edges in zip(page_set.pages, page_set.edges):
         data = Data(x=torch.from_numpy(featurizer.transform(page)),
@@ -52,7 +52,7 @@ def to_graphs(page_set: PageSet, featurizer: WordFeaturizer, label_index: dict[s
                     y=torch.from_numpy(label_indices(page, label_index)),
                     num_nodes=len(page))
         if featurizer.uses_char_cnn:
-            data.chars = torch.from_numpy(char_ids(page.texts, max_chars))
+            data.chars = torch.from_numpy(featurizer.char_ids(page))
         graphs.append(data)
     return graphs
 

@@ -20,6 +20,16 @@ from dochar.metrics.scorers import EntityF1, WordF1
 from dochar.metrics.words import per_group_scores, score_words
 
 
+def headline_scorers(labels: Sequence[str], ignore: Sequence[str] = ("other",), *,
+                     entities: bool = True) -> dict[str, Any]:
+    """The scores that get intervals and paired tests, each resampled from per-document counts."""
+    scorers: dict[str, Any] = {"macro_f1": WordF1(labels, "macro"),
+                               "micro_f1": WordF1(labels, "micro")}
+    if entities:
+        scorers["entity_f1"] = EntityF1(labels, ignore=ignore)
+    return scorers
+
+
 @dataclass
 class Evaluation:
     metrics: dict[str, float]
@@ -32,13 +42,10 @@ def evaluate(predictions: pd.DataFrame, labels: Sequence[str], cfg: Mapping[str,
     words = score_words(predictions["label"], predictions["predicted"], labels)
     metrics = words.to_flat()
     has_entities = "entity_id" in predictions and (predictions["entity_id"] != "").any()
-    headline: dict[str, Any] = {"macro_f1": WordF1(labels, "macro"),
-                                "micro_f1": WordF1(labels, "micro")}
     if has_entities:
         entities = entity_scores(predictions, labels, ignore=ignore)
         metrics.update(entities.to_flat())
-        headline["entity_f1"] = EntityF1(labels, ignore=ignore)
-    for name, scorer in headline.items():
+    for name, scorer in headline_scorers(labels, ignore, entities=has_entities).items():
         _, low, high = bootstrap_interval(predictions, scorer,
                                           n_resamples=int(cfg["bootstrap_resamples"]),
                                           confidence=float(cfg["confidence"]), seed=seed)

@@ -27,7 +27,7 @@ from dochar.models.baselines import make_baseline
 from dochar.models.gnn import GNNStack, count_parameters
 from dochar.results import PROBABILITY_PREFIX, RunBundle
 from dochar.sources import load_data
-from dochar.splits import SplitAssignment, make_splits
+from dochar.splits import SplitAssignment, documents_of, make_splits
 from dochar.training import predict_proba, seed_everything, train
 
 log = logging.getLogger(__name__)
@@ -35,13 +35,8 @@ PARTS = ("train", "val", "test")
 
 
 def split_documents(table: pd.DataFrame, cfg: DictConfig) -> SplitAssignment:
-    columns = [c for c in ("layout_id", "split") if c in table.columns]
-    docs = table.groupby("doc_id", sort=True)[columns].first().reset_index()
-    for column in ("layout_id", "split"):
-        if column not in docs.columns:
-            docs[column] = ""
     split = cfg.split
-    folds = make_splits(docs, split.protocol, seed=int(cfg.seed), test_size=split.test_size,
+    folds = make_splits(documents_of(table), split.protocol, seed=int(cfg.seed), test_size=split.test_size,
                         val_size=split.val_size, n_folds=split.n_folds)
     if not 0 <= int(split.fold) < len(folds):
         raise ValueError(f"split.fold={split.fold}: protocol {split.protocol!r} made "
@@ -60,8 +55,7 @@ def build_graph_builder(cfg: DictConfig):
 def fit_gnn(cfg: DictConfig, sets: dict[str, PageSet], featurizer: WordFeaturizer,
             labels: Sequence[str]) -> tuple[list[np.ndarray], dict[str, float], Any]:
     index = {label: i for i, label in enumerate(labels)}
-    max_chars = int(cfg.features.max_chars)
-    graphs = {part: to_graphs(sets[part], featurizer, index, max_chars) for part in PARTS}
+    graphs = {part: to_graphs(sets[part], featurizer, index) for part in PARTS}
     model_cfg = cfg.model
     encoder = (CharCNNEncoder(**OmegaConf.to_container(cfg.features.char_cnn))
                if featurizer.uses_char_cnn else None)

@@ -42,7 +42,7 @@ class SweepTable(Callback):
         os.environ[SWEEP_ID_ENV] = sweep_id
         if config.tracking.enabled:
             uri = resolve_uri(config.tracking.uri)
-            experiment_id = ensure_experiment(uri, str(config.experiment))
+            experiment_id = ensure_experiment(uri, str(config.tracking.experiment))
             client = mlflow.MlflowClient(tracking_uri=uri)
             self.parent_run = client.create_run(experiment_id, run_name=f"sweep {sweep_id}",
                                                 tags={"sweep_id": sweep_id, "kind": "sweep"})

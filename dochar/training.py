@@ -86,7 +86,7 @@ def train(model: torch.nn.Module, train_graphs: Sequence[Data], val_graphs: Sequ
             loss = loss_fn(forward(model, batch), batch.y)
             loss.backward()
             optimizer.step()
-            total += float(loss) * batch.num_graphs
+            total += loss.item() * batch.num_graphs
         history.losses.append(total / len(train_graphs))
         score = macro_f1(model, val_graphs)
         history.val_scores.append(score)

@@ -1,0 +1,135 @@
+"""WordFeaturizer: one page in, one dense float32 matrix out, columns chosen by feature group.
+
+Groups: ``geometry`` (box layout), ``text_flags`` (surface flags plus one ``lexicon:<name>``
+column per configured word list) and ``char_cnn``, which adds no dense columns: it marks that
+the model encodes ``char_ids`` itself. All scales are fixed, so fitting learns nothing unless
+``standardize`` is set; then column means and standard deviations come from the pages given to
+``fit`` (the training pages only), and constant columns are left unscaled.
+"""
+
+from __future__ import annotations
+
+import warnings
+from collections.abc import Mapping, Sequence
+
+import numpy as np
+
+from dochar.document import Page
+from dochar.features.chars import char_ids
+from dochar.features.geometry import GEOMETRY_NAMES, geometry_features
+from dochar.features.lexicons import compile_lexicons, lexicon_features
+from dochar.features.text_flags import TEXT_FLAG_NAMES, text_flag_features
+
+FEATURE_GROUPS: tuple[str, ...] = ("geometry", "text_flags", "char_cnn")
+_MIN_STD = 1e-6
+
+
+def check_page(page: Page) -> None:
+    """Refuse a page whose arrays disagree or whose numbers cannot be scaled, naming the word."""
+    where = f"page {page.key}"
+    if not (np.isfinite(page.width) and np.isfinite(page.height)
+            and page.width > 0 and page.height > 0):
+        raise ValueError(f"{where}: page size must be positive and finite, "
+                         f"got {page.width} x {page.height}")
+    n = len(page.texts)
+    for index, text in enumerate(page.texts):
+        if not isinstance(text, str):
+            raise ValueError(f"{where}, word {index}: text is {type(text).__name__} {text!r}, "
+                             f"expected str")
+    boxes = np.asarray(page.boxes, dtype=np.float64)
+    if boxes.shape != (n, 4):
+        raise ValueError(f"{where}: boxes have shape {boxes.shape}, expected ({n}, 4) "
+                         f"for {n} texts")
+    with np.errstate(invalid="ignore"):
+        bad = (~np.isfinite(boxes).all(axis=1) | (boxes[:, 2] < boxes[:, 0])
+               | (boxes[:, 3] < boxes[:, 1]))
+    if bad.any():
+        index = int(np.flatnonzero(bad)[0])
+        word = page.word_ids[index] if len(page.word_ids) == n else index
+        raise ValueError(f"{where}, word_id {word}: box {boxes[index].tolist()} is not finite "
+                         f"or has x1 < x0 / y1 < y0 ({int(bad.sum())} such box(es) on the page)")
+
+
+class WordFeaturizer:
+    """scikit-learn style featurizer for the words of a page."""
+
+    def __init__(self, groups: Sequence[str] = ("geometry", "text_flags"),
+                 lexicons: Mapping[str, Sequence[str]] | None = None, max_chars: int = 16,
+                 *, standardize: bool = False) -> None:
+        if isinstance(groups, str):
+            groups = (groups,)
+        unknown = [g for g in groups if g not in FEATURE_GROUPS]
+        if unknown or not groups:
+            raise ValueError(f"WordFeaturizer: unknown or no feature group(s) {unknown}; "
+                             f"choose from {list(FEATURE_GROUPS)}")
+        if max_chars < 1:
+            raise ValueError(f"WordFeaturizer: max_chars must be at least 1, got {max_chars}")
+        self.groups = tuple(dict.fromkeys(groups))
+        self.lexicons = compile_lexicons(lexicons)
+        if self.lexicons and "text_flags" not in self.groups:
+            warnings.warn("WordFeaturizer: lexicon columns belong to the 'text_flags' group, "
+                          "which is not selected; the lexicons are not used", stacklevel=2)
+        self.max_chars = int(max_chars)
+        self.standardize = bool(standardize)
+        self.mean_: np.ndarray | None = None
+        self.scale_: np.ndarray | None = None
+        self.fitted_ = False
+
+    @property
+    def feature_names(self) -> list[str]:
+        names: list[str] = []
+        if "geometry" in self.groups:
+            names += [f"geometry:{n}" for n in GEOMETRY_NAMES]
+        if "text_flags" in self.groups:
+            names += [f"text:{n}" for n in TEXT_FLAG_NAMES]
+            names += [f"lexicon:{n}" for n in self.lexicons]
+        return names
+
+    @property
+    def uses_char_cnn(self) -> bool:
+        return "char_cnn" in self.groups
+
+    def fit(self, pages: Sequence[Page]) -> WordFeaturizer:
+        """Check the training pages; with ``standardize``, learn column means and scales."""
+        self.fitted_ = True
+        if self.standardize:
+            blocks = [self._raw(page) for page in pages]
+            if not blocks or sum(len(b) for b in blocks) == 0:
+                self.fitted_ = False
+                raise ValueError("WordFeaturizer.fit: standardize needs at least one word "
+                                 "in the training pages")
+            stacked = np.concatenate(blocks).astype(np.float64)
+            std = stacked.std(axis=0)
+            self.mean_ = stacked.mean(axis=0)
+            self.scale_ = np.where(std > _MIN_STD, std, 1.0)
+        else:
+            for page in pages:
+                check_page(page)
+        return self
+
+    def transform(self, page: Page) -> np.ndarray:
+        """(n_words, len(feature_names)) float32 dense features of one page."""
+        if not self.fitted_:
+            raise RuntimeError("WordFeaturizer.transform called before fit")
+        raw = self._raw(page)
+        if self.standardize:
+            raw = ((raw - self.mean_) / self.scale_).astype(np.float32)
+        return raw
+
+    def fit_transform(self, pages: Sequence[Page]) -> list[np.ndarray]:
+        self.fit(pages)
+        return [self.transform(page) for page in pages]
+
+    def char_ids(self, page: Page) -> np.ndarray:
+        """(n_words, max_chars) int64 character ids for the char CNN."""
+        return char_ids(page.texts, self.max_chars)
+
+    def _raw(self, page: Page) -> np.ndarray:
+        check_page(page)
+        blocks = [np.zeros((len(page), 0), dtype=np.float32)]
+        if "geometry" in self.groups:
+            blocks.append(geometry_features(page))
+        if "text_flags" in self.groups:
+            blocks.append(text_flag_features(page.texts))
+            blocks.append(lexicon_features(page.texts, self.lexicons))
+        return np.concatenate(blocks, axis=1)

@@ -1,0 +1,95 @@
+"""Typed edges, the builder protocol and the edge conventions every builder shares.
+
+Conventions (all builders):
+
+* ``edge_index[0]`` is the source word ``j``, ``edge_index[1]`` the target word ``i``; messages
+  flow ``j -> i``, so a word's in-edges are the neighbours it listens to.
+* A relation names where the *source* lies relative to the *target*: an edge typed ``"above"``
+  brings the target a message from a word above it.
+* Edges come out canonical: no duplicate (source, target, type) triple, sorted by target, then
+  source, then type. Builders never emit self-edges; the ``self_loops`` option adds them.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Protocol, runtime_checkable
+
+import numpy as np
+
+from dochar.document import Page
+
+DIRECTIONS: tuple[str, ...] = ("above", "below", "left", "right")
+ABOVE, BELOW, LEFT, RIGHT = range(4)
+
+
+class GraphBuilderError(ValueError):
+    """A builder asked for with bad options, or handed a page it cannot use."""
+
+
+@dataclass(frozen=True)
+class TypedEdges:
+    """Edges of one page with one relation id per edge."""
+
+    edge_index: np.ndarray   # (2, E) int64; row 0 = source j, row 1 = target i
+    edge_type: np.ndarray    # (E,) int64 in [0, len(relations))
+    relations: tuple[str, ...]
+
+    def __post_init__(self) -> None:
+        index = np.asarray(self.edge_index)
+        types = np.asarray(self.edge_type)
+        if index.size == 0:
+            index = index.reshape(2, 0)
+        if index.ndim != 2 or index.shape[0] != 2:
+            raise GraphBuilderError(f"edge_index must have shape (2, E), got {index.shape}")
+        if types.shape != (index.shape[1],):
+            raise GraphBuilderError(f"edge_type must have shape ({index.shape[1]},), "
+                                    f"got {types.shape}")
+        if types.size and (types.min() < 0 or types.max() >= len(self.relations)):
+            raise GraphBuilderError(f"edge_type outside [0, {len(self.relations)}) "
+                                    f"for relations {self.relations}")
+        object.__setattr__(self, "edge_index", index.astype(np.int64, copy=False))
+        object.__setattr__(self, "edge_type", types.astype(np.int64, copy=False))
+        object.__setattr__(self, "relations", tuple(self.relations))
+
+    @property
+    def num_edges(self) -> int:
+        return int(self.edge_index.shape[1])
+
+    def check_nodes(self, num_nodes: int, where: str) -> None:
+        """Fail loudly when an edge points past the page's words."""
+        if self.num_edges and (self.edge_index.min() < 0 or self.edge_index.max() >= num_nodes):
+            raise GraphBuilderError(f"{where}: edge endpoint outside [0, {num_nodes})")
+
+
+@runtime_checkable
+class GraphBuilder(Protocol):
+    relations: tuple[str, ...]       # known before any page is seen (models size weights from it)
+
+    def __call__(self, page: Page) -> TypedEdges: ...
+
+
+def make_edges(source: np.ndarray, target: np.ndarray, types: np.ndarray,
+               relations: tuple[str, ...]) -> TypedEdges:
+    """Canonical edges: duplicates dropped, sorted by (target, source, type)."""
+    triples = np.stack([np.asarray(target, dtype=np.int64).ravel(),
+                        np.asarray(source, dtype=np.int64).ravel(),
+                        np.asarray(types, dtype=np.int64).ravel()], axis=1)
+    if len(triples):
+        triples = np.unique(triples, axis=0)   # lexicographic: target, source, type
+    return TypedEdges(np.stack([triples[:, 1], triples[:, 0]]), triples[:, 2], relations)
+
+
+def no_edges(relations: tuple[str, ...]) -> TypedEdges:
+    return TypedEdges(np.zeros((2, 0), np.int64), np.zeros(0, np.int64), relations)
+
+
+def direction_codes(dx: np.ndarray, dy: np.ndarray) -> np.ndarray:
+    """Direction of the source seen from the target, by the dominant axis of the centre offset.
+
+    ``dx, dy`` = source centre minus target centre (y grows downwards). Vertical wins ties
+    (exactly 45°) and coincident centres count as ``below``: every offset gets one code.
+    """
+    vertical = np.abs(dy) >= np.abs(dx)
+    return np.where(vertical, np.where(dy < 0, ABOVE, BELOW),
+                    np.where(dx < 0, LEFT, RIGHT)).astype(np.int64)

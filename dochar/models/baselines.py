@@ -1,0 +1,101 @@
+"""scikit-learn baselines on per-word feature matrices, and the neighbour features that feed them.
+
+A GNN only earns its place if it beats a tree ensemble given the same words *and* a fixed summary
+of each word's neighbourhood; `neighbour_aggregates` is that summary.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+from sklearn.base import BaseEstimator
+from sklearn.ensemble import HistGradientBoostingClassifier, RandomForestClassifier
+from sklearn.linear_model import LogisticRegression
+from sklearn.pipeline import make_pipeline
+from sklearn.preprocessing import StandardScaler
+
+BASELINES: dict[str, type] = {
+    "random_forest": RandomForestClassifier,
+    "gradient_boosting": HistGradientBoostingClassifier,
+    "logistic_regression": LogisticRegression,
+}
+
+# Imbalanced word classes ("other" dominates) call for balanced weights; one or two threads
+# because experiments run side by side on small machines.
+_DEFAULTS: dict[str, dict[str, Any]] = {
+    "random_forest": {"n_estimators": 300, "class_weight": "balanced", "n_jobs": 1},
+    "gradient_boosting": {"class_weight": "balanced"},
+    "logistic_regression": {"class_weight": "balanced", "max_iter": 2000},
+}
+
+
+def make_baseline(name: str, seed: int, **options: Any) -> BaseEstimator:
+    """A fresh, seeded estimator; logistic regression is wrapped in a StandardScaler pipeline."""
+    if name not in BASELINES:
+        raise ValueError(f"unknown baseline {name!r}; valid baselines: {sorted(BASELINES)}")
+    cls = BASELINES[name]
+    valid = set(cls().get_params()) - {"random_state"}
+    if "random_state" in options:
+        raise ValueError(f"baseline {name!r}: pass the seed as seed=, not random_state=")
+    unknown = sorted(set(options) - valid)
+    if unknown:
+        raise ValueError(f"baseline {name!r} has no option(s) {unknown}; valid options: {sorted(valid)}")
+    estimator = cls(**{**_DEFAULTS[name], **options, "random_state": seed})
+    if name == "logistic_regression":
+        return make_pipeline(StandardScaler(), estimator)
+    return estimator
+
+
+def neighbour_aggregates(features: np.ndarray, edge_index: np.ndarray, edge_type: np.ndarray,
+                         num_relations: int) -> np.ndarray:
+    """Mean and max of the source words' features over incoming edges, per edge type.
+
+    Returns (n, 2·d·num_relations): for relation r, columns [2dr, 2dr+d) hold the mean and
+    [2dr+d, 2d(r+1)) the max; both are 0 where a word has no incoming edge of that type.
+    """
+    features = np.asarray(features)
+    edge_index = np.asarray(edge_index)
+    edge_type = np.asarray(edge_type)
+    _check_aggregate_inputs(features, edge_index, edge_type, num_relations)
+    n, d = features.shape
+    dtype = features.dtype if np.issubdtype(features.dtype, np.floating) else np.float64
+    source, target = edge_index[0].astype(np.int64), edge_index[1].astype(np.int64)
+    slot = target * num_relations + edge_type.astype(np.int64)  # one (word, relation) cell per edge
+    messages = features[source].astype(dtype, copy=False)
+
+    counts = np.bincount(slot, minlength=n * num_relations)
+    sums = np.zeros((n * num_relations, d), dtype=dtype)
+    np.add.at(sums, slot, messages)
+    means = sums / np.maximum(counts, 1)[:, None]
+    maxima = np.full((n * num_relations, d), -np.inf, dtype=dtype)
+    np.maximum.at(maxima, slot, messages)
+    maxima[counts == 0] = 0.0
+    blocks = np.concatenate([means.reshape(n, num_relations, d),
+                             maxima.reshape(n, num_relations, d)], axis=2)
+    return blocks.reshape(n, 2 * d * num_relations)
+
+
+def _check_aggregate_inputs(features: np.ndarray, edge_index: np.ndarray, edge_type: np.ndarray,
+                            num_relations: int) -> None:
+    where = "neighbour_aggregates"
+    if features.ndim != 2 or not np.issubdtype(features.dtype, np.number):
+        raise ValueError(f"{where}: features must be a numeric (n, d) array, got shape "
+                         f"{features.shape} and dtype {features.dtype}")
+    if not isinstance(num_relations, (int, np.integer)) or num_relations < 1:
+        raise ValueError(f"{where}: num_relations must be a positive int, got {num_relations!r}")
+    if edge_index.ndim != 2 or edge_index.shape[0] != 2:
+        raise ValueError(f"{where}: edge_index must have shape (2, E), got {edge_index.shape}")
+    if edge_type.shape != (edge_index.shape[1],):
+        raise ValueError(f"{where}: edge_type must have shape ({edge_index.shape[1]},), got "
+                         f"{edge_type.shape}")
+    for name, values in (("edge_index", edge_index), ("edge_type", edge_type)):
+        if values.size and not np.issubdtype(values.dtype, np.integer):
+            raise ValueError(f"{where}: {name} must hold integers, got dtype {values.dtype}")
+    for name, values, bound in (("edge_index", edge_index, features.shape[0]),
+                                ("edge_type", edge_type.reshape(1, -1), num_relations)):
+        bad = (values < 0) | (values >= bound)
+        if bad.any():
+            edge = int(np.flatnonzero(bad.any(axis=0))[0])
+            value = int(values[:, edge][bad[:, edge]][0])
+            raise ValueError(f"{where}: {name} holds {value} at edge {edge}; must lie in 0..{bound - 1}")

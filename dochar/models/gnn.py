@@ -1,0 +1,119 @@
+"""The GNN stack: input projection, residual message-passing blocks, MLP head."""
+
+from __future__ import annotations
+
+import torch
+from torch import Tensor
+
+from dochar.models.layers import make_layer
+
+NORMS = ("batch", "layer", "none")
+
+
+class _Block(torch.nn.Module):
+    """layer → norm → ReLU → dropout (→ + input): σ sits here, so every layer stays a pure rule."""
+
+    def __init__(self, layer: torch.nn.Module, norm: torch.nn.Module, dropout: float,
+                 residual: bool) -> None:
+        super().__init__()
+        self.layer, self.norm, self.residual = layer, norm, residual
+        self.dropout = torch.nn.Dropout(dropout)
+
+    def forward(self, h: Tensor, edge_index: Tensor, edge_type: Tensor) -> Tensor:
+        out = self.dropout(torch.relu(self.norm(self.layer(h, edge_index, edge_type))))
+        return h + out if self.residual else out
+
+
+class GNNStack(torch.nn.Module):
+    """Per-word classifier over a typed word graph; returns logits, callers apply the softmax.
+
+    ``[char_encoder(chars) ‖ x] → Linear → depth × block → Linear-ReLU-dropout-Linear``.
+    The input projection brings every feature set to ``hidden_dim`` so residual additions line up
+    from the first block on, and the layer type is the only thing that changes between ablations.
+    """
+
+    def __init__(self, in_dim: int, num_classes: int, num_relations: int, layer: str = "relational",
+                 hidden_dim: int = 64, depth: int = 2, dropout: float = 0.2, norm: str = "batch",
+                 residual: bool = True, char_encoder: torch.nn.Module | None = None,
+                 char_dim: int = 0, layer_options: dict | None = None) -> None:
+        super().__init__()
+        _check_arguments(in_dim, num_classes, num_relations, hidden_dim, depth, dropout, norm,
+                         char_encoder, char_dim)
+        self.in_dim, self.num_classes, self.char_dim = in_dim, num_classes, char_dim
+        self.char_encoder = char_encoder
+        self.input_projection = torch.nn.Linear(in_dim + char_dim, hidden_dim)
+        self.blocks = torch.nn.ModuleList(
+            _Block(make_layer(layer, hidden_dim, hidden_dim, num_relations, **(layer_options or {})),
+                   _make_norm(norm, hidden_dim), dropout, residual)
+            for _ in range(depth)
+        )
+        self.head = torch.nn.Sequential(
+            torch.nn.Linear(hidden_dim, hidden_dim), torch.nn.ReLU(), torch.nn.Dropout(dropout),
+            torch.nn.Linear(hidden_dim, num_classes),
+        )
+
+    def forward(self, x: Tensor, edge_index: Tensor, edge_type: Tensor,
+                chars: Tensor | None = None) -> Tensor:
+        h = self.input_projection(self._node_inputs(x, chars))
+        for block in self.blocks:
+            h = block(h, edge_index, edge_type)
+        return self.head(h)
+
+    @torch.no_grad()
+    def predict_proba(self, x: Tensor, edge_index: Tensor, edge_type: Tensor,
+                      chars: Tensor | None = None) -> Tensor:
+        """Class probabilities in eval mode (no dropout, running norm statistics)."""
+        was_training = self.training
+        self.eval()
+        try:
+            return torch.softmax(self(x, edge_index, edge_type, chars), dim=1)
+        finally:
+            self.train(was_training)
+
+    def _node_inputs(self, x: Tensor, chars: Tensor | None) -> Tensor:
+        if not isinstance(x, Tensor) or x.dim() != 2 or x.shape[1] != self.in_dim:
+            shape = tuple(x.shape) if isinstance(x, Tensor) else type(x).__name__
+            raise ValueError(f"GNNStack: x must have shape (nodes, {self.in_dim}), got {shape}")
+        if self.char_encoder is None:
+            if chars is not None:
+                raise ValueError("GNNStack: chars were given but the model has no char_encoder")
+            return x
+        if chars is None:
+            raise ValueError("GNNStack: the model has a char_encoder, so forward needs chars")
+        encoded = self.char_encoder(chars)
+        if encoded.shape != (x.shape[0], self.char_dim):
+            raise ValueError(f"GNNStack: char_encoder returned shape {tuple(encoded.shape)}, "
+                             f"expected ({x.shape[0]}, {self.char_dim}) (one row per node, char_dim)")
+        return torch.cat([x, encoded], dim=1)
+
+
+def count_parameters(model: torch.nn.Module) -> int:
+    """Number of trainable scalars, the size figure reported next to each run."""
+    return sum(p.numel() for p in model.parameters() if p.requires_grad)
+
+
+def _make_norm(norm: str, dim: int) -> torch.nn.Module:
+    if norm == "batch":
+        return torch.nn.BatchNorm1d(dim)
+    if norm == "layer":
+        return torch.nn.LayerNorm(dim)
+    return torch.nn.Identity()
+
+
+def _check_arguments(in_dim: int, num_classes: int, num_relations: int, hidden_dim: int,
+                     depth: int, dropout: float, norm: str, char_encoder: torch.nn.Module | None,
+                     char_dim: int) -> None:
+    for name, value, low in (("in_dim", in_dim, 0), ("num_classes", num_classes, 1),
+                             ("num_relations", num_relations, 1), ("hidden_dim", hidden_dim, 1),
+                             ("depth", depth, 1), ("char_dim", char_dim, 0)):
+        if not isinstance(value, int) or isinstance(value, bool) or value < low:
+            raise ValueError(f"GNNStack: {name} must be an int >= {low}, got {value!r}")
+    if not 0.0 <= dropout < 1.0:
+        raise ValueError(f"GNNStack: dropout must lie in [0, 1), got {dropout!r}")
+    if norm not in NORMS:
+        raise ValueError(f"GNNStack: unknown norm {norm!r}; valid norms: {list(NORMS)}")
+    if (char_encoder is None) != (char_dim == 0):
+        raise ValueError("GNNStack: give char_encoder and char_dim > 0 together, or neither "
+                         f"(got char_encoder={type(char_encoder).__name__}, char_dim={char_dim})")
+    if in_dim + char_dim == 0:
+        raise ValueError("GNNStack: no inputs (in_dim = 0 and no char_encoder)")
