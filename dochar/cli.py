@@ -72,6 +72,7 @@ def _hydra_command(task, argv: list[str]) -> int:
 
 
 def _load(uri: str, experiment: str, run_ids: list[str] | None):
+    os.environ.setdefault("MLFLOW_ENABLE_ARTIFACTS_PROGRESS_BAR", "false")
     from dochar.report.sources import load_bundles_from_mlflow
 
     bundles = load_bundles_from_mlflow(uri, experiment, run_ids)

@@ -41,7 +41,15 @@ def split_documents(table: pd.DataFrame, cfg: DictConfig) -> SplitAssignment:
     if not 0 <= int(split.fold) < len(folds):
         raise ValueError(f"split.fold={split.fold}: protocol {split.protocol!r} made "
                          f"{len(folds)} fold(s)")
-    return folds[int(split.fold)]
+    assignment = folds[int(split.fold)]
+    wanted = split.get("train_documents")
+    if wanted is not None:
+        if not 0 < int(wanted) <= len(assignment.train):
+            raise ValueError(f"split.train_documents={wanted}: the training part holds "
+                             f"{len(assignment.train)} documents")
+        rng = np.random.default_rng(int(cfg.seed))
+        assignment.train = sorted(rng.choice(assignment.train, int(wanted), replace=False))
+    return assignment
 
 
 def build_graph_builder(cfg: DictConfig):

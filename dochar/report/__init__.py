@@ -1,0 +1,150 @@
+"""The static HTML report: one self-contained file comparing finished runs.
+
+Everything (plots as base64 PNG, page overlays as inline SVG, styles) is inside the file, so it
+opens offline and can be mailed or attached to a CI job as is.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Sequence
+from pathlib import Path
+
+import numpy as np
+import yaml
+
+from dochar.report import plots
+from dochar.report.leaderboard import default_paired, leaderboard, resolve_reference
+from dochar.report.overlay import OVERLAY_STYLE, class_style, overlays
+from dochar.report.page import (Html, details, document, image, note, number, paragraph,
+                                preformatted, section, table)
+from dochar.report.summaries import (ReportInputError, check_bundle, class_order,
+                                     confusion_rows, display_names, has_layouts, layout_scores,
+                                     learning_curve, metric, ranking, reliability)
+from dochar.results import RunBundle
+
+__all__ = ["write_report", "ReportInputError"]
+
+
+def write_report(bundles: Sequence[RunBundle], out_path: str | Path, *,
+                 title: str = "dochar report", score: str = "macro_f1",
+                 reference: str | None = None, overlay_pages: int = 3,
+                 paired: Callable | None = None) -> Path:
+    """Write the report for ``bundles`` to ``out_path`` and return the path.
+
+    ``paired(frame_a, frame_b)`` compares a run's predictions (a) with the reference run's (b)
+    and returns an object with ``difference``, ``low``, ``high`` and ``p_value``; without it
+    the project's paired bootstrap on word macro-F1 is used when available.
+    """
+    bundles = list(bundles)
+    if not bundles:
+        raise ReportInputError("no runs to report")
+    for bundle in bundles:
+        check_bundle(bundle)
+    if all(metric(b, score) is None for b in bundles):
+        known = sorted({k for b in bundles for k in b.metrics if "/" not in k})
+        raise ReportInputError(f"no run has the score '{score}'; top-level metrics are {known}")
+    names = display_names(bundles)
+    order = ranking(bundles, score)
+    reference_index = resolve_reference(bundles, names, reference)
+    if paired is None:
+        paired, paired_note = default_paired(bundles)
+    else:
+        paired_note = "Difference as computed by the supplied paired comparison."
+    labels = class_order(bundles)
+
+    sections = [
+        section("leaderboard", "Runs ranked by " + score,
+                leaderboard(bundles, names, order, score, reference_index, paired, paired_note)),
+        section("per-class", "F1 per class", _per_class(bundles, names, order, labels)),
+        section("confusion", "Confusion of the top runs", _confusion(bundles, names, order)),
+        section("per-layout", "Scores per layout", _per_layout(bundles, names, order)),
+        section("calibration", "Calibration", _calibration(bundles, names, order)),
+    ]
+    curves = [(names[i], learning_curve(bundles[i], score)) for i in order]
+    curves = [(name, points) for name, points in curves if points]
+    if curves:
+        sections.append(section("learning-curves", "Score against training documents",
+                                 [image(plots.learning_plot(curves, score), "learning curves")]))
+    best = bundles[order[0]]
+    page_labels = _with_unlisted(best, labels)
+    if overlay_pages > 0:
+        sections.append(section("pages", f"Test pages as predicted by {names[order[0]]}",
+                                [paragraph("Boxes are filled with the predicted class; wrong "
+                                           "predictions have a thick black outline. Hover a "
+                                           "box for its text and classes.")]
+                                + overlays(best, page_labels, overlay_pages)))
+    sections.append(section("runs", "How each run was made", _provenance(bundles, names, order)))
+
+    n_words = len(best.predictions)
+    lede = (f"{len(bundles)} run(s), ranked by {score}; {n_words:,} test words, "
+            f"{best.predictions['doc_id'].nunique():,} test documents in the best run.")
+    out_path = Path(out_path)
+    out_path.parent.mkdir(parents=True, exist_ok=True)
+    out_path.write_text(document(title, lede, sections,
+                                 OVERLAY_STYLE + "\n" + class_style(page_labels)),
+                        encoding="utf-8")
+    return out_path
+
+
+def _with_unlisted(bundle: RunBundle, labels: list[str]) -> list[str]:
+    seen = set(bundle.predictions["label"].astype(str)) | set(
+        bundle.predictions["predicted"].astype(str))
+    return labels + sorted(seen - set(labels))
+
+
+def _per_class(bundles, names, order, labels) -> list[Html]:
+    values = np.array([[metric(bundles[i], f"f1/{label}") for label in labels] for i in order],
+                      dtype=float)
+    if np.isnan(values).all():
+        return [note("No run has per-class scores (metrics f1/<class>).")]
+    return [image(plots.f1_heatmap([names[i] for i in order], labels, values),
+                  "F1 per class and run"),
+            note("Grey cells: the run has no score for that class.")]
+
+
+def _confusion(bundles, names, order) -> list[Html]:
+    panels = [(names[i], *confusion_rows(bundles[i])) for i in order[:2]]
+    return [image(plots.confusion_panels(panels), "confusion matrices"),
+            note("Rows are true classes and sum to 1; grey rows have no test words.")]
+
+
+def _per_layout(bundles, names, order) -> list[Html]:
+    chosen = [i for i in order if has_layouts(bundles[i])]
+    if not chosen:
+        return [note("Not shown: the test words carry no layout ids.")]
+    scores = layout_scores([bundles[i] for i in chosen], [names[i] for i in chosen])
+    runs = list(scores.columns[1:])
+    rows = [[layout, f"{int(row['words']):,}", *(number(row[r]) for r in runs)]
+            for layout, row in scores.iterrows()]
+    parts = [Html('<div class="scroll">'),
+             table(["layout", "test words", *runs], rows, numeric=range(1, len(runs) + 2),
+                   nowrap=[0], table_id="layout-table"),
+             Html("</div>"), note("Word macro-F1 over the classes present in each layout.")]
+    skipped = [names[i] for i in order if i not in chosen]
+    if skipped:
+        parts.append(note(f"Runs without layout ids: {', '.join(skipped)}."))
+    return parts
+
+
+def _calibration(bundles, names, order) -> list[Html]:
+    curves = [(names[i], reliability(bundles[i])) for i in order]
+    rows = [[name, number(curve.expected_calibration_error), f"{int(curve.counts.sum()):,}"]
+            for name, curve in curves]
+    return [image(plots.calibration_plot(curves), "reliability curves"),
+            table(["run", "expected calibration error", "words"], rows, numeric=[1, 2],
+                  nowrap=[0], table_id="calibration-table"),
+            note("Confidence is the probability of the predicted class, in ten equal-width bins.")]
+
+
+def _provenance(bundles, names, order) -> list[Html]:
+    blocks = []
+    for i in order:
+        bundle = bundles[i]
+        facts = [("run id", bundle.run_id or "–")] + sorted(bundle.tags.items())
+        config = yaml.safe_dump(bundle.config, sort_keys=False, allow_unicode=True)
+        blocks.append(details(names[i], [
+            table(["field", "value"], facts),
+            Html("<h3>command</h3>"), preformatted(bundle.command or "(not recorded)"),
+            Html("<h3>config</h3>"), preformatted(config),
+        ]))
+    return blocks

@@ -1,0 +1,126 @@
+"""Matplotlib figures of the report, each returned as a base64 PNG data URI.
+
+Figures are built with the object API (``matplotlib.figure.Figure``, rendered by the Agg canvas),
+so nothing touches pyplot's global state or the user's backend and each figure is freed as
+soon as its bytes are taken. DPI stays at or below 100 to keep the page small.
+"""
+
+from __future__ import annotations
+
+import base64
+import io
+from collections.abc import Sequence
+
+import numpy as np
+from matplotlib import colormaps
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.figure import Figure
+
+from dochar.report.summaries import Reliability
+
+DPI = 100
+NAME_LIMIT = 42
+
+
+def plain(text: str, limit: int = NAME_LIMIT) -> str:
+    """Text safe for matplotlib (no mathtext from ``$``), shortened for axis labels."""
+    text = str(text)
+    if len(text) > limit:
+        text = text[: limit - 1] + "…"
+    return text.replace("$", r"\$")
+
+
+def to_data_uri(figure: Figure) -> str:
+    FigureCanvasAgg(figure)
+    buffer = io.BytesIO()
+    figure.savefig(buffer, format="png", dpi=DPI, bbox_inches="tight",
+                   metadata={"Software": None})
+    figure.clear()
+    return "data:image/png;base64," + base64.b64encode(buffer.getvalue()).decode("ascii")
+
+
+def _cell_text(axes, values: np.ndarray) -> None:
+    for (row, col), value in np.ndenumerate(values):
+        if np.isfinite(value):
+            axes.text(col, row, f"{value:.2f}", ha="center", va="center", fontsize=8,
+                      color="white" if value < 0.55 else "black")
+
+
+def f1_heatmap(runs: Sequence[str], labels: Sequence[str], values: np.ndarray) -> str:
+    """Runs (rows) by classes (columns); a class a run has no score for stays blank grey."""
+    width = min(16.0, max(6.0, 0.62 * len(labels) + 3.0))
+    height = max(2.2, 0.42 * len(runs) + 1.6)
+    figure = Figure(figsize=(width, height))
+    axes = figure.add_subplot()
+    axes.set_facecolor("#e5e5e5")
+    shown = axes.imshow(np.ma.masked_invalid(values), cmap="viridis", vmin=0, vmax=1,
+                        aspect="auto")
+    _cell_text(axes, values)
+    axes.set_xticks(range(len(labels)), [plain(x, 24) for x in labels], rotation=40,
+                    ha="right", fontsize=9)
+    axes.set_yticks(range(len(runs)), [plain(r) for r in runs], fontsize=9)
+    figure.colorbar(shown, ax=axes, fraction=0.03, pad=0.02, label="F1")
+    return to_data_uri(figure)
+
+
+def confusion_panels(panels: Sequence[tuple[str, Sequence[str], np.ndarray]]) -> str:
+    """Row-normalised confusion matrices side by side (rows true class, columns predicted)."""
+    n_labels = max(len(labels) for _, labels, _ in panels)
+    side = min(7.5, max(3.6, 0.42 * n_labels + 1.8))
+    figure = Figure(figsize=(side * len(panels) + 0.6, side))
+    axes_list = figure.subplots(1, len(panels), squeeze=False)[0]
+    shown = None
+    for position, (axes, (name, labels, matrix)) in enumerate(zip(axes_list, panels)):
+        axes.set_facecolor("#e5e5e5")
+        shown = axes.imshow(np.ma.masked_invalid(matrix), cmap="Blues", vmin=0, vmax=1)
+        if len(labels) <= 16:
+            for (row, col), value in np.ndenumerate(matrix):
+                if np.isfinite(value) and value >= 0.005:
+                    axes.text(col, row, f"{value:.2f}", ha="center", va="center", fontsize=7,
+                              color="white" if value > 0.6 else "black")
+        ticks = [plain(x, 20) for x in labels]
+        axes.set_xticks(range(len(labels)), ticks, rotation=50, ha="right", fontsize=8)
+        axes.set_yticks(range(len(labels)), ticks, fontsize=8)
+        axes.set_xlabel("predicted")
+        if position == 0:
+            axes.set_ylabel("true")
+        axes.set_title(plain(name), fontsize=10)
+    figure.colorbar(shown, ax=list(axes_list), fraction=0.025, pad=0.02,
+                    label="share of the true class")
+    return to_data_uri(figure)
+
+
+def _series_colours(n: int) -> list:
+    palette = colormaps["tab10"].colors
+    return [palette[i % len(palette)] for i in range(n)]
+
+
+def calibration_plot(curves: Sequence[tuple[str, Reliability]]) -> str:
+    figure = Figure(figsize=(5.4, 4.4))
+    axes = figure.add_subplot()
+    axes.plot([0, 1], [0, 1], color="#999999", linestyle="--", linewidth=1,
+              label="perfect calibration")
+    for colour, (name, curve) in zip(_series_colours(len(curves)), curves):
+        ece = curve.expected_calibration_error
+        axes.plot(curve.confidence, curve.accuracy, marker="o", markersize=4, color=colour,
+                  label=f"{plain(name)} (ECE {ece:.3f})")
+    axes.set_xlim(0, 1)
+    axes.set_ylim(0, 1.02)
+    axes.set_xlabel("mean confidence in bin")
+    axes.set_ylabel("share of words correct")
+    axes.grid(alpha=0.3)
+    axes.legend(fontsize=8, loc="upper left", bbox_to_anchor=(1.02, 1.0), frameon=False)
+    return to_data_uri(figure)
+
+
+def learning_plot(curves: Sequence[tuple[str, list[tuple[float, float]]]], score: str) -> str:
+    figure = Figure(figsize=(5.4, 3.8))
+    axes = figure.add_subplot()
+    for colour, (name, points) in zip(_series_colours(len(curves)), curves):
+        n_docs, values = zip(*points)
+        axes.plot(n_docs, values, marker="o", markersize=4, color=colour, label=plain(name))
+    axes.set_xlabel("training documents")
+    axes.set_ylabel(plain(score))
+    axes.grid(alpha=0.3)
+    axes.legend(fontsize=8, loc="upper left", bbox_to_anchor=(1.02, 1.0), frameon=False)
+    return to_data_uri(figure)

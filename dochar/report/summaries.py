@@ -1,0 +1,180 @@
+"""Numbers the report shows that are not already in a run's metrics, computed from predictions.
+
+Macro-F1 here averages over the classes present in the truth or the predictions of the words
+scored (scikit-learn's ``f1_score(average="macro")`` without ``labels=``), the same convention as
+the run metrics, so a layout that lacks a class is not penalised for it.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from sklearn.metrics import confusion_matrix, f1_score
+
+from dochar.results import PREDICTION_COLUMNS, RunBundle
+
+NEEDED_COLUMNS: tuple[str, ...] = ("doc_id", "page", "word_id", "text", "x0", "y0", "x1", "y1",
+                                   "page_width", "page_height", "label", "predicted",
+                                   "confidence")
+
+
+class ReportInputError(ValueError):
+    """A run that cannot be reported as given (names the run and what is wrong)."""
+
+
+def _first_bad(bundle: RunBundle, column: str, bad: np.ndarray, rule: str) -> None:
+    rows = np.flatnonzero(bad)
+    if len(rows):
+        raise ReportInputError(f"run '{bundle.name}': column '{column}' must be {rule}; "
+                               f"{len(rows)} prediction row(s) are not (first row {rows[0]})")
+
+
+def check_bundle(bundle: RunBundle) -> None:
+    """Refuse, up front and by name, a run whose predictions the report cannot draw."""
+    missing = [c for c in NEEDED_COLUMNS if c not in bundle.predictions.columns]
+    if missing:
+        raise ReportInputError(f"run '{bundle.name}': predictions lack column(s) {missing}; "
+                               f"expected {list(PREDICTION_COLUMNS)}")
+    if bundle.predictions.empty:
+        raise ReportInputError(f"run '{bundle.name}': predictions are empty")
+    for column in ("x0", "y0", "x1", "y1", "confidence"):
+        values = pd.to_numeric(bundle.predictions[column], errors="coerce").to_numpy(dtype=float)
+        _first_bad(bundle, column, ~np.isfinite(values), "a finite number")
+    confidence = bundle.predictions["confidence"].to_numpy(dtype=float)
+    _first_bad(bundle, "confidence", (confidence < 0) | (confidence > 1), "within [0, 1]")
+
+
+def display_names(bundles: Sequence[RunBundle]) -> list[str]:
+    """Run names made unique (a repeated name gets its run id or position appended)."""
+    seen: dict[str, int] = {}
+    for b in bundles:
+        seen[b.name] = seen.get(b.name, 0) + 1
+    names = []
+    for position, b in enumerate(bundles, start=1):
+        if seen[b.name] == 1:
+            names.append(b.name)
+        else:
+            names.append(f"{b.name} ({b.run_id[:8] if b.run_id else f'#{position}'})")
+    return names
+
+
+def metric(bundle: RunBundle, key: str) -> float | None:
+    value = bundle.metrics.get(key)
+    if value is None or not math.isfinite(float(value)):
+        return None
+    return float(value)
+
+
+def ranking(bundles: Sequence[RunBundle], score: str) -> list[int]:
+    """Indices best first; runs without the score go last, ties keep input order."""
+    def key(i: int) -> tuple[int, float, int]:
+        value = metric(bundles[i], score)
+        return (1, 0.0, i) if value is None else (0, -value, i)
+
+    return sorted(range(len(bundles)), key=key)
+
+
+def class_order(bundles: Sequence[RunBundle]) -> list[str]:
+    """Union of the runs' label sets, in order of first appearance."""
+    order: list[str] = []
+    for b in bundles:
+        order.extend(label for label in b.labels if label not in order)
+    return order
+
+
+def truth_and_prediction(bundle: RunBundle) -> tuple[np.ndarray, np.ndarray]:
+    frame = bundle.predictions
+    return frame["label"].astype(str).to_numpy(), frame["predicted"].astype(str).to_numpy()
+
+
+def confusion_rows(bundle: RunBundle) -> tuple[list[str], np.ndarray]:
+    """Row-normalised confusion (rows true, columns predicted); rows without support are NaN.
+
+    Labels seen in the predictions but missing from ``bundle.labels`` are appended, not dropped.
+    """
+    truth, predicted = truth_and_prediction(bundle)
+    labels = list(bundle.labels)
+    labels += sorted(set(truth) - set(labels)) + sorted(set(predicted) - set(truth) - set(labels))
+    counts = confusion_matrix(truth, predicted, labels=labels).astype(float)
+    totals = counts.sum(axis=1, keepdims=True)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return labels, np.where(totals > 0, counts / totals, np.nan)
+
+
+def has_layouts(bundle: RunBundle) -> bool:
+    if "layout_id" not in bundle.predictions.columns:
+        return False
+    values = bundle.predictions["layout_id"].fillna("").astype(str).str.strip()
+    return bool((values != "").any())
+
+
+def layout_scores(bundles: Sequence[RunBundle], names: Sequence[str]) -> pd.DataFrame:
+    """Macro-F1 per layout (rows) and run (columns), plus the test word count of each layout.
+
+    Words without a layout id are grouped under "(none)" rather than left out.
+    """
+    columns: dict[str, pd.Series] = {}
+    words: pd.Series | None = None
+    for bundle, name in zip(bundles, names):
+        frame = bundle.predictions
+        layout = frame["layout_id"].fillna("").astype(str).str.strip().replace("", "(none)")
+        scores = {}
+        for layout_id, rows in frame.groupby(layout, sort=True):
+            truth = rows["label"].astype(str)
+            scores[layout_id] = f1_score(truth, rows["predicted"].astype(str), average="macro",
+                                         zero_division=0)
+        columns[name] = pd.Series(scores, dtype=float)
+        if words is None:
+            words = layout.value_counts()
+    result = pd.DataFrame(columns)
+    result.insert(0, "words", words.reindex(result.index).fillna(0).astype(int))
+    result.index.name = "layout"
+    return result.sort_index()
+
+
+@dataclass(frozen=True)
+class Reliability:
+    """Equal-width confidence bins: mean confidence, accuracy and word count of each bin."""
+
+    confidence: np.ndarray
+    accuracy: np.ndarray
+    counts: np.ndarray
+
+    @property
+    def expected_calibration_error(self) -> float:
+        """ECE = sum_b (n_b / N) |acc_b - conf_b| (Guo et al., ICML 2017, eq. 3)."""
+        total = self.counts.sum()
+        if total == 0:
+            return float("nan")
+        return float(np.sum(self.counts / total * np.abs(self.accuracy - self.confidence)))
+
+
+def reliability(bundle: RunBundle, bins: int = 10) -> Reliability:
+    """Reliability curve of the top-class confidence (checked by check_bundle); empty bins
+    are left out."""
+    confidence = bundle.predictions["confidence"].to_numpy(dtype=float)
+    truth, predicted = truth_and_prediction(bundle)
+    correct = (truth == predicted).astype(float)
+    # Bin b holds (b/B, (b+1)/B]; confidence 0 joins the first bin.
+    which = np.searchsorted(np.linspace(0.0, 1.0, bins + 1)[1:-1], confidence, side="left")
+    counts = np.bincount(which, minlength=bins)
+    conf_sum = np.bincount(which, weights=confidence, minlength=bins)
+    hit_sum = np.bincount(which, weights=correct, minlength=bins)
+    used = counts > 0
+    return Reliability(conf_sum[used] / counts[used], hit_sum[used] / counts[used], counts[used])
+
+
+def learning_curve(bundle: RunBundle, score: str) -> list[tuple[float, float]]:
+    """Points (training documents, score) from metric keys ``curve/<n_docs>/<score>``."""
+    pattern = re.compile(rf"curve/(\d+(?:\.\d+)?)/{re.escape(score)}")
+    points = []
+    for key, value in bundle.metrics.items():
+        match = pattern.fullmatch(key)
+        if match and math.isfinite(float(value)):
+            points.append((float(match.group(1)), float(value)))
+    return sorted(points)
