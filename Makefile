@@ -33,7 +33,7 @@ test-all: $(STAMP)
 	$(BIN)/python -m pytest -q
 
 bench: $(STAMP)
-	$(BIN)/python -m benchmarks
+	$(BIN)/python -m dochar.bench
 
 clean:
 	rm -rf outputs mlflow.db mlartifacts reports/*.html test-artifacts

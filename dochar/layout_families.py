@@ -13,13 +13,22 @@ Both parts are scaled to unit length and weighted so that the cosine similarity 
 signatures is ``(1 - text_weight) * cos(grid) + text_weight * cos(words)`` whenever both parts
 are non-empty. Families are clusters of average-linkage agglomerative clustering on cosine
 distance, cut at ``threshold``.
+
+:func:`assign_inferred_layouts` applies this to a run: under ``split.infer_layouts: true`` the
+families become the ``layout_id`` groups every split protocol and the per-layout breakdown use
+(given ids, when present, are kept aside to score the recovery by adjusted Rand index), and the
+returned :class:`LayoutInference` reports, for the final split, the seen/test document pairs
+closer than ``split.leakage_threshold`` — near-duplicate layouts that make a test score easier.
 """
 
 from __future__ import annotations
 
+import logging
 import string
 import zlib
 from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -27,8 +36,9 @@ from sklearn.cluster import AgglomerativeClustering
 from sklearn.metrics import adjusted_rand_score
 from sklearn.metrics.pairwise import cosine_distances
 
-from dochar.document import Page
+from dochar.document import Page, iter_pages
 
+log = logging.getLogger(__name__)
 
 class LayoutFamilyError(ValueError):
     """Raised when signatures or families cannot be computed from the given pages."""
@@ -99,10 +109,13 @@ def infer_layout_families(pages: Iterable[Page], threshold: float,
     """doc_id -> family id (``family-000`` …, numbered in doc id order) for every document."""
     if method != "agglomerative":
         raise LayoutFamilyError(f"unknown family method '{method}'; only 'agglomerative'")
+    return _cluster(document_signatures(pages, grid, n_keywords, text_weight), threshold)
+
+
+def _cluster(signatures: Mapping[str, np.ndarray], threshold: float) -> dict[str, str]:
     if not 0 < threshold <= 2:
         raise LayoutFamilyError(f"threshold is a cosine distance in (0, 2], got {threshold}")
-    signatures = document_signatures(pages, grid, n_keywords, text_weight)
-    doc_ids = list(signatures)
+    doc_ids = sorted(signatures)
     if len(doc_ids) == 1:
         return {doc_ids[0]: "family-000"}
     clusters = AgglomerativeClustering(n_clusters=None, distance_threshold=threshold,
@@ -142,3 +155,107 @@ def family_recovery(true_layouts: Mapping[str, str], inferred: Mapping[str, str]
     doc_ids = sorted(true_layouts)
     return float(adjusted_rand_score([true_layouts[d] for d in doc_ids],
                                      [inferred[d] for d in doc_ids]))
+
+
+@dataclass
+class LayoutInference:
+    """Signatures and families of one run's documents, and the leakage check of its split."""
+
+    signatures: dict[str, np.ndarray] = field(default_factory=dict)
+    leakage_threshold: float | None = None
+    notes: dict[str, float] = field(default_factory=dict)
+
+    def leakage(self, assignment: Any) -> tuple[pd.DataFrame, dict[str, float]]:
+        """Near-duplicate pairs between the seen part (train + val) and the test part.
+
+        ``assignment`` has ``train``, ``val`` and ``test`` doc-id lists (a ``SplitAssignment``).
+        Returns the report (``seen_doc, seen_part, test_doc, distance``) and its counts as
+        metrics; both are empty when no ``leakage_threshold`` is configured.
+        """
+        columns = ["seen_doc", "seen_part", "test_doc", "distance"]
+        if self.leakage_threshold is None:
+            return pd.DataFrame(columns=columns), {}
+        seen = [*assignment.train, *assignment.val]
+        report = leakage_report(self.signatures, seen, list(assignment.test),
+                                self.leakage_threshold)
+        part = {**{d: "val" for d in assignment.val}, **{d: "train" for d in assignment.train}}
+        report = report.rename(columns={"train_doc": "seen_doc"})
+        report.insert(1, "seen_part", report["seen_doc"].map(part))
+        n_test = max(len(assignment.test), 1)
+        hit = report["test_doc"].nunique()
+        return report[columns], {"split/leakage_pairs": float(len(report)),
+                                 "split/leakage_test_documents": float(hit),
+                                 "split/leakage_test_share": hit / n_test}
+
+
+def _signature_options(split_cfg: Mapping[str, Any]) -> dict[str, Any]:
+    """``split.signature`` as :func:`document_signatures` keywords (absent keys: its defaults)."""
+    options = dict(split_cfg.get("signature") or {})
+    unknown = sorted(set(options) - {"grid", "keywords", "text_weight"})
+    if unknown:
+        raise LayoutFamilyError(f"split.signature: unknown key(s) {unknown}; valid keys are "
+                                f"['grid', 'keywords', 'text_weight']")
+    out: dict[str, Any] = {}
+    if "grid" in options:
+        grid = list(options["grid"])
+        if not (len(grid) == 2 and all(isinstance(v, int) for v in grid)):
+            raise LayoutFamilyError(f"split.signature.grid must be [rows, columns] (ints), "
+                                    f"got {options['grid']}")
+        out["grid"] = (grid[0], grid[1])
+    if "keywords" in options:
+        out["n_keywords"] = int(options["keywords"])
+    if "text_weight" in options:
+        out["text_weight"] = float(options["text_weight"])
+    return out
+
+
+def _given_layouts(table: pd.DataFrame) -> dict[str, str]:
+    if "layout_id" not in table.columns:
+        return {}
+    values = table["layout_id"].astype("string").fillna("").str.strip()
+    given = values.groupby(table["doc_id"].astype(str)).first()
+    return {str(d): str(v) for d, v in given.items() if v != ""}
+
+
+def assign_inferred_layouts(table: pd.DataFrame, split_cfg: Mapping[str, Any],
+                            pages: Sequence[Page] | None = None
+                            ) -> tuple[pd.DataFrame, LayoutInference]:
+    """The table to split (layout ids replaced by inferred families when the config asks) and
+    the run's :class:`LayoutInference`.
+
+    Config keys (``split.*``): ``infer_layouts`` (bool), ``signature`` (``grid``, ``keywords``,
+    ``text_weight``), ``family_threshold`` and ``leakage_threshold`` (cosine distances; a null
+    ``leakage_threshold`` turns the report off). Nothing is computed when both are off.
+    """
+    infer = bool(split_cfg.get("infer_layouts", False))
+    leakage_threshold = split_cfg.get("leakage_threshold")
+    if not infer and leakage_threshold is None:
+        return table, LayoutInference()
+    if leakage_threshold is not None and not 0 < float(leakage_threshold) <= 2:
+        raise LayoutFamilyError(f"split.leakage_threshold is a cosine distance in (0, 2], "
+                                f"got {leakage_threshold}")
+    options = _signature_options(split_cfg)
+    pages = list(iter_pages(table)) if pages is None else list(pages)
+    inference = LayoutInference(document_signatures(pages, **options),
+                                None if leakage_threshold is None else float(leakage_threshold))
+    if not infer:
+        return table, inference
+    threshold = split_cfg.get("family_threshold")
+    if threshold is None:
+        raise LayoutFamilyError("split.infer_layouts is true but split.family_threshold is not "
+                                "set (a cosine distance, e.g. 0.3)")
+    families = _cluster(inference.signatures, float(threshold))
+    given = _given_layouts(table)
+    inference.notes["split/inferred_families"] = float(len(set(families.values())))
+    if given:
+        if len(given) < len(families):
+            log.warning("layout ids given for only %d of %d documents; the inferred families "
+                        "replace all of them", len(given), len(families))
+        inference.notes["split/family_ari"] = family_recovery(
+            given, {doc: families[doc] for doc in given})
+        log.info("%d inferred layout families replace %d given layout ids (adjusted Rand "
+                 "index %.3f)", len(set(families.values())), len(set(given.values())),
+                 inference.notes["split/family_ari"])
+    out = table.copy()
+    out["layout_id"] = out["doc_id"].astype(str).map(families)
+    return out, inference

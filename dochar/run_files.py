@@ -13,7 +13,9 @@ import joblib
 import torch
 
 from dochar.metrics.words import row_normalise
-from dochar.report.plots import confusion_panels
+from dochar.report import write_report
+from dochar.report.plots import calibration_plot, confusion_panels
+from dochar.report.summaries import reliability
 from dochar.results import RunBundle
 
 
@@ -26,9 +28,16 @@ def write_run_files(folder: Path, bundle: RunBundle, model: Any) -> Path:
     saved by the caller once tracking has given it a run id."""
     folder.mkdir(parents=True, exist_ok=True)
     confusion = bundle.tables["confusion"]
-    _png(confusion_panels([(bundle.name, list(confusion.index),
-                            row_normalise(confusion.to_numpy()))]),
+    labels = list(confusion.index)
+    _png(confusion_panels([(bundle.name, labels, confusion.to_numpy(dtype=float))], counts=True),
+         folder / "confusion_counts.png")
+    _png(confusion_panels([(bundle.name, labels, row_normalise(confusion.to_numpy()))]),
          folder / "confusion_normalised.png")
+    _png(calibration_plot([(bundle.name, reliability(bundle))]), folder / "calibration.png")
+    # the run on its own page: page overlays with edges, per-layout scores, config
+    write_report([bundle], folder / "run_report.html", title=f"dochar run {bundle.name}",
+                 overlay_pages=len(bundle.edges[["doc_id", "page"]].drop_duplicates())
+                 if bundle.edges is not None else 0)
     model_dir = folder / "model"
     model_dir.mkdir(exist_ok=True)
     if isinstance(model, torch.nn.Module):

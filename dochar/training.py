@@ -44,17 +44,21 @@ def forward(model: torch.nn.Module, batch: Data) -> torch.Tensor:
 
 
 @torch.no_grad()
-def predict_proba(model: torch.nn.Module, graphs: Sequence[Data]) -> list[np.ndarray]:
+def predict_batch(model: torch.nn.Module, batch: Batch) -> torch.Tensor:
+    """Class probabilities of every word of a batch (eval mode: no dropout, running BN stats)."""
     model.eval()
-    return [torch.softmax(forward(model, Batch.from_data_list([g])), dim=-1).numpy()
-            for g in graphs]
+    return torch.softmax(forward(model, batch), dim=-1)
 
 
-def macro_f1(model: torch.nn.Module, graphs: Sequence[Data]) -> float:
-    probabilities = predict_proba(model, graphs)
-    y_true = np.concatenate([g.y.numpy() for g in graphs])
-    y_pred = np.concatenate([p.argmax(axis=1) for p in probabilities])
-    return float(f1_score(y_true, y_pred, average="macro", zero_division=0))
+def predict_proba(model: torch.nn.Module, graphs: Sequence[Data]) -> list[np.ndarray]:
+    batch = Batch.from_data_list(list(graphs))
+    sizes = torch.diff(batch.ptr).tolist()
+    return [part.numpy() for part in torch.split(predict_batch(model, batch), sizes)]
+
+
+def macro_f1(model: torch.nn.Module, batch: Batch) -> float:
+    y_pred = predict_batch(model, batch).argmax(dim=1).numpy()
+    return float(f1_score(batch.y.numpy(), y_pred, average="macro", zero_division=0))
 
 
 @dataclass
@@ -76,6 +80,7 @@ def train(model: torch.nn.Module, train_graphs: Sequence[Data], val_graphs: Sequ
     loss_fn = torch.nn.CrossEntropyLoss(
         weight=class_weights(train_graphs, num_classes, cfg["class_weighting"]))
     history, best_state = TrainHistory(), copy.deepcopy(model.state_dict())
+    val_batch = Batch.from_data_list(list(val_graphs)) if val_graphs else None
     epochs = tqdm(range(1, int(cfg["max_epochs"]) + 1), desc="epochs", leave=False,
                   disable=not cfg.get("progress", True))
     for epoch in epochs:
@@ -88,7 +93,10 @@ def train(model: torch.nn.Module, train_graphs: Sequence[Data], val_graphs: Sequ
             optimizer.step()
             total += loss.item() * batch.num_graphs
         history.losses.append(total / len(train_graphs))
-        score = macro_f1(model, val_graphs)
+        if val_batch is None:  # no validation documents: train the full budget, keep the last
+            best_state, history.best_epoch, history.epochs_run = model.state_dict(), epoch, epoch
+            continue
+        score = macro_f1(model, val_batch)
         history.val_scores.append(score)
         history.epochs_run = epoch
         if score > history.best_val_macro_f1:

@@ -63,30 +63,34 @@ def f1_heatmap(runs: Sequence[str], labels: Sequence[str], values: np.ndarray) -
     return to_data_uri(figure)
 
 
-def confusion_panels(panels: Sequence[tuple[str, Sequence[str], np.ndarray]]) -> str:
-    """Row-normalised confusion matrices side by side (rows true class, columns predicted)."""
+def confusion_panels(panels: Sequence[tuple[str, Sequence[str], np.ndarray]], *,
+                     counts: bool = False) -> str:
+    """Confusion matrices side by side (rows true class, columns predicted): row-normalised
+    shares by default, raw word counts with ``counts=True``."""
     n_labels = max(len(labels) for _, labels, _ in panels)
     side = min(7.5, max(3.6, 0.42 * n_labels + 1.8))
     figure = Figure(figsize=(side * len(panels) + 0.6, side))
     axes_list = figure.subplots(1, len(panels), squeeze=False)[0]
+    top = max(float(np.nanmax(m)) for _, _, m in panels) if counts else 1.0
     shown = None
-    for position, (axes, (name, labels, matrix)) in enumerate(zip(axes_list, panels)):
+    for axes, (name, labels, matrix) in zip(axes_list, panels):
         axes.set_facecolor("#e5e5e5")
-        shown = axes.imshow(np.ma.masked_invalid(matrix), cmap="Blues", vmin=0, vmax=1)
+        shown = axes.imshow(np.ma.masked_invalid(matrix), cmap="Blues", vmin=0,
+                            vmax=max(top, 1.0))
         if len(labels) <= 16:
             for (row, col), value in np.ndenumerate(matrix):
-                if np.isfinite(value) and value >= 0.005:
-                    axes.text(col, row, f"{value:.2f}", ha="center", va="center", fontsize=7,
-                              color="white" if value > 0.6 else "black")
+                if np.isfinite(value) and value >= (1 if counts else 0.005):
+                    axes.text(col, row, f"{value:.0f}" if counts else f"{value:.2f}",
+                              ha="center", va="center", fontsize=7,
+                              color="white" if value > 0.6 * max(top, 1.0) else "black")
         ticks = [plain(x, 20) for x in labels]
         axes.set_xticks(range(len(labels)), ticks, rotation=50, ha="right", fontsize=8)
         axes.set_yticks(range(len(labels)), ticks, fontsize=8)
         axes.set_xlabel("predicted")
-        if position == 0:
-            axes.set_ylabel("true")
+        axes.set_ylabel("true")
         axes.set_title(plain(name), fontsize=10)
     figure.colorbar(shown, ax=list(axes_list), fraction=0.025, pad=0.02,
-                    label="share of the true class")
+                    label="words" if counts else "share of the true class")
     return to_data_uri(figure)
 
 
