@@ -12,6 +12,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import pandas as pd
+from tqdm import tqdm
 
 from dochar.document import ValidationReport, WordTableError, read_word_table, validate_word_table
 
@@ -29,21 +30,26 @@ class LoadedData:
         return self.validation.table
 
 
-def _load_raw(data_cfg: Mapping[str, Any]) -> tuple[pd.DataFrame, dict[str, Any]]:
+def _load_raw(data_cfg: Mapping[str, Any], progress: bool) -> tuple[pd.DataFrame, dict[str, Any]]:
     source = data_cfg.get("source")
     if source == "synth":
         import data_synth
+        from data_synth.generator import iter_documents
 
         noise = data_synth.NoiseConfig(**dict(data_cfg.get("noise") or {}))
-        frame = data_synth.generate(int(data_cfg["documents"]),
-                                    seed=int(data_cfg.get("generator_seed", 0)), noise=noise)
+        count = int(data_cfg["documents"])
+        documents = iter_documents(count, seed=int(data_cfg.get("generator_seed", 0)),
+                                   noise=noise)
+        frame = pd.concat(list(tqdm(documents, total=count, desc="generating", leave=False,
+                                    disable=not progress)), ignore_index=True)
         frame.attrs["source"] = f"synthetic certificates (seed {data_cfg.get('generator_seed', 0)})"
         return frame, {}
     if source == "form_json":
         from dochar.io.form_json import import_form_json
 
         frame, report = import_form_json([data_cfg["path"]],
-                                         empty_text=data_cfg.get("empty_text", "drop"))
+                                         empty_text=data_cfg.get("empty_text", "drop"),
+                                         progress=progress)
         frame.attrs["source"] = str(data_cfg["path"])
         log.info("import: %s", report.summary())
         if report.problems:
@@ -56,9 +62,10 @@ def _load_raw(data_cfg: Mapping[str, Any]) -> tuple[pd.DataFrame, dict[str, Any]
     raise WordTableError(f"data.source: unknown source {source!r}; choose one of {list(SOURCES)}")
 
 
-def load_data(data_cfg: Mapping[str, Any], *, strict: bool = False) -> LoadedData:
+def load_data(data_cfg: Mapping[str, Any], *, strict: bool = False,
+              progress: bool = False) -> LoadedData:
     """Load and validate; every skipped document is reported with its reason, never dropped silently."""
-    frame, notes = _load_raw(data_cfg)
+    frame, notes = _load_raw(data_cfg, progress)
     report = validate_word_table(frame, list(data_cfg["labels"]), strict=strict)
     log.info("word table: %s", report.summary())
     for problem in report.problems[:20]:

@@ -21,6 +21,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import pandas as pd
+from tqdm import tqdm
 
 from dochar.document import WordTableError
 
@@ -100,28 +101,26 @@ def read_form_file(path: Path, report: FormImportReport, *, split: str = "",
     return rows
 
 
-def import_form_json(paths: Iterable[str | Path], *, empty_text: str = "drop"
-                     ) -> tuple[pd.DataFrame, FormImportReport]:
+def import_form_json(paths: Iterable[str | Path], *, empty_text: str = "drop",
+                     progress: bool = False) -> tuple[pd.DataFrame, FormImportReport]:
     """Import annotation files or folders; a FUNSD-style root gives the official split column."""
     if empty_text not in {"drop", "keep"}:
         raise WordTableError(f"empty_text must be 'drop' or 'keep', got {empty_text!r}")
-    report = FormImportReport()
-    rows: list[dict] = []
+    files: list[tuple[Path, str]] = []
     for root in map(Path, paths):
         if not root.exists():
             raise WordTableError(f"{root}: no such file or folder")
         if root.is_file():
-            rows += read_form_file(root, report, empty_text=empty_text)
+            files.append((root, ""))
             continue
-        found = False
-        for folder, split in SPLIT_FOLDERS.items():
-            for file in sorted((root / folder / "annotations").glob("*.json")):
-                found = True
-                rows += read_form_file(file, report, split=split, empty_text=empty_text)
-        if not found:
-            for file in sorted(root.glob("*.json")):
-                found = True
-                rows += read_form_file(file, report, empty_text=empty_text)
+        found = [(file, split) for folder, split in SPLIT_FOLDERS.items()
+                 for file in sorted((root / folder / "annotations").glob("*.json"))]
+        found = found or [(file, "") for file in sorted(root.glob("*.json"))]
         if not found:
             raise WordTableError(f"{root}: no annotation JSON files found")
+        files += found
+    report = FormImportReport()
+    rows: list[dict] = []
+    for file, split in tqdm(files, desc="importing", leave=False, disable=not progress):
+        rows += read_form_file(file, report, split=split, empty_text=empty_text)
     return pd.DataFrame(rows), report
