@@ -166,7 +166,7 @@ def run_experiment(cfg: DictConfig) -> tuple[RunBundle, Any]:
     """Run the composed config; returns the run's bundle and the fitted model."""
     seed_everything(int(cfg.seed), int(cfg.train.threads))
     labels = list(cfg.data.labels)
-    data = load_data(cfg.data, strict=bool(cfg.strict))
+    data = load_data(cfg.data, strict=bool(cfg.strict), progress=bool(cfg.train.progress))
     assignment = split_documents(data.table, cfg)
     pages = list(iter_pages(data.table))
     by_part = {part: set(getattr(assignment, part)) for part in PARTS}
