@@ -35,5 +35,8 @@ test-all: $(STAMP)
 bench: $(STAMP)
 	$(BIN)/python -m dochar.bench
 
+gate: $(STAMP)
+	$(BIN)/dochar gate
+
 clean:
 	rm -rf outputs mlflow.db mlartifacts reports/*.html test-artifacts

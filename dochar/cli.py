@@ -4,6 +4,7 @@
     dochar graph-stats [key=value ...]   graph diagnostics for a data/graph choice, no training
     dochar compare RUN_A RUN_B           paired difference of two runs on the same test pages
     dochar report [--experiment NAME]    static HTML page of an experiment's runs
+    dochar gate [--update] [key=value]   reference run vs the committed baseline (CI)
 """
 
 from __future__ import annotations
@@ -121,6 +122,7 @@ def _parser() -> argparse.ArgumentParser:
     commands = parser.add_subparsers(dest="command", required=True)
     for name in ("run", "graph-stats"):
         commands.add_parser(name, help="Hydra overrides follow", add_help=False)
+    commands.add_parser("gate", help="CI regression gate (dochar gate --help)", add_help=False)
 
     def tracked(sub: argparse.ArgumentParser) -> None:
         sub.add_argument("--experiment", default="dochar-demo", help="MLflow experiment name")
@@ -149,6 +151,10 @@ def main(argv: list[str] | None = None) -> int:
         return _hydra_command(_run_job, argv)
     if argv and argv[0] == "graph-stats":
         return _hydra_command(_graph_stats_job, argv)
+    if argv and argv[0] == "gate":
+        from dochar.gate import main as gate_main
+
+        return gate_main(argv[1:])
     args = _parser().parse_args(argv)
     handlers = {"compare": _compare, "report": _report}
     return handlers[args.command](args)

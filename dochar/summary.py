@@ -5,9 +5,11 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 
+import pandas as pd
 from rich.console import Console
 from rich.table import Table
 
+from dochar.aggregate import mean_std_text
 from dochar.results import RunBundle
 
 console = Console(width=160)
@@ -56,3 +58,19 @@ def per_class_table(bundles: Sequence[RunBundle]) -> Table:
 def print_comparison(bundles: Sequence[RunBundle]) -> None:
     console.print(ranking_table(bundles))
     console.print(per_class_table(bundles))
+
+
+def aggregate_table(repeats: pd.DataFrame) -> Table:
+    """Systems repeated over seeds or folds: mean ± sample std and the number of runs."""
+    table = Table(title="systems over seeds / folds (mean ± std)", title_justify="left")
+    for column in ("system", "n", "macro-F1", "micro-F1", "entity F1", "train s"):
+        table.add_column(column, justify="left" if column == "system" else "right")
+    for row in repeats.itertuples(index=False):
+        values = row._asdict()
+
+        def cell(metric: str, digits: int = 3) -> str:
+            mean = values.get(f"{metric}_mean")
+            return "–" if mean is None else mean_std_text(mean, values[f"{metric}_std"], digits)
+        table.add_row(str(row.system), str(row.n), cell("macro_f1"), cell("micro_f1"),
+                      cell("entity_f1"), cell("cost/train_seconds", 1))
+    return table
