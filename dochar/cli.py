@@ -1,6 +1,7 @@
 """The `dochar` command.
 
     dochar run [-m] [key=value ...]      one run, or a sweep over comma-separated choices
+    dochar curve [-m] [key=value ...]    learning curve: score against training documents
     dochar graph-stats [key=value ...]   graph diagnostics for a data/graph choice, no training
     dochar compare RUN_A RUN_B           paired difference of two runs on the same test pages
     dochar report [--experiment NAME]    static HTML page of an experiment's runs
@@ -18,6 +19,7 @@ from pathlib import Path
 CONFIG_DIR = Path(os.environ.get("DOCHAR_CONFIG_DIR", Path(__file__).resolve().parents[1] /
                                  "configs")).resolve()
 log = logging.getLogger("dochar")
+_SUBCOMMAND = ["run"]  # the Hydra-driven subcommand being run, for the recorded command line
 
 
 def _hydra_main(task):
@@ -27,27 +29,53 @@ def _hydra_main(task):
                       version_base="1.3")(task)
 
 
-def _run_job(cfg) -> float:
+def _finish(cfg, bundle, model) -> float:
+    """Write the run folder, log it, print its line: the same for every kind of job."""
     from hydra.core.hydra_config import HydraConfig
 
-    from dochar.experiment import run_experiment
     from dochar.run_files import write_run_files
     from dochar.summary import console, ranking_table
     from dochar.tracking import log_run, resolve_uri
 
     hydra_cfg = HydraConfig.get()
-    bundle, model = run_experiment(cfg)
-    overrides = list(hydra_cfg.overrides.task)
-    bundle.command = " ".join(["dochar", "run", *overrides])
+    bundle.command = " ".join(["dochar", _SUBCOMMAND[0], *hydra_cfg.overrides.task])
     folder = Path(hydra_cfg.runtime.output_dir) / "run"
     write_run_files(folder, bundle, model)
     if cfg.tracking.enabled:
-        uri = resolve_uri(cfg.tracking.uri)
-        log_run(bundle, folder, uri=uri, experiment=str(cfg.tracking.experiment))
+        log_run(bundle, folder, uri=resolve_uri(cfg.tracking.uri),
+                experiment=str(cfg.tracking.experiment))
     else:
         bundle.save(folder)
     console.print(ranking_table([bundle], title=f"run {bundle.name}"))
     return float(bundle.metrics["macro_f1"])
+
+
+def _run_job(cfg) -> float:
+    from dochar.experiment import run_experiment
+
+    bundle, model = run_experiment(cfg)
+    return _finish(cfg, bundle, model)
+
+
+def _curve_job(cfg) -> float:
+    """Learning curve of one system; logged as its full-data run plus curve/<n>/<score>."""
+    from dochar.learning_curve import curve_metrics, run_learning_curve
+
+    full: list = []
+
+    def keep_full(bundle, model, point) -> None:
+        if point.split.train_documents is None and not full:
+            full.extend([bundle, model])
+
+    seeds = list(cfg.curve.seeds) if cfg.curve.get("seeds") else None
+    frame = run_learning_curve(cfg, list(cfg.curve.sizes), seeds=seeds, on_run=keep_full)
+    bundle, model = full
+    print(f"learning curve of {bundle.name}:")
+    print(frame[["n_train_documents", "seed", "macro_f1", "macro_f1_low", "macro_f1_high",
+                 "entity_f1", "train_seconds"]].round(3).to_string(index=False))
+    bundle.metrics.update(curve_metrics(frame))
+    bundle.tables["learning_curve"] = frame.set_index("system")
+    return _finish(cfg, bundle, model)
 
 
 def _graph_stats_job(cfg) -> None:
@@ -64,6 +92,7 @@ def _graph_stats_job(cfg) -> None:
 
 
 def _hydra_command(task, argv: list[str]) -> int:
+    _SUBCOMMAND[0] = argv[0]
     sys.argv = [f"dochar {argv[0]}", *argv[1:]]
     try:
         _hydra_main(task)()
@@ -120,7 +149,7 @@ def _parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="dochar", description=__doc__,
                                      formatter_class=argparse.RawDescriptionHelpFormatter)
     commands = parser.add_subparsers(dest="command", required=True)
-    for name in ("run", "graph-stats"):
+    for name in ("run", "curve", "graph-stats"):
         commands.add_parser(name, help="Hydra overrides follow", add_help=False)
     commands.add_parser("gate", help="CI regression gate (dochar gate --help)", add_help=False)
 
@@ -149,6 +178,8 @@ def main(argv: list[str] | None = None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
     if argv and argv[0] == "run":
         return _hydra_command(_run_job, argv)
+    if argv and argv[0] == "curve":
+        return _hydra_command(_curve_job, argv)
     if argv and argv[0] == "graph-stats":
         return _hydra_command(_graph_stats_job, argv)
     if argv and argv[0] == "gate":
