@@ -1,4 +1,5 @@
-"""Word features: geometry, text flags and lexicons as dense columns; characters for the char CNN.
+"""Word features: geometry, text flags and lexicons as dense columns; characters for the char CNN;
+optionally a pretrained text embedding (the ``embed`` extra).
 
 ``CharCNNEncoder`` is loaded on first use so baselines that never touch torch stay light.
 """
@@ -8,7 +9,7 @@ from __future__ import annotations
 from typing import TYPE_CHECKING
 
 from dochar.features.chars import CHAR_VOCAB, CHAR_VOCAB_SIZE, char_ids, char_ngram_hashes
-from dochar.features.featurizer import FEATURE_GROUPS, WordFeaturizer
+from dochar.features.featurizer import FEATURE_GROUPS, OPTIONAL_GROUPS, WordFeaturizer
 from dochar.features.geometry import GEOMETRY_NAMES
 from dochar.features.lexicons import DEFAULT_LEXICONS
 from dochar.features.text_flags import TEXT_FLAG_NAMES
@@ -17,7 +18,7 @@ if TYPE_CHECKING:
     from dochar.features.char_cnn import CharCNNEncoder
 
 __all__ = [
-    "CHAR_VOCAB", "CHAR_VOCAB_SIZE", "DEFAULT_LEXICONS", "FEATURE_GROUPS", "GEOMETRY_NAMES",
+    "CHAR_VOCAB", "CHAR_VOCAB_SIZE", "DEFAULT_LEXICONS", "FEATURE_GROUPS", "GEOMETRY_NAMES", "OPTIONAL_GROUPS",
     "TEXT_FLAG_NAMES", "CharCNNEncoder", "WordFeaturizer", "char_ids", "char_ngram_hashes",
 ]
 

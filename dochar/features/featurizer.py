@@ -2,7 +2,8 @@
 
 Groups: ``geometry`` (box layout), ``text_flags`` (surface flags plus one ``lexicon:<name>``
 column per configured word list) and ``char_cnn``, which adds no dense columns: it marks that
-the model encodes ``char_ids`` itself. All scales are fixed, so fitting learns nothing unless
+the model encodes ``char_ids`` itself. The optional ``text_embedding`` group adds a pretrained
+sentence embedding of each word (:mod:`dochar.features.text_embedding`, the ``embed`` extra). All scales are fixed, so fitting learns nothing unless
 ``standardize`` is set; then column means and standard deviations come from the pages given to
 ``fit`` (the training pages only), and constant columns are left unscaled.
 """
@@ -18,9 +19,11 @@ from dochar.document import Page
 from dochar.features.chars import char_ids
 from dochar.features.geometry import GEOMETRY_NAMES, geometry_features
 from dochar.features.lexicons import compile_lexicons, lexicon_features
+from dochar.features.text_embedding import EMBEDDING_DIM, TextEmbedder
 from dochar.features.text_flags import TEXT_FLAG_NAMES, text_flag_features
 
 FEATURE_GROUPS: tuple[str, ...] = ("geometry", "text_flags", "char_cnn")
+OPTIONAL_GROUPS: tuple[str, ...] = ("text_embedding",)   # need an optional extra installed
 _MIN_STD = 1e-6
 
 
@@ -58,13 +61,14 @@ class WordFeaturizer:
                  *, standardize: bool = False) -> None:
         if isinstance(groups, str):
             groups = (groups,)
-        unknown = [g for g in groups if g not in FEATURE_GROUPS]
+        unknown = [g for g in groups if g not in FEATURE_GROUPS + OPTIONAL_GROUPS]
         if unknown or not groups:
             raise ValueError(f"WordFeaturizer: unknown or no feature group(s) {unknown}; "
-                             f"choose from {list(FEATURE_GROUPS)}")
+                             f"choose from {list(FEATURE_GROUPS + OPTIONAL_GROUPS)}")
         if max_chars < 1:
             raise ValueError(f"WordFeaturizer: max_chars must be at least 1, got {max_chars}")
         self.groups = tuple(dict.fromkeys(groups))
+        self.embedder = TextEmbedder() if "text_embedding" in self.groups else None
         self.lexicons = compile_lexicons(lexicons)
         if self.lexicons and "text_flags" not in self.groups:
             warnings.warn("WordFeaturizer: lexicon columns belong to the 'text_flags' group, "
@@ -83,6 +87,8 @@ class WordFeaturizer:
         if "text_flags" in self.groups:
             names += [f"text:{n}" for n in TEXT_FLAG_NAMES]
             names += [f"lexicon:{n}" for n in self.lexicons]
+        if self.embedder is not None:
+            names += [f"embedding:{i}" for i in range(EMBEDDING_DIM)]
         return names
 
     @property
@@ -132,4 +138,6 @@ class WordFeaturizer:
         if "text_flags" in self.groups:
             blocks.append(text_flag_features(page.texts))
             blocks.append(lexicon_features(page.texts, self.lexicons))
+        if self.embedder is not None:
+            blocks.append(self.embedder(page.texts))
         return np.concatenate(blocks, axis=1)
