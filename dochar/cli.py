@@ -91,11 +91,30 @@ def _graph_stats_job(cfg) -> None:
     print(format_stats(stats))
 
 
+def _reported(task):
+    """Input and config problems end the job with one located message and exit code 2, not a
+    traceback (``DOCHAR_TRACEBACK=1`` shows it)."""
+    from omegaconf.errors import OmegaConfBaseException
+
+    def job(cfg):
+        try:
+            return task(cfg)
+        except (ValueError, FileNotFoundError, OmegaConfBaseException) as error:
+            if os.environ.get("DOCHAR_TRACEBACK") == "1":
+                raise
+            print(f"dochar {_SUBCOMMAND[0]}: error: {error}", file=sys.stderr)
+            raise SystemExit(2) from None
+
+    job.__name__ = task.__name__
+    job.__module__ = task.__module__
+    return job
+
+
 def _hydra_command(task, argv: list[str]) -> int:
     _SUBCOMMAND[0] = argv[0]
     sys.argv = [f"dochar {argv[0]}", *argv[1:]]
     try:
-        _hydra_main(task)()
+        _hydra_main(_reported(task))()
     except SystemExit as stop:
         return int(stop.code or 0)
     return 0

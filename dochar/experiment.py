@@ -23,6 +23,7 @@ from dochar.evaluation import evaluate
 from dochar.features import CharCNNEncoder, WordFeaturizer
 from dochar.graphs import make_graph_builder
 from dochar.graphs.diagnostics import graph_stats
+from dochar.layout_families import assign_inferred_layouts
 from dochar.models.baselines import make_baseline
 from dochar.models.gnn import GNNStack, count_parameters
 from dochar.results import PROBABILITY_PREFIX, RunBundle
@@ -48,7 +49,8 @@ def split_documents(table: pd.DataFrame, cfg: DictConfig) -> SplitAssignment:
             raise ValueError(f"split.train_documents={wanted}: the training part holds "
                              f"{len(assignment.train)} documents")
         rng = np.random.default_rng(int(cfg.seed))
-        assignment.train = sorted(rng.choice(assignment.train, int(wanted), replace=False))
+        # a prefix of one permutation: smaller training sets nest inside larger ones
+        assignment.train = sorted(rng.permutation(assignment.train)[:int(wanted)])
     return assignment
 
 
@@ -167,8 +169,10 @@ def run_experiment(cfg: DictConfig) -> tuple[RunBundle, Any]:
     seed_everything(int(cfg.seed), int(cfg.train.threads))
     labels = list(cfg.data.labels)
     data = load_data(cfg.data, strict=bool(cfg.strict), progress=bool(cfg.train.progress))
-    assignment = split_documents(data.table, cfg)
-    pages = list(iter_pages(data.table))
+    table, layouts = assign_inferred_layouts(data.table, cfg.split)
+    assignment = split_documents(table, cfg)
+    leakage, leak_counts = layouts.leakage(assignment)
+    pages = list(iter_pages(table))
     by_part = {part: set(getattr(assignment, part)) for part in PARTS}
     builder = build_graph_builder(cfg)
     progress = bool(cfg.train.progress)
@@ -192,6 +196,9 @@ def run_experiment(cfg: DictConfig) -> tuple[RunBundle, Any]:
     metrics.update({f"graph/{k}": float(v) for k, v in stats.items()
                     if isinstance(v, (int, float)) and np.isfinite(v)})
     metrics.update({f"data/{k}": float(v) for k, v in data.notes.items()})
+    metrics.update({**layouts.notes, **leak_counts})
+    if not leakage.empty:
+        scores.tables["leakage"] = leakage
     metrics.update({f"split/{part}_documents": float(len(by_part[part])) for part in PARTS})
     tags = {"dataset": str(cfg.data.name), "split_protocol": str(cfg.split.protocol),
             "graph_builder": str(cfg.graph.name), "features": "+".join(cfg.features.groups),

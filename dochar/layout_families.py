@@ -159,7 +159,7 @@ def family_recovery(true_layouts: Mapping[str, str], inferred: Mapping[str, str]
 
 @dataclass
 class LayoutInference:
-    """Signatures and families of one run's documents, and the leakage check of its split."""
+    """One run's document signatures, notes on its families, and the leakage check of its split."""
 
     signatures: dict[str, np.ndarray] = field(default_factory=dict)
     leakage_threshold: float | None = None

@@ -9,6 +9,7 @@ from __future__ import annotations
 import logging
 from collections.abc import Mapping
 from dataclasses import dataclass, field
+from pathlib import Path
 from typing import Any
 
 import pandas as pd
@@ -47,6 +48,10 @@ def _load_raw(data_cfg: Mapping[str, Any], progress: bool) -> tuple[pd.DataFrame
     if source == "form_json":
         from dochar.io.form_json import import_form_json
 
+        if not Path(data_cfg["path"]).exists():
+            raise WordTableError(f"data.path={data_cfg['path']}: no such folder (relative paths "
+                                 f"start at {Path.cwd()}; set DOCHAR_DATASETS to the folder "
+                                 "holding the datasets, or data.path=...)")
         frame, report = import_form_json([data_cfg["path"]],
                                          empty_text=data_cfg.get("empty_text", "drop"),
                                          progress=progress)

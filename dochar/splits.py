@@ -127,7 +127,8 @@ def _need_layouts(docs: pd.DataFrame, protocol: str, needed: int, why: str) -> N
         raise SplitError(
             f"protocol '{protocol}' needs a layout_id for every document; {len(missing)} of "
             f"{len(docs)} have none (e.g. {missing[:5]}). Fill the column with inferred layout "
-            f"families: dochar.layout_families.infer_layout_families(pages, threshold)")
+            f"families: dochar.layout_families.infer_layout_families(pages, threshold), or "
+            f"in a run set split.infer_layouts=true (e.g. split=inferred_layouts)")
     have = docs["layout_id"].nunique()
     if have < needed:
         raise SplitError(f"protocol '{protocol}' needs at least {needed} distinct layouts "
