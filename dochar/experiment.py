@@ -155,17 +155,41 @@ def edge_frame(page_set: PageSet, limit: int) -> pd.DataFrame:
         columns=["doc_id", "page", "source", "target", "relation"])
 
 
+def check_names(cfg: DictConfig) -> None:
+    """Fail on an unknown builder, layer or estimator before any data is loaded."""
+    from dochar.graphs import BUILDERS
+    from dochar.models.baselines import BASELINES
+    from dochar.models.layers import LAYERS
+
+    if cfg.model.kind not in {"gnn", "baseline"}:
+        raise ValueError(f"model.kind must be 'gnn' or 'baseline', got {cfg.model.kind!r}")
+    chosen = [("graph.name", cfg.graph.name, BUILDERS)]
+    chosen.append(("model.layer", cfg.model.layer, LAYERS) if cfg.model.kind == "gnn"
+                  else ("model.estimator", cfg.model.estimator, BASELINES))
+    for key, name, registry in chosen:
+        if name not in registry:
+            raise ValueError(f"{key}={name!r}: unknown; choose one of {sorted(registry)}")
+
+
 def run_name(cfg: DictConfig) -> str:
     if cfg.get("run_name"):
         return str(cfg.run_name)
     system = cfg.model.layer if cfg.model.kind == "gnn" else cfg.model.estimator
     if cfg.model.kind != "gnn" and cfg.model.get("neighbour_features"):
         system += "+neighbours"
-    return f"{system}/{cfg.graph.name}/{'+'.join(cfg.features.groups)}"
+    if cfg.model.kind == "gnn" and (cfg.model.layer_options or {}).get("num_bases"):
+        system += f"+bases{cfg.model.layer_options.num_bases}"
+    graph = str(cfg.graph.name)
+    for option, mark in (("prune_gutters", "pruned"), ("reverse_edges", "rev"),
+                         ("self_loops", "self")):
+        if cfg.graph.get(option):
+            graph += f"+{mark}"
+    return f"{system}/{graph}/{'+'.join(cfg.features.groups)}"
 
 
 def run_experiment(cfg: DictConfig) -> tuple[RunBundle, Any]:
     """Run the composed config; returns the run's bundle and the fitted model."""
+    check_names(cfg)
     seed_everything(int(cfg.seed), int(cfg.train.threads))
     labels = list(cfg.data.labels)
     data = load_data(cfg.data, strict=bool(cfg.strict), progress=bool(cfg.train.progress))
@@ -181,12 +205,12 @@ def run_experiment(cfg: DictConfig) -> tuple[RunBundle, Any]:
     for part in PARTS:
         if not sets[part].pages:
             raise ValueError(f"split {cfg.split.protocol!r} left no {part} documents")
-    featurizer = WordFeaturizer(groups=list(cfg.features.groups),
-                                lexicons=OmegaConf.to_container(cfg.data.lexicons),
+    groups = list(cfg.features.groups)
+    featurizer = WordFeaturizer(groups=groups,
+                                lexicons=(OmegaConf.to_container(cfg.data.lexicons)
+                                          if "text_flags" in groups else None),
                                 max_chars=int(cfg.features.max_chars)).fit(sets["train"].pages)
     fit = fit_gnn if cfg.model.kind == "gnn" else fit_baseline
-    if cfg.model.kind not in {"gnn", "baseline"}:
-        raise ValueError(f"model.kind must be 'gnn' or 'baseline', got {cfg.model.kind!r}")
     torch.manual_seed(int(cfg.seed))
     probabilities, cost, model = fit(cfg, sets, featurizer, labels)
     predictions = prediction_frame(sets["test"].pages, probabilities, labels)

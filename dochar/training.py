@@ -12,13 +12,19 @@ from typing import Any
 import numpy as np
 import torch
 from sklearn.metrics import f1_score
+from threadpoolctl import threadpool_limits
 from torch_geometric.data import Batch, Data
 from torch_geometric.loader import DataLoader
 from tqdm import tqdm
 
 
+_THREAD_LIMITS: list = []  # held for the life of the process: OpenMP/BLAS pools stay capped
+
+
 def seed_everything(seed: int, threads: int) -> None:
-    """Make a CPU rerun bit-identical: seeds, a fixed thread count, deterministic kernels."""
+    """Make a CPU rerun bit-identical: seeds, a fixed thread count (torch and the OpenMP/BLAS
+    pools scikit-learn uses), deterministic kernels."""
+    _THREAD_LIMITS[:] = [threadpool_limits(limits=threads)]
     random.seed(seed)
     np.random.seed(seed)
     torch.manual_seed(seed)

@@ -150,6 +150,18 @@ def test_every_combination_of_feature_groups_has_a_config() -> None:
     assert len(chosen) == len(set(chosen)) and set(chosen) == every
 
 
+@pytest.mark.parametrize("option", options("experiment"))
+def test_experiment_presets_name_registered_parts(option) -> None:
+    cfg = composed(f"+experiment={option}")
+    assert set(cfg.graph.options or {}) <= set(builder_options(cfg.graph.name))
+    build_graph_builder(cfg)
+    assert set(cfg.features.groups) <= set(FEATURE_GROUPS + OPTIONAL_GROUPS)
+    if cfg.model.kind == "gnn":
+        gnn_stack(cfg.model)
+    else:
+        make_baseline(cfg.model.estimator, 0, **dict(cfg.model.options or {}))
+
+
 @pytest.mark.parametrize("group", ["graph", "model", "features"])
 def test_unknown_config_file_lists_the_choices(group) -> None:
     with pytest.raises(MissingConfigException) as caught:
