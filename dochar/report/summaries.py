@@ -16,6 +16,7 @@ import numpy as np
 import pandas as pd
 from sklearn.metrics import confusion_matrix, f1_score
 
+from dochar.metrics.calibration import reliability_curve
 from dochar.results import PREDICTION_COLUMNS, RunBundle
 
 NEEDED_COLUMNS: tuple[str, ...] = ("doc_id", "page", "word_id", "text", "x0", "y0", "x1", "y1",
@@ -157,16 +158,12 @@ class Reliability:
 def reliability(bundle: RunBundle, bins: int = 10) -> Reliability:
     """Reliability curve of the top-class confidence (checked by check_bundle); empty bins
     are left out."""
-    confidence = bundle.predictions["confidence"].to_numpy(dtype=float)
     truth, predicted = truth_and_prediction(bundle)
-    correct = (truth == predicted).astype(float)
-    # Bin b holds (b/B, (b+1)/B]; confidence 0 joins the first bin.
-    which = np.searchsorted(np.linspace(0.0, 1.0, bins + 1)[1:-1], confidence, side="left")
-    counts = np.bincount(which, minlength=bins)
-    conf_sum = np.bincount(which, weights=confidence, minlength=bins)
-    hit_sum = np.bincount(which, weights=correct, minlength=bins)
-    used = counts > 0
-    return Reliability(conf_sum[used] / counts[used], hit_sum[used] / counts[used], counts[used])
+    curve = reliability_curve(bundle.predictions["confidence"].to_numpy(dtype=float),
+                              truth == predicted, n_bins=bins)
+    used = curve[curve["count"] > 0]
+    return Reliability(used["mean_confidence"].to_numpy(), used["accuracy"].to_numpy(),
+                       used["count"].to_numpy())
 
 
 def learning_curve(bundle: RunBundle, score: str) -> list[tuple[float, float]]:
