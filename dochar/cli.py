@@ -133,14 +133,23 @@ def _load(uri: str, experiment: str, run_ids: list[str] | None):
 def _compare(args: argparse.Namespace) -> int:
     from dochar.comparison import compare_runs, format_comparison
 
-    bundles = _load(args.tracking_uri, args.experiment, [args.run_a, args.run_b])
-    by_id = {b.run_id: b for b in bundles}
-    missing = [r for r in (args.run_a, args.run_b) if r not in by_id]
-    if missing:
-        raise SystemExit(f"dochar compare: run(s) {missing} not found in {args.experiment!r}")
-    result = compare_runs(by_id[args.run_a], by_id[args.run_b], score=args.score,
-                          method=args.method, resamples=args.resamples, seed=args.seed)
-    print(format_comparison(by_id[args.run_a], by_id[args.run_b], result, args.score))
+    bundles = _load(args.tracking_uri, args.experiment, None)
+
+    def find(prefix: str):
+        """A run id or its first characters, as the run tables print them."""
+        matches = [b for b in bundles if (b.run_id or "").startswith(prefix)]
+        if len(matches) != 1:
+            raise SystemExit(f"dochar compare: {prefix!r} matches {len(matches)} runs of "
+                             f"experiment {args.experiment!r}; give more of the run id")
+        return matches[0]
+
+    run_a, run_b = find(args.run_a), find(args.run_b)
+    try:
+        result = compare_runs(run_a, run_b, score=args.score, method=args.method,
+                              resamples=args.resamples, seed=args.seed)
+    except ValueError as error:
+        raise SystemExit(f"dochar compare: {error}") from None
+    print(format_comparison(run_a, run_b, result, args.score))
     return 0
 
 
@@ -178,8 +187,8 @@ def _parser() -> argparse.ArgumentParser:
         sub.add_argument("--score", default="macro_f1", help="metric to rank/compare by")
 
     compare = commands.add_parser("compare", help="paired comparison of two runs")
-    compare.add_argument("run_a")
-    compare.add_argument("run_b")
+    compare.add_argument("run_a", help="run id, or its first characters")
+    compare.add_argument("run_b", help="run id, or its first characters")
     compare.add_argument("--method", choices=["bootstrap", "randomisation"], default="bootstrap")
     compare.add_argument("--resamples", type=int, default=2000)
     compare.add_argument("--seed", type=int, default=0)

@@ -134,3 +134,22 @@ def test_funsd_run_logs_per_class_f1_for_gnn_and_forest(funsd_root, tmp_path):
     assert (children["metrics.split/train_documents"]
             + children["metrics.split/val_documents"] == 149).all()
     assert "per-class F1" in result.stdout
+
+
+def test_compare_prints_the_paired_difference_of_two_logged_runs(sweep):
+    from dochar.comparison import compare_runs
+
+    cwd, _ = sweep
+    runs = store_runs(cwd)
+    children = runs[runs["tags.mlflow.parentRunId"].notna()].sort_values("tags.model")
+    ids = children["run_id"].tolist()
+    uri = f"sqlite:///{cwd / 'mlflow.db'}"
+    result = dochar(cwd, "compare", ids[0][:12], ids[1][:12], "--experiment", "e2e",
+                    "--tracking-uri", uri)
+    # the same paired bootstrap computed directly on the two runs' saved folders
+    bundles = [RunBundle.load(summary.parent) for summary in
+               (cwd / "outputs" / "sweeps").glob("*/*/run/summary.json")]
+    by_id = {bundle.run_id: bundle for bundle in bundles}
+    expected = compare_runs(by_id[ids[0]], by_id[ids[1]])
+    assert f"A - B = {expected.difference:+.4f}" in result.stdout
+    assert f"[{expected.low:+.4f}, {expected.high:+.4f}]" in result.stdout
