@@ -14,9 +14,10 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from sklearn.metrics import confusion_matrix, f1_score
+from sklearn.metrics import confusion_matrix
 
 from dochar.metrics.calibration import reliability_curve
+from dochar.metrics.words import per_group_scores
 from dochar.results import PREDICTION_COLUMNS, RunBundle
 
 NEEDED_COLUMNS: tuple[str, ...] = ("doc_id", "page", "word_id", "text", "x0", "y0", "x1", "y1",
@@ -124,12 +125,8 @@ def layout_scores(bundles: Sequence[RunBundle], names: Sequence[str]) -> pd.Data
     for bundle, name in zip(bundles, names):
         frame = bundle.predictions
         layout = frame["layout_id"].fillna("").astype(str).str.strip().replace("", "(none)")
-        scores = {}
-        for layout_id, rows in frame.groupby(layout, sort=True):
-            truth = rows["label"].astype(str)
-            scores[layout_id] = f1_score(truth, rows["predicted"].astype(str), average="macro",
-                                         zero_division=0)
-        columns[name] = pd.Series(scores, dtype=float)
+        per_layout = per_group_scores(frame.assign(layout_id=layout), bundle.labels)
+        columns[name] = per_layout["macro_f1"].astype(float)
         if words is None:
             words = layout.value_counts()
     result = pd.DataFrame(columns)
