@@ -9,7 +9,6 @@ from __future__ import annotations
 import logging
 import time
 from collections.abc import Sequence
-from pathlib import Path
 from typing import Any
 
 import numpy as np

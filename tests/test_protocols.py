@@ -14,7 +14,6 @@ from sklearn.metrics import adjusted_rand_score
 
 import data_synth
 from dochar.aggregate import AggregateError, aggregate_runs, mean_std_text
-from dochar.document import iter_pages
 from dochar.experiment import split_documents
 from dochar.io.form_json import import_form_json
 from dochar.layout_families import LayoutFamilyError, assign_inferred_layouts

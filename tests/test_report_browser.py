@@ -30,7 +30,7 @@ def test_report_renders_cleanly_in_chromium(funsd_root, tmp_path):
     chromium = require_chromium()
     from playwright.sync_api import sync_playwright
 
-    from test_report import funsd_runs
+    from report_runs import funsd_runs
 
     runs = funsd_runs(funsd_root)
     path = write_report(runs, tmp_path / "report.html", title="FUNSD word labelling")
