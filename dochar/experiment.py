@@ -100,14 +100,12 @@ def fit_baseline(cfg: DictConfig, sets: dict[str, PageSet], featurizer: WordFeat
     estimator.fit(x_train, y_train)
     train_seconds = time.perf_counter() - started
     started = time.perf_counter()
-    probabilities = []
-    for page, edges in zip(sets["test"].pages, sets["test"].edges):
-        single = PageSet([page], [edges], sets["test"].relations)
-        seen = estimator.predict_proba(to_matrix(single, featurizer, **options))
-        full = np.zeros((len(page), len(labels)))
-        full[:, estimator.classes_] = seen  # classes absent from training keep probability 0
-        probabilities.append(full)
+    seen = estimator.predict_proba(to_matrix(sets["test"], featurizer, **options))
     infer_seconds = time.perf_counter() - started
+    full = np.zeros((len(seen), len(labels)))
+    full[:, estimator.classes_] = seen  # classes absent from training keep probability 0
+    sizes = np.cumsum([len(page) for page in sets["test"].pages])[:-1]
+    probabilities = np.split(full, sizes)
     cost = {"train_seconds": train_seconds, "parameters": float(_estimator_size(estimator)),
             "pages_per_second": len(sets["test"].pages) / max(infer_seconds, 1e-9)}
     return probabilities, cost, estimator
@@ -215,7 +213,7 @@ def run_experiment(cfg: DictConfig) -> tuple[RunBundle, Any]:
     predictions = prediction_frame(sets["test"].pages, probabilities, labels)
     scores = evaluate(predictions, labels, cfg.evaluation, seed=int(cfg.seed))
     metrics = scores.metrics
-    stats = graph_stats(sets["test"].pages, builder).to_dict()
+    stats = graph_stats(sets["test"].pages, builder, edges=sets["test"].edges).to_dict()
     metrics.update({f"graph/{k}": float(v) for k, v in stats.items()
                     if isinstance(v, (int, float)) and np.isfinite(v)})
     metrics.update({f"data/{k}": float(v) for k, v in data.notes.items()})

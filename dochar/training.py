@@ -49,11 +49,10 @@ def forward(model: torch.nn.Module, batch: Data) -> torch.Tensor:
     return model(batch.x, batch.edge_index, batch.edge_type, getattr(batch, "chars", None))
 
 
-@torch.no_grad()
 def predict_batch(model: torch.nn.Module, batch: Batch) -> torch.Tensor:
-    """Class probabilities of every word of a batch (eval mode: no dropout, running BN stats)."""
-    model.eval()
-    return torch.softmax(forward(model, batch), dim=-1)
+    """Class probabilities of every word of a batch (the stack's eval-mode prediction)."""
+    return model.predict_proba(batch.x, batch.edge_index, batch.edge_type,
+                               getattr(batch, "chars", None))
 
 
 def predict_proba(model: torch.nn.Module, graphs: Sequence[Data]) -> list[np.ndarray]:

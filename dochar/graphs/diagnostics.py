@@ -21,7 +21,7 @@ from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
 from dochar.document import Page
-from dochar.graphs.base import GraphBuilder
+from dochar.graphs.base import GraphBuilder, TypedEdges
 
 TABLE_LABELS: tuple[str, ...] = ("analyte", "method", "result", "unit", "limit", "verdict",
                                  "column_header")
@@ -97,7 +97,13 @@ def _reach(adjacency, pairs: tuple[np.ndarray, np.ndarray]) -> tuple[int, int]:
 
 
 def graph_stats(pages: Iterable[Page], builder: GraphBuilder,
-                table_labels: Sequence[str] = TABLE_LABELS) -> GraphStats:
+                table_labels: Sequence[str] = TABLE_LABELS, *,
+                edges: Sequence[TypedEdges] | None = None) -> GraphStats:
+    """Diagnostics of ``builder`` on ``pages``; pass ``edges`` (one per page, in order) when
+    the graphs are already built, so they are not built twice."""
+    pages = list(pages)
+    if edges is not None and len(edges) != len(pages):
+        raise ValueError(f"graph_stats: {len(edges)} edge sets for {len(pages)} pages")
     relations = tuple(builder.relations)
     stats = GraphStats(relations)
     counts = np.zeros(len(relations), dtype=np.int64)
@@ -107,15 +113,15 @@ def graph_stats(pages: Iterable[Page], builder: GraphBuilder,
     table_set = set(table_labels)
     row_tally = np.zeros(3, dtype=np.int64)       # pairs, within 1 hop, within 2 hops
     column_tally = np.zeros(3, dtype=np.int64)
-    for page in pages:
+    for index, page in enumerate(pages):
         n = len(page)
-        edges = builder(page)
-        edges.check_nodes(n, f"graph_stats, page {page.key}")
+        edges_of_page = builder(page) if edges is None else edges[index]
+        edges_of_page.check_nodes(n, f"graph_stats, page {page.key}")
         stats.pages += 1
         stats.nodes += n
-        stats.edges += edges.num_edges
-        counts += np.bincount(edges.edge_type, minlength=len(relations))
-        source, target = edges.edge_index
+        stats.edges += edges_of_page.num_edges
+        counts += np.bincount(edges_of_page.edge_type, minlength=len(relations))
+        source, target = edges_of_page.edge_index
         loop = source == target
         stats.self_loops += int(loop.sum())
         source, target = source[~loop], target[~loop]

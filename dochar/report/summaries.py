@@ -16,7 +16,7 @@ import numpy as np
 import pandas as pd
 from sklearn.metrics import confusion_matrix
 
-from dochar.metrics.calibration import reliability_curve
+from dochar.metrics.calibration import expected_calibration_error, reliability_curve
 from dochar.metrics.words import per_group_scores
 from dochar.results import PREDICTION_COLUMNS, RunBundle
 
@@ -142,25 +142,19 @@ class Reliability:
     confidence: np.ndarray
     accuracy: np.ndarray
     counts: np.ndarray
-
-    @property
-    def expected_calibration_error(self) -> float:
-        """ECE = sum_b (n_b / N) |acc_b - conf_b| (Guo et al., ICML 2017, eq. 3)."""
-        total = self.counts.sum()
-        if total == 0:
-            return float("nan")
-        return float(np.sum(self.counts / total * np.abs(self.accuracy - self.confidence)))
+    expected_calibration_error: float   # Guo et al., ICML 2017, eq. 3, on the same bins
 
 
 def reliability(bundle: RunBundle, bins: int = 10) -> Reliability:
     """Reliability curve of the top-class confidence (checked by check_bundle); empty bins
     are left out."""
     truth, predicted = truth_and_prediction(bundle)
-    curve = reliability_curve(bundle.predictions["confidence"].to_numpy(dtype=float),
-                              truth == predicted, n_bins=bins)
+    confidence = bundle.predictions["confidence"].to_numpy(dtype=float)
+    curve = reliability_curve(confidence, truth == predicted, n_bins=bins)
     used = curve[curve["count"] > 0]
     return Reliability(used["mean_confidence"].to_numpy(), used["accuracy"].to_numpy(),
-                       used["count"].to_numpy())
+                       used["count"].to_numpy(),
+                       expected_calibration_error(confidence, truth == predicted, n_bins=bins))
 
 
 def learning_curve(bundle: RunBundle, score: str) -> list[tuple[float, float]]:
