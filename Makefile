@@ -33,7 +33,7 @@ test-all: $(STAMP)
 	$(BIN)/python -m pytest -q
 
 bench: $(STAMP)
-	$(BIN)/python -m dochar.bench
+	$(BIN)/python -m benchmarks.run
 
 gate: $(STAMP)
 	$(BIN)/dochar gate

@@ -13,10 +13,10 @@ from pathlib import Path
 import pandas as pd
 from tqdm import tqdm
 
-from dochar.document import write_word_table
 from data_synth.generator import iter_documents
 from data_synth.layouts import LAYOUT_IDS
 from data_synth.noise import NoiseConfig
+from dochar.data.word_table import write_word_table
 
 
 def _parser() -> argparse.ArgumentParser:

@@ -12,10 +12,20 @@ from dataclasses import dataclass
 import numpy as np
 
 from data_synth.layouts import Layout
-from data_synth.vocabulary import (CLIENT_PATTERNS, DOMAINS, FOOTNOTES, GIVEN_NAMES,
-                                   LAB_PATTERNS, LOQ_NOTE, POSITIONS, STREET_KINDS,
-                                   UNACCREDITED_NOTE, Analyte,
-                                   coin, pick)
+from data_synth.vocabulary import (
+    CLIENT_PATTERNS,
+    DOMAINS,
+    FOOTNOTES,
+    GIVEN_NAMES,
+    LAB_PATTERNS,
+    LOQ_NOTE,
+    POSITIONS,
+    STREET_KINDS,
+    UNACCREDITED_NOTE,
+    Analyte,
+    coin,
+    pick,
+)
 
 _MONTHS = ("January", "February", "March", "April", "May", "June", "July", "August",
            "September", "October", "November", "December")

@@ -16,8 +16,8 @@ import os
 import sys
 from pathlib import Path
 
-CONFIG_DIR = Path(os.environ.get("DOCHAR_CONFIG_DIR", Path(__file__).resolve().parents[1] /
-                                 "configs")).resolve()
+from dochar.config import CONFIG_DIR
+
 log = logging.getLogger("dochar")
 _SUBCOMMAND = ["run"]  # the Hydra-driven subcommand being run, for the recorded command line
 
@@ -33,9 +33,9 @@ def _finish(cfg, bundle, model) -> float:
     """Write the run folder, log it, print its line: the same for every kind of job."""
     from hydra.core.hydra_config import HydraConfig
 
-    from dochar.run_files import write_run_files
-    from dochar.summary import console, ranking_table
-    from dochar.tracking import log_run, resolve_uri
+    from dochar.report.run_folder import write_run_files
+    from dochar.runs.console import console, ranking_table
+    from dochar.runs.tracking import log_run, resolve_uri
 
     hydra_cfg = HydraConfig.get()
     bundle.command = " ".join(["dochar", _SUBCOMMAND[0], *hydra_cfg.overrides.task])
@@ -59,7 +59,7 @@ def _run_job(cfg) -> float:
 
 def _curve_job(cfg) -> float:
     """Learning curve of one system; logged as its full-data run plus curve/<n>/<score>."""
-    from dochar.learning_curve import curve_metrics, run_learning_curve
+    from dochar.curve import curve_metrics, run_learning_curve
 
     full: list = []
 
@@ -79,13 +79,13 @@ def _curve_job(cfg) -> float:
 
 
 def _graph_stats_job(cfg) -> None:
-    from dochar.document import iter_pages
-    from dochar.experiment import build_graph_builder
+    from dochar import graphs
+    from dochar.data.sources import load_data
+    from dochar.data.word_table import iter_pages
     from dochar.graphs.diagnostics import format_stats, graph_stats
-    from dochar.sources import load_data
 
     data = load_data(cfg.data, strict=bool(cfg.strict))
-    builder = build_graph_builder(cfg)
+    builder = graphs.from_config(cfg.graph)
     stats = graph_stats(list(iter_pages(data.table)), builder)
     print(f"graph builder {cfg.graph.name} on {cfg.data.name}:")
     print(format_stats(stats))
@@ -131,7 +131,7 @@ def _load(uri: str, experiment: str, run_ids: list[str] | None):
 
 
 def _compare(args: argparse.Namespace) -> int:
-    from dochar.comparison import compare_runs, format_comparison
+    from dochar.runs.compare import compare_runs, format_comparison
 
     bundles = _load(args.tracking_uri, args.experiment, None)
 
@@ -172,7 +172,7 @@ def _report(args: argparse.Namespace) -> int:
 
 
 def _parser() -> argparse.ArgumentParser:
-    from dochar.tracking import resolve_uri
+    from dochar.runs.tracking import resolve_uri
 
     parser = argparse.ArgumentParser(prog="dochar", description=__doc__,
                                      formatter_class=argparse.RawDescriptionHelpFormatter)
@@ -211,7 +211,7 @@ def main(argv: list[str] | None = None) -> int:
     if argv and argv[0] == "graph-stats":
         return _hydra_command(_graph_stats_job, argv)
     if argv and argv[0] == "gate":
-        from dochar.gate import main as gate_main
+        from dochar.gate.command import main as gate_main
 
         return gate_main(argv[1:])
     args = _parser().parse_args(argv)

@@ -26,15 +26,16 @@ from hydra import compose, initialize_config_dir
 from omegaconf import DictConfig, OmegaConf, open_dict
 from threadpoolctl import threadpool_limits
 
-from conftest import REPO, require_dataset
-from dochar.dataset import PageSet, to_graphs
-from dochar.document import iter_pages
-from dochar.experiment import build_graph_builder, run_experiment, split_documents
+from dochar import graphs
+from dochar.data.sources import load_data
+from dochar.data.word_table import iter_pages
+from dochar.experiment import run_experiment
 from dochar.features import FEATURE_GROUPS, WordFeaturizer
 from dochar.features.text_embedding import embedding_available
 from dochar.models.gnn import GNNStack, count_parameters
-from dochar.results import PROBABILITY_PREFIX
-from dochar.sources import load_data
+from dochar.models.inputs import PageSet, to_graphs
+from dochar.runs.bundle import PROBABILITY_PREFIX
+from tests.helpers import REPO, require_dataset, split_documents
 
 CONFIGS = REPO / "configs"
 pytestmark = pytest.mark.filterwarnings("ignore:WordFeaturizer. lexicon columns:UserWarning")
@@ -168,7 +169,7 @@ def check_run(cfg: DictConfig, bundle, model) -> None:
     np.testing.assert_array_equal(predictions["predicted"].to_numpy(),
                                   np.asarray(labels)[proba.argmax(axis=1)])
 
-    builder = build_graph_builder(cfg)
+    builder = graphs.from_config(cfg.graph)
     relations = len(builder.relations)
     assert bundle.tags["graph_builder"] == cfg.graph.name
     assert metrics["graph/nodes"] == len(predictions)   # diagnostics cover the test pages
@@ -219,7 +220,7 @@ def test_typed_self_loops_and_reverse_edges_reach_the_model(dataset, request) ->
         cfg = make_config("sector", model, "geometry_text", extra)
         bundle, fitted = run_experiment(cfg)
         # 4 directions, their 4 mirrors, and 'self' (dochar.graphs.edge_options)
-        assert len(build_graph_builder(cfg).relations) == 9
+        assert len(graphs.from_config(cfg.graph).relations) == 9
         assert {"self", "above_rev"} <= set(bundle.edges["relation"])
         check_run(cfg, bundle, fitted)
 
@@ -228,7 +229,7 @@ def _test_graphs(cfg: DictConfig):
     data = load_data(cfg.data)
     test_docs = set(split_documents(data.table, cfg).test)
     pages = [p for p in iter_pages(data.table) if p.doc_id in test_docs]
-    page_set = PageSet.build(pages, build_graph_builder(cfg))
+    page_set = PageSet.build(pages, graphs.from_config(cfg.graph))
     featurizer = WordFeaturizer(groups=list(cfg.features.groups),
                                 lexicons=OmegaConf.to_container(cfg.data.lexicons),
                                 max_chars=int(cfg.features.max_chars)).fit(pages)

@@ -21,14 +21,19 @@ from hydra import compose, initialize_config_dir
 from hydra.errors import MissingConfigException
 from omegaconf import DictConfig, OmegaConf
 
-from conftest import REPO
-from dochar.experiment import build_graph_builder
-from dochar.features import FEATURE_GROUPS, OPTIONAL_GROUPS, CharCNNEncoder, WordFeaturizer
+from dochar import graphs
+from dochar.features import (
+    FEATURE_GROUPS,
+    OPTIONAL_GROUPS,
+    CharCNNEncoder,
+    WordFeaturizer,
+)
 from dochar.features.text_embedding import embedding_available
 from dochar.graphs import BUILDERS, GraphBuilderError, builder_options
 from dochar.models.baselines import BASELINES, make_baseline
 from dochar.models.gnn import NORMS, GNNStack
 from dochar.models.layers import LAYERS, layer_options
+from tests.helpers import REPO
 
 CONFIGS = REPO / "configs"
 GROUPS = ("data", "graph", "features", "model", "split", "train")
@@ -75,7 +80,7 @@ def test_graph_config_names_a_registered_builder(option) -> None:
     assert graph.name in BUILDERS, f"configs/graph/{option}.yaml: name {graph.name!r}"
     assert mirrors(option, graph.name)
     assert set(graph.options or {}) <= set(builder_options(graph.name))
-    builder = build_graph_builder(composed(f"graph={option}"))   # options accepted as given
+    builder = graphs.from_config(composed(f"graph={option}").graph)   # options accepted as given
     assert builder.relations and len(set(builder.relations)) == len(builder.relations)
 
 
@@ -86,9 +91,9 @@ def test_every_registered_builder_has_its_config() -> None:
 def test_graph_options_combine_into_typed_relations() -> None:
     """reverse_edges adds '<r>_rev' per base relation, self_loops one 'self' (edge_options)."""
     for option in options("graph"):
-        base = build_graph_builder(composed(f"graph={option}")).relations
-        both = build_graph_builder(composed(f"graph={option}", "graph.reverse_edges=true",
-                                            "graph.self_loops=true")).relations
+        base = graphs.from_config(composed(f"graph={option}").graph).relations
+        both = graphs.from_config(composed(f"graph={option}", "graph.reverse_edges=true",
+                                            "graph.self_loops=true").graph).relations
         assert both == (*base, *(f"{r}_rev" for r in base), "self")
 
 
@@ -154,7 +159,7 @@ def test_every_combination_of_feature_groups_has_a_config() -> None:
 def test_experiment_presets_name_registered_parts(option) -> None:
     cfg = composed(f"+experiment={option}")
     assert set(cfg.graph.options or {}) <= set(builder_options(cfg.graph.name))
-    build_graph_builder(cfg)
+    graphs.from_config(cfg.graph)
     assert set(cfg.features.groups) <= set(FEATURE_GROUPS + OPTIONAL_GROUPS)
     if cfg.model.kind == "gnn":
         gnn_stack(cfg.model)
@@ -172,9 +177,9 @@ def test_unknown_config_file_lists_the_choices(group) -> None:
 
 def test_unknown_names_inside_a_config_fail_with_the_valid_names() -> None:
     with pytest.raises(GraphBuilderError, match=r"unknown graph builder 'hexagon'.*'sector'"):
-        build_graph_builder(composed("graph.name=hexagon"))
+        graphs.from_config(composed("graph.name=hexagon").graph)
     with pytest.raises(GraphBuilderError, match=r"unknown option\(s\) \['radius'\]"):
-        build_graph_builder(composed("+graph.options.radius=3"))
+        graphs.from_config(composed("+graph.options.radius=3").graph)
     with pytest.raises(ValueError, match=r"unknown layer 'chebyshev'.*'relational'"):
         gnn_stack(composed("model.layer=chebyshev").model)
     with pytest.raises(ValueError, match=r"has no option\(s\) \['temperature'\]"):

@@ -16,16 +16,15 @@ import os
 import subprocess
 import sys
 from functools import lru_cache
-from pathlib import Path
 
 import numpy as np
 import pytest
 import torch
 
-from dochar.gate import run_reference
-from dochar.results import RunBundle
+from dochar.gate.command import run_reference
+from dochar.runs.bundle import RunBundle
+from tests.helpers import REPO
 
-REPO = Path(__file__).resolve().parents[1]
 COMMON = ["data.documents=24", "split=random", "train.max_epochs=3", "train.patience=3",
           "train.threads=1", "train.progress=false", "tracking.enabled=false",
           "evaluation.bootstrap_resamples=100"]
@@ -75,7 +74,7 @@ def test_another_seed_gives_other_scores():
 _CHILD = """
 import hashlib, json, sys
 import numpy as np
-from dochar.gate import run_reference
+from dochar.gate.command import run_reference
 bundle = run_reference(json.loads(sys.argv[1]))
 probabilities = np.ascontiguousarray(bundle.probabilities().to_numpy())
 print(json.dumps({"metrics": bundle.metrics,

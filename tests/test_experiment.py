@@ -11,7 +11,7 @@ import mlflow
 import pandas as pd
 import pytest
 
-from dochar.results import RunBundle
+from dochar.runs.bundle import RunBundle
 
 TINY = ["data.documents=30", "train.max_epochs=3", "evaluation.bootstrap_resamples=50",
         "++model.hidden_dim=16", "train.progress=false", "tracking.experiment=e2e"]
@@ -137,7 +137,7 @@ def test_funsd_run_logs_per_class_f1_for_gnn_and_forest(funsd_root, tmp_path):
 
 
 def test_compare_prints_the_paired_difference_of_two_logged_runs(sweep):
-    from dochar.comparison import compare_runs
+    from dochar.runs.compare import compare_runs
 
     cwd, _ = sweep
     runs = store_runs(cwd)

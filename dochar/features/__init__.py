@@ -8,7 +8,12 @@ from __future__ import annotations
 
 from typing import TYPE_CHECKING
 
-from dochar.features.chars import CHAR_VOCAB, CHAR_VOCAB_SIZE, char_ids, char_ngram_hashes
+from dochar.features.chars import (
+    CHAR_VOCAB,
+    CHAR_VOCAB_SIZE,
+    char_ids,
+    char_ngram_hashes,
+)
 from dochar.features.featurizer import FEATURE_GROUPS, OPTIONAL_GROUPS, WordFeaturizer
 from dochar.features.geometry import GEOMETRY_NAMES
 from dochar.features.lexicons import DEFAULT_LEXICONS

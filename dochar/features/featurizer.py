@@ -15,7 +15,7 @@ from collections.abc import Mapping, Sequence
 
 import numpy as np
 
-from dochar.document import Page
+from dochar.data.word_table import Page
 from dochar.features.chars import char_ids
 from dochar.features.geometry import GEOMETRY_NAMES, geometry_features
 from dochar.features.lexicons import compile_lexicons, lexicon_features
@@ -78,6 +78,15 @@ class WordFeaturizer:
         self.mean_: np.ndarray | None = None
         self.scale_: np.ndarray | None = None
         self.fitted_ = False
+
+    @classmethod
+    def from_config(cls, features_cfg: Mapping, data_cfg: Mapping) -> WordFeaturizer:
+        """The featurizer a ``features`` section asks for, with the data's word lists."""
+        groups = list(features_cfg["groups"])
+        lexicons = data_cfg.get("lexicons") if "text_flags" in groups else None
+        return cls(groups=groups, lexicons=None if lexicons is None else
+                   {name: list(words) for name, words in dict(lexicons).items()},
+                   max_chars=int(features_cfg["max_chars"]))
 
     @property
     def feature_names(self) -> list[str]:

@@ -15,7 +15,7 @@ from __future__ import annotations
 import numpy as np
 from scipy.stats import rankdata
 
-from dochar.document import Page
+from dochar.data.word_table import Page
 
 GEOMETRY_NAMES: tuple[str, ...] = (
     "x0", "y0", "x1", "y1",            # box corners / page size

@@ -7,6 +7,8 @@ name up and applies the options every builder accepts (see :mod:`dochar.graphs.e
 from __future__ import annotations
 
 import dataclasses
+from collections.abc import Mapping
+from typing import Any
 
 from dochar.graphs.base import GraphBuilder, GraphBuilderError, TypedEdges
 from dochar.graphs.delaunay import DelaunayBuilder
@@ -23,6 +25,7 @@ BUILDERS: dict[str, type] = {
     "line_of_sight": LineOfSightBuilder,
     "reading_order": ReadingOrderBuilder,
 }
+_SWITCHES = ("self_loops", "reverse_edges", "prune_gutters")  # edge options set beside `options`
 
 
 def builder_options(name: str) -> tuple[str, ...]:
@@ -45,5 +48,11 @@ def make_graph_builder(name: str, **options) -> GraphBuilder:
     return OptionedBuilder(base, extra) if extra.active else base
 
 
+def from_config(graph_cfg: Mapping[str, Any]) -> GraphBuilder:
+    """The builder a ``graph`` config section describes (``name``, ``options``, edge options)."""
+    return make_graph_builder(str(graph_cfg["name"]), **dict(graph_cfg.get("options") or {}),
+                              **{key: bool(graph_cfg.get(key, False)) for key in _SWITCHES})
+
+
 __all__ = ["BUILDERS", "GraphBuilder", "GraphBuilderError", "TypedEdges", "builder_options",
-           "make_graph_builder"]
+           "from_config", "make_graph_builder"]

@@ -17,13 +17,14 @@ from typing import Protocol, runtime_checkable
 
 import numpy as np
 
-from dochar.document import Page
+from dochar.data.word_table import Page
+from dochar.errors import DocharError
 
 DIRECTIONS: tuple[str, ...] = ("above", "below", "left", "right")
 ABOVE, BELOW, LEFT, RIGHT = range(4)
 
 
-class GraphBuilderError(ValueError):
+class GraphBuilderError(DocharError):
     """A builder asked for with bad options, or handed a page it cannot use."""
 
 

@@ -21,8 +21,14 @@ from typing import ClassVar
 import numpy as np
 from scipy.spatial import Delaunay, QhullError
 
-from dochar.document import Page
-from dochar.graphs.base import DIRECTIONS, TypedEdges, direction_codes, make_edges, no_edges
+from dochar.data.word_table import Page
+from dochar.graphs.base import (
+    DIRECTIONS,
+    TypedEdges,
+    direction_codes,
+    make_edges,
+    no_edges,
+)
 from dochar.graphs.geometry import PageGeometry, page_geometry
 
 

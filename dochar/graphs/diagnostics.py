@@ -20,7 +20,7 @@ import pandas as pd
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
-from dochar.document import Page
+from dochar.data.word_table import Page
 from dochar.graphs.base import GraphBuilder, TypedEdges
 
 TABLE_LABELS: tuple[str, ...] = ("analyte", "method", "result", "unit", "limit", "verdict",

@@ -11,7 +11,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from dochar.document import Page
+from dochar.data.word_table import Page
 from dochar.graphs.base import GraphBuilder, GraphBuilderError, TypedEdges, make_edges
 from dochar.graphs.geometry import page_geometry
 from dochar.graphs.gutters import crossing, find_gutters

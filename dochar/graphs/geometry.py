@@ -12,7 +12,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from dochar.document import Page
+from dochar.data.word_table import Page
 from dochar.graphs.base import GraphBuilderError
 
 PAIR_BUDGET = 2_000_000  # target x source cells held at once when ranking neighbours

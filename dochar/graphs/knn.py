@@ -14,9 +14,15 @@ from typing import ClassVar
 
 import numpy as np
 
-from dochar.document import Page
-from dochar.graphs.base import (DIRECTIONS, GraphBuilderError, TypedEdges, direction_codes,
-                                make_edges, no_edges)
+from dochar.data.word_table import Page
+from dochar.graphs.base import (
+    DIRECTIONS,
+    GraphBuilderError,
+    TypedEdges,
+    direction_codes,
+    make_edges,
+    no_edges,
+)
 from dochar.graphs.geometry import page_geometry, row_blocks
 
 

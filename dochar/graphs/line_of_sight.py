@@ -24,9 +24,18 @@ from typing import ClassVar
 
 import numpy as np
 
-from dochar.document import Page
-from dochar.graphs.base import (ABOVE, BELOW, DIRECTIONS, LEFT, RIGHT, TypedEdges,
-                                direction_codes, make_edges, no_edges)
+from dochar.data.word_table import Page
+from dochar.graphs.base import (
+    ABOVE,
+    BELOW,
+    DIRECTIONS,
+    LEFT,
+    RIGHT,
+    TypedEdges,
+    direction_codes,
+    make_edges,
+    no_edges,
+)
 from dochar.graphs.geometry import page_geometry
 
 

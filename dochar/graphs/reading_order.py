@@ -19,7 +19,7 @@ import numpy as np
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
-from dochar.document import Page
+from dochar.data.word_table import Page
 from dochar.graphs.base import TypedEdges, make_edges, no_edges
 from dochar.graphs.geometry import PageGeometry, page_geometry, row_blocks
 

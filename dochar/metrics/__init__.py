@@ -5,14 +5,30 @@ calibration); every function here reads only those columns it names.
 """
 
 from dochar.metrics.calibration import expected_calibration_error, reliability_curve
-from dochar.metrics.entities import (EntityScores, entity_scores, line_order, reading_order,
-                                     to_bio)
-from dochar.metrics.intervals import (PairedResult, bootstrap_interval, bootstrap_scores,
-                                      paired_comparison)
+from dochar.metrics.entities import (
+                                     EntityScores,
+                                     entity_scores,
+                                     line_order,
+                                     reading_order,
+                                     to_bio,
+)
+from dochar.metrics.intervals import (
+                                     PairedResult,
+                                     bootstrap_interval,
+                                     bootstrap_scores,
+                                     paired_comparison,
+)
 from dochar.metrics.scorers import AdditiveScore, ColumnMean, EntityF1, WordF1
-from dochar.metrics.words import (MetricInputError, WordScores, f1_from_confusion,
-                                  grouped_confusion, macro_f1_from_confusion,
-                                  micro_f1_from_confusion, per_group_scores, score_words)
+from dochar.metrics.words import (
+                                     MetricInputError,
+                                     WordScores,
+                                     f1_from_confusion,
+                                     grouped_confusion,
+                                     macro_f1_from_confusion,
+                                     micro_f1_from_confusion,
+                                     per_group_scores,
+                                     score_words,
+)
 
 __all__ = [
     "AdditiveScore", "ColumnMean", "EntityF1", "EntityScores", "MetricInputError",

@@ -15,8 +15,13 @@ import numpy as np
 import pandas as pd
 
 from dochar.metrics.entities import entity_tables
-from dochar.metrics.words import (MacroOver, MetricInputError, grouped_confusion,
-                                  macro_f1_from_confusion, micro_f1_from_confusion)
+from dochar.metrics.words import (
+    MacroOver,
+    MetricInputError,
+    grouped_confusion,
+    macro_f1_from_confusion,
+    micro_f1_from_confusion,
+)
 
 
 @runtime_checkable

@@ -15,10 +15,12 @@ import numpy as np
 import pandas as pd
 from sklearn.metrics import confusion_matrix, precision_recall_fscore_support
 
+from dochar.errors import DocharError
+
 MacroOver = Literal["present", "all"]
 
 
-class MetricInputError(ValueError):
+class MetricInputError(DocharError):
     """Raised for scoring input that cannot be scored as given (says what and where)."""
 
 

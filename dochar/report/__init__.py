@@ -15,12 +15,32 @@ import yaml
 from dochar.report import plots
 from dochar.report.leaderboard import default_paired, leaderboard, resolve_reference
 from dochar.report.overlay import OVERLAY_STYLE, class_style, overlays
-from dochar.report.page import (Html, details, document, image, note, number, paragraph,
-                                preformatted, section, table)
-from dochar.report.summaries import (ReportInputError, check_bundle, class_order,
-                                     confusion_rows, display_names, has_layouts, layout_scores,
-                                     learning_curve, metric, ranking, reliability)
-from dochar.results import RunBundle
+from dochar.report.page import (
+    Html,
+    details,
+    document,
+    image,
+    note,
+    number,
+    paragraph,
+    preformatted,
+    section,
+    table,
+)
+from dochar.report.summaries import (
+    ReportInputError,
+    check_bundle,
+    class_order,
+    confusion_rows,
+    display_names,
+    has_layouts,
+    layout_scores,
+    learning_curve,
+    metric,
+    ranking,
+    reliability,
+)
+from dochar.runs.bundle import RunBundle
 
 __all__ = ["write_report", "ReportInputError"]
 

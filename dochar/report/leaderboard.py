@@ -7,7 +7,7 @@ from typing import Any
 
 from dochar.report.page import Html, amount, count, interval, note, number, table
 from dochar.report.summaries import ReportInputError, class_order, metric
-from dochar.results import RunBundle
+from dochar.runs.bundle import RunBundle
 
 PairedFn = Callable[[Any, Any], Any]
 REFERENCE_MODEL = "random_forest"

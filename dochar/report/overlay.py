@@ -13,7 +13,7 @@ import pandas as pd
 from matplotlib import colormaps
 
 from dochar.report.page import Html, esc, note, number, table
-from dochar.results import RunBundle
+from dochar.runs.bundle import RunBundle
 
 SVG_WIDTH = 520
 ERROR_ROWS = 40

@@ -1,6 +1,6 @@
 """Runs for the report read back from an MLflow tracking store.
 
-A run folder (see :mod:`dochar.results`) is logged as the run's artifacts, so reading a run is
+A run folder (see :mod:`dochar.runs.bundle`) is logged as the run's artifacts, so reading a run is
 downloading its artifacts and loading them like a folder on disk.
 """
 
@@ -11,7 +11,7 @@ from collections.abc import Sequence
 from pathlib import Path
 
 from dochar.report.summaries import ReportInputError
-from dochar.results import RunBundle
+from dochar.runs.bundle import RunBundle
 
 SUMMARY = "summary.json"
 FINISHED = "FINISHED"

@@ -16,16 +16,17 @@ import numpy as np
 import pandas as pd
 from sklearn.metrics import confusion_matrix
 
+from dochar.errors import DocharError
 from dochar.metrics.calibration import expected_calibration_error, reliability_curve
 from dochar.metrics.words import per_group_scores
-from dochar.results import PREDICTION_COLUMNS, RunBundle
+from dochar.runs.bundle import PREDICTION_COLUMNS, RunBundle
 
 NEEDED_COLUMNS: tuple[str, ...] = ("doc_id", "page", "word_id", "text", "x0", "y0", "x1", "y1",
                                    "page_width", "page_height", "label", "predicted",
                                    "confidence")
 
 
-class ReportInputError(ValueError):
+class ReportInputError(DocharError):
     """A run that cannot be reported as given (names the run and what is wrong)."""
 
 

@@ -1,0 +1,134 @@
+"""Learning curves: test score against the number of training documents.
+
+Every point is a full run of the same composed config with ``split.train_documents`` set, so
+validation and test documents stay fixed along the curve and only the training part shrinks
+(a seeded subset, drawn in :func:`dochar.experiment.split_documents`). The full training part
+(``None``, "all") runs first: it fixes the pool size, so a size the pool cannot supply is
+refused before any more training time is spent.
+"""
+
+from __future__ import annotations
+
+import copy
+import logging
+from collections.abc import Callable, Sequence
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from omegaconf import DictConfig, OmegaConf
+
+from dochar.errors import DocharError
+from dochar.runs.bundle import RunBundle
+
+log = logging.getLogger(__name__)
+CURVE_SCORES: tuple[str, ...] = ("macro_f1", "micro_f1", "entity_f1")
+RunHook = Callable[[RunBundle, Any, DictConfig], None]
+
+
+class LearningCurveError(DocharError):
+    """Raised when curve sizes are invalid or a curve table cannot be turned into metrics."""
+
+
+def _check_sizes(sizes: Sequence[int | None]) -> list[int | None]:
+    if not sizes:
+        raise LearningCurveError("no learning-curve sizes given")
+    checked: list[int | None] = []
+    for size in sizes:
+        if size is not None and (isinstance(size, bool) or not isinstance(size, (int, np.integer))
+                                 or size < 1):
+            raise LearningCurveError(f"learning-curve size {size!r}: use a positive number of "
+                                     f"documents, or None for the whole training part")
+        checked.append(None if size is None else int(size))
+    repeated = sorted({s for s in checked if checked.count(s) > 1}, key=str)
+    if repeated:
+        raise LearningCurveError(f"learning-curve size(s) {repeated} given more than once")
+    return checked
+
+
+def _point_config(cfg: DictConfig, size: int | None, seed: int) -> DictConfig:
+    point = copy.deepcopy(cfg)
+    OmegaConf.update(point, "split.train_documents", size, force_add=True)
+    OmegaConf.update(point, "seed", seed, force_add=True)
+    return point
+
+
+def _row(bundle: RunBundle, size: int | None, seed: int) -> dict[str, Any]:
+    metrics = bundle.metrics
+    row: dict[str, Any] = {"system": bundle.name,
+                           "model_kind": bundle.tags.get("model_kind", ""), "seed": seed,
+                           "requested_documents": "all" if size is None else str(size),
+                           "n_train_documents": int(metrics["split/train_documents"])}
+    for score in CURVE_SCORES:
+        for suffix in ("", "_low", "_high"):
+            row[score + suffix] = float(metrics.get(score + suffix, np.nan))
+    row["train_seconds"] = float(bundle.cost.get("train_seconds", np.nan))
+    return row
+
+
+def run_learning_curve(cfg: DictConfig, sizes: Sequence[int | None], *,
+                       seeds: Sequence[int] | None = None, on_run: RunHook | None = None
+                       ) -> pd.DataFrame:
+    """One row per (size, seed): system, n_train_documents, scores with their intervals.
+
+    ``sizes`` are training-document counts, ``None`` for the whole training part; ``seeds``
+    default to ``cfg.seed``. ``on_run(bundle, model, point_cfg)`` is called after each run,
+    e.g. to log it; the bundle carries tag ``train_documents``.
+    """
+    from dochar.experiment import run_experiment
+
+    checked = _check_sizes(sizes)
+    seeds = [int(cfg.seed)] if seeds is None else [int(s) for s in seeds]
+    if not seeds:
+        raise LearningCurveError("no seeds given")
+    order = sorted(checked, key=lambda s: -np.inf if s is None else -s)   # all, then largest
+    rows: list[dict[str, Any]] = []
+    for seed in seeds:
+        pool: int | None = None
+        for size in order:
+            if pool is not None and size is not None and size > pool:
+                raise LearningCurveError(
+                    f"learning-curve size {size}: the training part holds only {pool} "
+                    f"documents (seed {seed}); choose sizes up to {pool}")
+            point = _point_config(cfg, size, seed)
+            log.info("learning curve: %s training documents, seed %d",
+                     "all" if size is None else size, seed)
+            bundle, model = run_experiment(point)
+            bundle.tags["train_documents"] = str(int(bundle.metrics["split/train_documents"]))
+            if size is None:
+                pool = int(bundle.metrics["split/train_documents"])
+            rows.append(_row(bundle, size, seed))
+            if on_run is not None:
+                on_run(bundle, model, point)
+    frame = pd.DataFrame(rows)
+    return frame.sort_values(["system", "seed", "n_train_documents"],
+                             kind="stable").reset_index(drop=True)
+
+
+def curve_metrics(frame: pd.DataFrame, system: str | None = None) -> dict[str, float]:
+    """``curve/<n_docs>/<score>`` (mean over seeds) for one system's curve, as the report reads
+    them; with one run per size, also ``curve/<n_docs>/<score>_low`` and ``_high``."""
+    needed = {"system", "n_train_documents", *CURVE_SCORES}
+    missing = sorted(needed - set(frame.columns))
+    if missing:
+        raise LearningCurveError(f"curve table has no column(s) {missing}")
+    systems = sorted(frame["system"].unique())
+    if system is None:
+        if len(systems) != 1:
+            raise LearningCurveError(f"curve table holds {len(systems)} systems {systems}; "
+                                     f"name one")
+        system = systems[0]
+    elif system not in systems:
+        raise LearningCurveError(f"system {system!r} not in the curve table (has {systems})")
+    own = frame[frame["system"] == system]
+    metrics: dict[str, float] = {}
+    for n_docs, runs in own.groupby("n_train_documents", sort=True):
+        for score in CURVE_SCORES:
+            values = runs[score].astype(float)
+            if values.notna().any():
+                metrics[f"curve/{int(n_docs)}/{score}"] = float(values.mean())
+            for suffix in ("_low", "_high"):
+                column = score + suffix
+                if len(runs) == 1 and column in runs and np.isfinite(runs[column].iloc[0]):
+                    metrics[f"curve/{int(n_docs)}/{column}"] = float(runs[column].iloc[0])
+    return metrics

@@ -1,0 +1,1 @@
+"""Importers: each converts one source format into the word table (dochar.data.word_table)."""

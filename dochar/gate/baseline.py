@@ -1,0 +1,176 @@
+"""The committed baseline: what the reference experiment scored, and under which conditions.
+
+One YAML file per gate (``reports/baseline/<name>.yaml``) with sorted keys and one metric per
+block, so a baseline update reads as a small diff in review. Values are written at full float
+precision: a rerun on the same machine reproduces them bit for bit.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import yaml
+
+from dochar import __version__
+from dochar.gate.rules import CLASS_PREFIX, GateConfigError, Score
+from dochar.metrics.intervals import bootstrap_scores
+from dochar.metrics.scorers import WordF1
+from dochar.metrics.words import f1_from_confusion
+from dochar.runs.bundle import RunBundle
+
+FORMAT = 1
+HEADER = ("# dochar gate baseline: written by `dochar gate --update`, read by `dochar gate`.\n"
+          "# Review changes to this file like code: each one moves the bar a model must clear.\n")
+# Config keys that say how a run was watched, not what it computed.
+_VOLATILE = ("tracking.", "train.progress", "run_name", "hydra.")
+
+
+class ClassF1(WordF1):
+    """Every class's word F1 at once from confusion counts (shape (..., L)), for resampling."""
+
+    def from_counts(self, counts):
+        return f1_from_confusion(counts)
+
+
+def class_intervals(bundle: RunBundle, *, resamples: int, confidence: float,
+                    seed: int) -> dict[str, tuple[float, float]]:
+    """Percentile bootstrap over test documents of each class's F1 (as the headline intervals)."""
+    scores = bootstrap_scores(bundle.predictions, ClassF1(bundle.labels), n_resamples=resamples,
+                              seed=seed)
+    tail = 100 * (1 - confidence) / 2
+    low, high = np.percentile(scores, [tail, 100 - tail], axis=0)
+    return {label: (float(lo), float(hi)) for label, lo, hi in zip(bundle.labels, low, high)}
+
+
+def run_scores(bundle: RunBundle) -> dict[str, Score]:
+    """The gated scores of a run: headline values with their intervals, and every class with
+    test support, with a per-class interval drawn the way the run drew its headline ones."""
+    metrics = bundle.metrics
+    scores = {name: Score(metrics[name], metrics.get(f"{name}_low"), metrics.get(f"{name}_high"))
+              for name in ("macro_f1", "entity_f1") if name in metrics}
+    evaluation = bundle.config.get("evaluation", {})
+    intervals = class_intervals(bundle, resamples=int(evaluation.get("bootstrap_resamples", 1000)),
+                                confidence=float(evaluation.get("confidence", 0.95)),
+                                seed=int(bundle.config.get("seed", 0)))
+    for label in bundle.labels:
+        support = metrics.get(f"support/{label}", 0.0)
+        if f"{CLASS_PREFIX}{label}" in metrics and support > 0:
+            low, high = intervals[label]
+            scores[f"{CLASS_PREFIX}{label}"] = Score(metrics[f"{CLASS_PREFIX}{label}"], low, high,
+                                                     support)
+    return scores
+
+
+def flat_config(config: Mapping[str, Any], prefix: str = "") -> dict[str, Any]:
+    """Dotted keys -> values of a resolved run config, without the keys that change nothing."""
+    flat: dict[str, Any] = {}
+    for key, value in config.items():
+        name = f"{prefix}{key}"
+        if name.startswith(_VOLATILE) or name in {v.rstrip(".") for v in _VOLATILE}:
+            continue
+        if isinstance(value, Mapping) and value:
+            flat.update(flat_config(value, f"{name}."))
+        else:
+            flat[name] = value
+    return flat
+
+
+def config_differences(old: Mapping[str, Any], new: Mapping[str, Any]) -> list[str]:
+    keys = sorted(set(old) | set(new))
+    missing = object()
+    return [f"{k}: {old.get(k, '(absent)')!r} -> {new.get(k, '(absent)')!r}" for k in keys
+            if old.get(k, missing) != new.get(k, missing)]
+
+
+@dataclass
+class Baseline:
+    name: str
+    scores: dict[str, Score]
+    data_fingerprint: str
+    experiment_config: dict[str, Any] = field(default_factory=dict)
+    overrides: list[str] = field(default_factory=list)
+    source: str = ""
+    git_commit: str = "unknown"
+    dochar_version: str = __version__
+    created: str = ""
+
+    @classmethod
+    def from_run(cls, name: str, bundle: RunBundle, *, overrides: Sequence[str], source: str,
+                 git_commit: str) -> Baseline:
+        return cls(name=name, scores=run_scores(bundle),
+                   data_fingerprint=str(bundle.tags.get("data_fingerprint", "")),
+                   experiment_config=flat_config(bundle.config), overrides=list(overrides),
+                   source=source, git_commit=git_commit,
+                   created=dt.datetime.now(dt.timezone.utc).replace(microsecond=0).isoformat())
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"format": FORMAT, "name": self.name, "created": self.created,
+                "git_commit": self.git_commit, "dochar_version": self.dochar_version,
+                "source": self.source, "data_fingerprint": self.data_fingerprint,
+                "overrides": list(self.overrides),
+                "metrics": {m: s.to_dict() for m, s in self.scores.items()},
+                "experiment_config": dict(self.experiment_config)}
+
+    def write(self, path: str | Path) -> Path:
+        path = Path(path)
+        path.parent.mkdir(parents=True, exist_ok=True)
+        text = yaml.safe_dump(self.to_dict(), sort_keys=True, allow_unicode=True,
+                              default_flow_style=None, width=100)
+        path.write_text(HEADER + text, encoding="utf-8")
+        return path
+
+    @classmethod
+    def read(cls, path: str | Path) -> Baseline:
+        path = Path(path)
+        if not path.is_file():
+            raise FileNotFoundError(f"no baseline at {path}; create it with `dochar gate --update`")
+        try:
+            data = yaml.safe_load(path.read_text(encoding="utf-8"))
+        except yaml.YAMLError as error:
+            raise GateConfigError(f"{path}: not valid YAML ({error})") from None
+        if not isinstance(data, Mapping) or not isinstance(data.get("metrics"), Mapping):
+            raise GateConfigError(f"{path}: not a dochar gate baseline (no 'metrics' mapping)")
+        if data.get("format") != FORMAT:
+            raise GateConfigError(f"{path}: baseline format {data.get('format')!r}, this dochar "
+                                  f"reads format {FORMAT}")
+        scores = {str(m): Score.from_dict(s, f"{path}: metrics.{m}")
+                  for m, s in data["metrics"].items()}
+        return cls(name=str(data.get("name", path.stem)), scores=scores,
+                   data_fingerprint=str(data.get("data_fingerprint", "")),
+                   experiment_config=dict(data.get("experiment_config") or {}),
+                   overrides=[str(o) for o in data.get("overrides") or []],
+                   source=str(data.get("source", "")), git_commit=str(data.get("git_commit", "")),
+                   dochar_version=str(data.get("dochar_version", "")),
+                   created=str(data.get("created", "")))
+
+
+def describe_update(old: Baseline | None, new: Baseline) -> list[str]:
+    """What an update changes, one line each: scores first, then the run's conditions."""
+    if old is None:
+        return [f"new baseline with {len(new.scores)} metrics"]
+    lines = []
+    for metric in sorted(set(old.scores) | set(new.scores)):
+        before, after = old.scores.get(metric), new.scores.get(metric)
+        if before is None:
+            lines.append(f"{metric}: added ({after.value:.4f})")
+        elif after is None:
+            lines.append(f"{metric}: removed (was {before.value:.4f})")
+        elif before != after:
+            lines.append(f"{metric}: {before.value:.4f} -> {after.value:.4f} "
+                         f"({after.value - before.value:+.4f})")
+    if not lines:
+        lines.append("scores unchanged")
+    if old.data_fingerprint != new.data_fingerprint:
+        lines.append(f"data fingerprint: {old.data_fingerprint} -> {new.data_fingerprint}")
+    if old.overrides != new.overrides:
+        lines.append(f"overrides: {old.overrides} -> {new.overrides}")
+    lines += [f"config {line}" for line in config_differences(old.experiment_config,
+                                                              new.experiment_config)]
+    if old.git_commit != new.git_commit:
+        lines.append(f"git commit: {old.git_commit[:12]} -> {new.git_commit[:12]}")
+    return lines

@@ -1,1 +1,0 @@
-"""Importers: each converts one source format into the word table (dochar.document)."""

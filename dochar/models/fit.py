@@ -1,0 +1,103 @@
+"""Fit one model on the training pages and predict the test pages: a GNN stack or a baseline.
+
+Both kinds take the same page sets and featurizer and return per-page class probabilities and
+cost figures, so the rest of the run never asks which kind it had.
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from omegaconf import DictConfig, OmegaConf
+
+from dochar.features import CharCNNEncoder, WordFeaturizer
+from dochar.models.baselines import make_baseline
+from dochar.models.gnn import GNNStack, count_parameters
+from dochar.models.inputs import PageSet, label_indices, to_graphs, to_matrix
+from dochar.models.training import predict_proba, train
+from dochar.splits import PARTS
+
+
+@dataclass
+class FittedModel:
+    """The fitted model, its test-page probabilities and what it cost."""
+
+    model: Any
+    probabilities: list[np.ndarray]
+    cost: dict[str, float]
+
+
+def system_name(model_cfg: Mapping[str, Any]) -> str:
+    """The layer of a GNN, the estimator of a baseline: what the run compares."""
+    return str(model_cfg["layer"] if model_cfg["kind"] == "gnn" else model_cfg["estimator"])
+
+
+def fit_gnn(cfg: DictConfig, sets: dict[str, PageSet], featurizer: WordFeaturizer,
+            labels: Sequence[str]) -> FittedModel:
+    index = {label: i for i, label in enumerate(labels)}
+    graphs = {part: to_graphs(sets[part], featurizer, index) for part in PARTS}
+    model_cfg = cfg.model
+    encoder = (CharCNNEncoder(**OmegaConf.to_container(cfg.features.char_cnn))
+               if featurizer.uses_char_cnn else None)
+    model = GNNStack(in_dim=len(featurizer.feature_names), num_classes=len(labels),
+                     num_relations=len(sets["train"].relations), layer=model_cfg.layer,
+                     hidden_dim=model_cfg.hidden_dim, depth=model_cfg.depth,
+                     dropout=model_cfg.dropout, norm=model_cfg.norm,
+                     residual=model_cfg.residual, char_encoder=encoder,
+                     char_dim=int(cfg.features.char_cnn.out_dim) if encoder else 0,
+                     layer_options=dict(model_cfg.layer_options or {}))
+    started = time.perf_counter()
+    history = train(model, graphs["train"], graphs["val"], len(labels), cfg.train, int(cfg.seed))
+    train_seconds = time.perf_counter() - started
+    started = time.perf_counter()
+    probabilities = predict_proba(model, graphs["test"])
+    infer_seconds = time.perf_counter() - started
+    cost = {"train_seconds": train_seconds, "parameters": float(count_parameters(model)),
+            "pages_per_second": len(graphs["test"]) / max(infer_seconds, 1e-9),
+            "best_epoch": float(history.best_epoch), "epochs_run": float(history.epochs_run),
+            "best_val_macro_f1": history.best_val_macro_f1}
+    return FittedModel(model, probabilities, cost)
+
+
+def fit_baseline(cfg: DictConfig, sets: dict[str, PageSet], featurizer: WordFeaturizer,
+                 labels: Sequence[str]) -> FittedModel:
+    index = {label: i for i, label in enumerate(labels)}
+    options = dict(hash_features=int(cfg.features.hash_features),
+                   neighbour_features=bool(cfg.model.neighbour_features))
+    x_train = to_matrix(sets["train"], featurizer, **options)
+    y_train = np.concatenate([label_indices(p, index) for p in sets["train"].pages])
+    estimator = make_baseline(cfg.model.estimator, int(cfg.seed), **dict(cfg.model.options or {}))
+    started = time.perf_counter()
+    estimator.fit(x_train, y_train)
+    train_seconds = time.perf_counter() - started
+    started = time.perf_counter()
+    seen = estimator.predict_proba(to_matrix(sets["test"], featurizer, **options))
+    infer_seconds = time.perf_counter() - started
+    full = np.zeros((len(seen), len(labels)))
+    full[:, estimator.classes_] = seen  # classes absent from training keep probability 0
+    sizes = np.cumsum([len(page) for page in sets["test"].pages])[:-1]
+    cost = {"train_seconds": train_seconds, "parameters": float(_estimator_size(estimator)),
+            "pages_per_second": len(sets["test"].pages) / max(infer_seconds, 1e-9)}
+    return FittedModel(estimator, np.split(full, sizes), cost)
+
+
+def fit_model(cfg: DictConfig, sets: dict[str, PageSet], featurizer: WordFeaturizer,
+              labels: Sequence[str]) -> FittedModel:
+    fit = fit_gnn if cfg.model.kind == "gnn" else fit_baseline
+    return fit(cfg, sets, featurizer, labels)
+
+
+def _estimator_size(estimator: Any) -> int:
+    """Trees: total node count; linear models: coefficient count (a size, not trainable weights)."""
+    final = estimator[-1] if hasattr(estimator, "steps") else estimator
+    if hasattr(final, "estimators_"):
+        return int(sum(tree.tree_.node_count for tree in np.ravel(final.estimators_)))
+    if hasattr(final, "_predictors"):
+        return int(sum(p.get_n_leaf_nodes() * 2 - 1 for row in final._predictors for p in row))
+    if hasattr(final, "coef_"):
+        return int(final.coef_.size + np.size(final.intercept_))
+    return 0

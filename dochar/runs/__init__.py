@@ -1,0 +1,1 @@
+"""Runs: the run bundle, tracking in MLflow, sweeps and their tables, comparisons of runs."""

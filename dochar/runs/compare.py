@@ -1,0 +1,38 @@
+"""`dochar compare`: is run A better than run B on the same test documents, or is it noise?"""
+
+from __future__ import annotations
+
+from dochar.metrics.evaluate import headline_scorers
+from dochar.metrics.intervals import PairedResult, paired_comparison
+from dochar.runs.bundle import RunBundle
+
+
+def compare_runs(run_a: RunBundle, run_b: RunBundle, *, score: str = "macro_f1",
+                 method: str = "bootstrap", resamples: int = 2000, seed: int = 0
+                 ) -> PairedResult:
+    if run_a.labels != run_b.labels:
+        raise ValueError(f"runs {run_a.name!r} and {run_b.name!r} use different label sets; "
+                         "they cannot be compared word for word")
+    ignore = run_a.config.get("evaluation", {}).get("entity_ignore", ["other"])
+    scorers = headline_scorers(run_a.labels, ignore)
+    if score not in scorers:
+        raise ValueError(f"--score {score!r}: choose one of {sorted(scorers)}")
+    return paired_comparison(run_a.predictions, run_b.predictions, scorers[score],
+                             n_resamples=resamples, seed=seed, method=method)
+
+
+def format_comparison(run_a: RunBundle, run_b: RunBundle, result: PairedResult,
+                      score: str) -> str:
+    verdict = ("A is better" if result.low > 0 else "B is better" if result.high < 0
+               else "no clear difference")
+    test = ("exact randomisation" if result.exact else
+            "approximate randomisation" if result.method == "randomisation"
+            else "paired bootstrap")
+    return "\n".join([
+        f"A  {run_a.name}  ({run_a.run_id})  {score} = {result.score_a:.4f}",
+        f"B  {run_b.name}  ({run_b.run_id})  {score} = {result.score_b:.4f}",
+        f"A - B = {result.difference:+.4f}   95% interval [{result.low:+.4f}, "
+        f"{result.high:+.4f}]   p = {result.p_value:.4g}   ({test}, "
+        f"{result.n_documents} test documents)",
+        f"verdict: {verdict}",
+    ])

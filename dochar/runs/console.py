@@ -1,0 +1,76 @@
+"""Terminal tables: one run's scores, and a ranked comparison of many (rich)."""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+
+import pandas as pd
+from rich.console import Console
+from rich.table import Table
+
+from dochar.runs.aggregate import mean_std_text
+from dochar.runs.bundle import RunBundle
+
+console = Console(width=160)
+
+
+def _fmt(value: float | None, digits: int = 3) -> str:
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return "–"
+    return f"{value:.{digits}f}"
+
+
+def _interval(metrics: dict[str, float], key: str) -> str:
+    low, high = metrics.get(f"{key}_low"), metrics.get(f"{key}_high")
+    text = _fmt(metrics.get(key))
+    return f"{text} [{_fmt(low)}, {_fmt(high)}]" if low is not None else text
+
+
+def ranking_table(bundles: Sequence[RunBundle], title: str = "runs ranked by macro-F1") -> Table:
+    table = Table(title=title, title_justify="left")
+    for column in ("#", "run", "macro-F1 [95% CI]", "micro-F1", "entity F1 [95% CI]",
+                   "train s", "params", "run id"):
+        table.add_column(column, justify="left" if column in {"run", "run id"} else "right")
+    ranked = sorted(bundles, key=lambda b: -b.metrics.get("macro_f1", float("-inf")))
+    for rank, bundle in enumerate(ranked, start=1):
+        m = bundle.metrics
+        table.add_row(str(rank), bundle.name, _interval(m, "macro_f1"), _fmt(m.get("micro_f1")),
+                      _interval(m, "entity_f1"), _fmt(bundle.cost.get("train_seconds"), 1),
+                      f"{int(bundle.cost.get('parameters', 0)):,}", (bundle.run_id or "")[:12])
+    return table
+
+
+def per_class_table(bundles: Sequence[RunBundle]) -> Table:
+    """Classes as rows, runs as columns: the side-by-side view of where each system fails."""
+    ranked = sorted(bundles, key=lambda b: -b.metrics.get("macro_f1", float("-inf")))
+    table = Table(title="per-class F1 (test words)", title_justify="left")
+    table.add_column("class")
+    for bundle in ranked:
+        table.add_column(bundle.name, justify="right")
+    labels = list(dict.fromkeys(label for b in ranked for label in b.labels))
+    for label in labels:
+        table.add_row(label, *(_fmt(b.metrics.get(f"f1/{label}")) for b in ranked))
+    table.add_row("macro-F1", *(_fmt(b.metrics.get("macro_f1")) for b in ranked), style="bold")
+    return table
+
+
+def print_comparison(bundles: Sequence[RunBundle]) -> None:
+    console.print(ranking_table(bundles))
+    console.print(per_class_table(bundles))
+
+
+def aggregate_table(repeats: pd.DataFrame) -> Table:
+    """Systems repeated over seeds or folds: mean ± sample std and the number of runs."""
+    table = Table(title="systems over seeds / folds (mean ± std)", title_justify="left")
+    for column in ("system", "n", "macro-F1", "micro-F1", "entity F1", "train s"):
+        table.add_column(column, justify="left" if column == "system" else "right")
+    for row in repeats.itertuples(index=False):
+        values = row._asdict()
+
+        def cell(metric: str, digits: int = 3) -> str:
+            mean = values.get(f"{metric}_mean")
+            return "–" if mean is None else mean_std_text(mean, values[f"{metric}_std"], digits)
+        table.add_row(str(row.system), str(row.n), cell("macro_f1"), cell("micro_f1"),
+                      cell("entity_f1"), cell("cost/train_seconds", 1))
+    return table

@@ -1,0 +1,43 @@
+"""The tables a run keeps of its test pages: one row per word with its prediction, and edges."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import numpy as np
+import pandas as pd
+
+from dochar.data.word_table import Page
+from dochar.models.inputs import PageSet
+from dochar.runs.bundle import PROBABILITY_PREFIX
+
+EDGE_COLUMNS = ["doc_id", "page", "source", "target", "relation"]
+
+
+def prediction_frame(pages: Sequence[Page], probabilities: Sequence[np.ndarray],
+                     labels: Sequence[str]) -> pd.DataFrame:
+    frames = []
+    for page, proba in zip(pages, probabilities):
+        frame = pd.DataFrame({
+            "doc_id": page.doc_id, "page": page.page, "word_id": page.word_ids,
+            "text": page.texts, "x0": page.boxes[:, 0], "y0": page.boxes[:, 1],
+            "x1": page.boxes[:, 2], "y1": page.boxes[:, 3], "page_width": page.width,
+            "page_height": page.height, "layout_id": page.layout_id or "",
+            "entity_id": page.entity_ids or [""] * len(page), "label": page.labels,
+            "predicted": [labels[i] for i in proba.argmax(axis=1)],
+            "confidence": proba.max(axis=1)})
+        for i, label in enumerate(labels):
+            frame[f"{PROBABILITY_PREFIX}{label}"] = proba[:, i]
+        frames.append(frame)
+    return pd.concat(frames, ignore_index=True)
+
+
+def edge_frame(page_set: PageSet, limit: int) -> pd.DataFrame:
+    """The edges of the first ``limit`` pages, by word id and relation name (page overlays)."""
+    rows = []
+    for page, edges in list(zip(page_set.pages, page_set.edges))[:limit]:
+        source, target = page.word_ids[edges.edge_index[0]], page.word_ids[edges.edge_index[1]]
+        rows.append(pd.DataFrame({"doc_id": page.doc_id, "page": page.page, "source": source,
+                                  "target": target,
+                                  "relation": [page_set.relations[t] for t in edges.edge_type]}))
+    return pd.concat(rows, ignore_index=True) if rows else pd.DataFrame(columns=EDGE_COLUMNS)

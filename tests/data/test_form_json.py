@@ -1,0 +1,72 @@
+"""Form-annotation JSON import, checked against FUNSD's own published counts."""
+
+from __future__ import annotations
+
+import json
+import struct
+
+import pytest
+
+from dochar.data.importers.form_json import import_form_json, png_size
+from dochar.data.word_table import validate_word_table
+
+FUNSD_LABELS = ["header", "question", "answer", "other"]
+
+
+def test_funsd_counts_match_the_dataset_readme(funsd_root):
+    frame, report = import_form_json([funsd_root], empty_text="keep")
+    # FUNSD README / Jaume et al. 2019: 199 forms, 31,485 words; 149 training, 50 test forms
+    assert report.files == 199
+    assert len(frame) == 31485
+    assert frame.groupby("split")["doc_id"].nunique().to_dict() == {"test": 50, "train": 149}
+    # entity counts from the dataset README: 7,411 training and 2,332 test entities
+    entities = frame.groupby("split").apply(lambda f: f[["doc_id", "entity_id"]]
+                                            .drop_duplicates().shape[0], include_groups=False)
+    assert entities.to_dict() == {"test": 2332, "train": 7411}
+
+
+def test_empty_words_are_counted_never_silently_dropped(funsd_root):
+    kept, kept_report = import_form_json([funsd_root], empty_text="keep")
+    dropped, drop_report = import_form_json([funsd_root], empty_text="drop")
+    assert drop_report.empty_text_dropped == kept_report.empty_text_kept > 0
+    assert len(dropped) + drop_report.empty_text_dropped == len(kept)
+    report = validate_word_table(dropped, FUNSD_LABELS)
+    assert report.problems == [] and report.documents_used == 199
+
+
+def test_page_size_read_from_the_scan(funsd_root):
+    image = next((funsd_root / "training_data" / "images").glob("*.png"))
+    width, height = png_size(image)
+    frame, _ = import_form_json([funsd_root / "training_data" / "annotations" /
+                                 f"{image.stem}.json"])
+    assert (frame["page_width"].iloc[0], frame["page_height"].iloc[0]) == (width, height)
+    assert (frame["x1"] <= width).all() and (frame["y1"] <= height).all()
+
+
+def test_reversed_and_overhanging_boxes_are_repaired(tmp_path):
+    form = {"form": [{"id": 3, "label": "answer", "text": "7 8", "box": [0, 0, 0, 0],
+                      "words": [{"text": "7", "box": [30, 20, 10, 5]},
+                                {"text": "8", "box": [40, 5, 5000, 20]},
+                                {"text": " ", "box": [1, 1, 2, 2]}]}]}
+    (tmp_path / "annotations").mkdir()
+    (tmp_path / "images").mkdir()
+    path = tmp_path / "annotations" / "form.json"
+    path.write_text(json.dumps(form))
+    # a PNG signature and IHDR chunk (PNG spec, ISO/IEC 15948: width, height as big-endian u32)
+    ihdr = struct.pack(">I4sIIBBBBB", 13, b"IHDR", 100, 50, 8, 0, 0, 0, 0)
+    (tmp_path / "images" / "form.png").write_bytes(b"\x89PNG\r\n\x1a\n" + ihdr + b"\0" * 4)
+    frame, report = import_form_json([path])
+    assert frame[["x0", "y0", "x1", "y1"]].values.tolist() == [[10, 5, 30, 20], [40, 5, 100, 20]]
+    assert (report.boxes_reordered, report.boxes_clipped, report.empty_text_dropped) == (1, 1, 1)
+    assert frame["entity_id"].tolist() == ["e3", "e3"]
+
+
+def test_broken_file_is_reported(tmp_path):
+    (tmp_path / "bad.json").write_text("{not json")
+    frame, report = import_form_json([tmp_path])
+    assert len(frame) == 0 and len(report.problems) == 1 and "bad.json" in report.problems[0]
+
+
+def test_bad_option():
+    with pytest.raises(ValueError, match="empty_text"):
+        import_form_json([], empty_text="maybe")

@@ -1,0 +1,201 @@
+"""Bootstrap intervals and paired tests against naive loops, scipy and exact enumeration."""
+
+from __future__ import annotations
+
+import itertools
+
+import numpy as np
+import pandas as pd
+import pytest
+import scipy.stats
+from sklearn.metrics import f1_score
+
+from dochar.metrics import (
+    ColumnMean,
+    EntityF1,
+    MetricInputError,
+    WordF1,
+    bootstrap_interval,
+    bootstrap_scores,
+    entity_scores,
+    paired_comparison,
+    score_words,
+)
+
+LABELS = ["lab_name", "analyte", "result", "unit", "other"]
+
+
+def _predictions(n_docs: int, seed: int, accuracy: float = 0.7, words: int = 24) -> pd.DataFrame:
+    """Documents of one-line entities on a grid; each word kept right with prob ``accuracy``."""
+    rng = np.random.default_rng(seed)
+    records = []
+    for doc in range(n_docs):
+        entity, position = 0, 0
+        while position < words:
+            size, label = int(rng.integers(1, 3)), str(rng.choice(LABELS))
+            for _ in range(min(size, words - position)):
+                line, column = divmod(position, 4)
+                records.append(dict(doc_id=f"doc{doc:03d}", page=1, word_id=position,
+                                    x0=column * 50.0, x1=column * 50.0 + 40, y0=line * 15.0,
+                                    y1=line * 15.0 + 10, entity_id=str(entity), label=label))
+                position += 1
+            entity += 1
+    frame = pd.DataFrame(records)
+    keep = rng.random(len(frame)) < accuracy
+    frame["predicted"] = np.where(keep, frame["label"], rng.choice(LABELS, len(frame)))
+    return frame
+
+
+def _naive_bootstrap(frame, score, n_resamples, seed):
+    """Oracle: draw documents with replacement as documented, glue copies, re-score words."""
+    groups = np.unique(frame["doc_id"])
+    draws = np.random.default_rng(seed).integers(0, len(groups), size=(n_resamples, len(groups)))
+    by_doc = {doc: words for doc, words in frame.groupby("doc_id")}
+    scores = []
+    for draw in draws:
+        copies = [by_doc[groups[g]].assign(doc_id=f"copy{k}") for k, g in enumerate(draw)]
+        scores.append(score(pd.concat(copies, ignore_index=True)))
+    return np.array(scores)
+
+
+def test_vectorised_bootstrap_equals_naive_rescoring():
+    frame = _predictions(9, seed=1)
+    macro = lambda f: score_words(f["label"], f["predicted"], LABELS).macro_f1  # noqa: E731
+    micro = lambda f: score_words(f["label"], f["predicted"], LABELS).micro_f1  # noqa: E731
+    entity = lambda f: entity_scores(f, LABELS).f1  # noqa: E731
+    for fast, naive in ((WordF1(LABELS), macro), (WordF1(LABELS, "micro"), micro),
+                        (EntityF1(LABELS), entity)):
+        expected = _naive_bootstrap(frame, naive, 30, seed=5)
+        assert bootstrap_scores(frame, fast, n_resamples=30, seed=5) == pytest.approx(expected)
+        # a plain callable takes the re-scoring road: same draws, same scores
+        assert bootstrap_scores(frame, naive, n_resamples=30, seed=5) == pytest.approx(expected)
+
+
+def test_interval_contains_point_and_narrows_with_more_documents():
+    widths = []
+    for n_docs in (8, 128):
+        frame = _predictions(n_docs, seed=2)
+        point, low, high = bootstrap_interval(frame, WordF1(LABELS), n_resamples=500, seed=0)
+        assert low <= point <= high
+        assert point == pytest.approx(score_words(frame["label"], frame["predicted"],
+                                                  LABELS).macro_f1)
+        widths.append(high - low)
+    # standard error shrinks like 1/sqrt(n) (Efron & Tibshirani 1993): 16x documents → ~1/4
+    assert widths[1] < widths[0] / 2
+
+
+def test_percentile_interval_agrees_with_scipy_bootstrap():
+    rng = np.random.default_rng(11)
+    doc_means = rng.normal(loc=0.6, scale=0.2, size=30)
+    # three words per document with equal values: the word mean is the mean of document means
+    frame = pd.DataFrame({"doc_id": np.repeat([f"d{i:02d}" for i in range(30)], 3),
+                          "value": np.repeat(doc_means, 3)})
+    _, low, high = bootstrap_interval(frame, ColumnMean("value"), n_resamples=20000, seed=1)
+    # reference: scipy.stats.bootstrap(method="percentile"), independent draws → Monte Carlo
+    # tolerance; the bootstrap standard error here is ~0.036, percentile noise at 20k ≪ 0.01
+    reference = scipy.stats.bootstrap((doc_means,), np.mean, method="percentile",
+                                      n_resamples=20000, rng=np.random.default_rng(99))
+    assert low == pytest.approx(reference.confidence_interval.low, abs=0.01)
+    assert high == pytest.approx(reference.confidence_interval.high, abs=0.01)
+
+
+def test_bootstrap_refuses_bad_input():
+    frame = _predictions(1, seed=0)
+    with pytest.raises(MetricInputError, match="at least 2 groups, got 1"):
+        bootstrap_interval(frame, WordF1(LABELS))
+    with pytest.raises(MetricInputError, match="confidence"):
+        bootstrap_interval(_predictions(3, seed=0), WordF1(LABELS), confidence=95)
+    with pytest.raises(MetricInputError, match="layout_id"):
+        bootstrap_interval(frame, WordF1(LABELS), group_col="layout_id")
+
+
+# ---------------------------------------------------------------- paired comparisons
+
+@pytest.mark.parametrize("method", ["bootstrap", "randomisation"])
+def test_identical_systems_have_no_difference(method):
+    frame = _predictions(12, seed=3)
+    result = paired_comparison(frame, frame.copy(), WordF1(LABELS), method=method)
+    # δ = 0 and every resample or swap gives 0 too: |δ*| >= |δ| always (p = 1)
+    assert result.difference == 0
+    assert result.p_value == pytest.approx(1.0)
+    assert (result.low, result.high) == (0, 0)
+
+
+@pytest.mark.parametrize("method", ["bootstrap", "randomisation"])
+def test_better_on_every_document_is_significant(method):
+    worse = _predictions(20, seed=4, accuracy=0.5)
+    better = worse.assign(predicted=worse["label"])   # perfect on every document
+    result = paired_comparison(better, worse, WordF1(LABELS), method=method, n_resamples=2000)
+    assert result.difference > 0
+    assert result.low > 0
+    # no swap pattern or shifted resample reaches |δ|: p = 1/(1 + 2000)
+    # (Davison & Hinkley 1997, sec. 4.2: Monte Carlo p-value with the +1)
+    assert result.p_value < 0.01
+    assert result.n_documents == 20
+
+
+def _exact_randomisation_p(frame_a, frame_b, score):
+    """Noreen 1989, enumerated: all 2^n per-document swaps of the two systems' predictions."""
+    docs = sorted(frame_a["doc_id"].unique())
+    observed = score(frame_a) - score(frame_b)
+    hits = 0
+    patterns = list(itertools.product((False, True), repeat=len(docs)))
+    for pattern in patterns:
+        swapped = {d for d, s in zip(docs, pattern) if s}
+        side_a = pd.concat([frame_a[~frame_a.doc_id.isin(swapped)],
+                            frame_b[frame_b.doc_id.isin(swapped)]])
+        side_b = pd.concat([frame_b[~frame_b.doc_id.isin(swapped)],
+                            frame_a[frame_a.doc_id.isin(swapped)]])
+        hits += abs(score(side_a) - score(side_b)) >= abs(observed) - 1e-12
+    return hits / len(patterns)
+
+
+def _sk_macro(frame):
+    # sklearn.metrics.f1_score over the classes present in truth or prediction
+    present = sorted(set(frame["label"]) | set(frame["predicted"]))
+    return f1_score(frame["label"], frame["predicted"], labels=present, average="macro")
+
+
+def _rival(frame, accuracy, seed):
+    """A second system on the same words: each word right with prob ``accuracy``."""
+    rng = np.random.default_rng(seed)
+    keep = rng.random(len(frame)) < accuracy
+    return frame.assign(predicted=np.where(keep, frame["label"],
+                                           rng.choice(LABELS, len(frame))))
+
+
+def test_randomisation_exact_on_four_documents():
+    frame_a = _predictions(4, seed=6, accuracy=0.8, words=8)
+    frame_b = _rival(frame_a, accuracy=0.6, seed=1)
+    expected = _exact_randomisation_p(frame_a, frame_b, _sk_macro)   # 16 swap patterns
+    result = paired_comparison(frame_a, frame_b, WordF1(LABELS), method="randomisation",
+                               n_resamples=100)
+    assert result.exact
+    assert result.p_value == pytest.approx(expected)
+    assert 0.05 < expected < 0.95        # not a degenerate case
+    plain = paired_comparison(frame_a, frame_b, _sk_macro, method="randomisation",
+                              n_resamples=16)
+    assert plain.p_value == pytest.approx(expected)
+
+
+def test_monte_carlo_randomisation_approaches_exact_p():
+    frame_a = _predictions(10, seed=8, accuracy=0.72, words=10)
+    frame_b = _rival(frame_a, accuracy=0.66, seed=0)
+    accuracy = lambda f: float((f["label"] == f["predicted"]).mean())  # noqa: E731
+    expected = _exact_randomisation_p(frame_a, frame_b, accuracy)     # 1024 patterns
+    result = paired_comparison(frame_a, frame_b, WordF1(LABELS, "micro"),
+                               method="randomisation", n_resamples=1000, seed=3)
+    assert not result.exact
+    assert 0.05 < expected < 0.95
+    # binomial Monte Carlo error of a p-value from 1000 draws: 4 standard errors
+    assert abs(result.p_value - expected) < 4 * np.sqrt(expected * (1 - expected) / 1000) + 2e-3
+
+
+def test_paired_comparison_names_missing_documents():
+    frame_a = _predictions(5, seed=0)
+    frame_b = frame_a[frame_a["doc_id"] != "doc003"]
+    with pytest.raises(MetricInputError, match=r"only in system A \(1\): \['doc003'\]"):
+        paired_comparison(frame_a, frame_b, WordF1(LABELS))
+    fewer_words = frame_a.drop(index=frame_a.index[frame_a["doc_id"] == "doc002"][:1])
+    with pytest.raises(MetricInputError, match=r"'doc002' has 23 words in system A and 24"):
+        paired_comparison(fewer_words, frame_a, WordF1(LABELS))

@@ -1,0 +1,93 @@
+"""The package's shape: one direction of data flow, no import cycle, a short top level.
+
+Stages in data-flow order (DESIGN.md): data → splits → graphs → features → models → metrics →
+runs → report → gate. A module may import its own stage and earlier ones; the wiring modules
+(``experiment``, ``curve``, ``cli``) sit above every stage. Checked on the source with ``ast``,
+so lazy imports inside functions count too.
+"""
+
+from __future__ import annotations
+
+import ast
+from pathlib import Path
+
+from tests.helpers import REPO
+
+PACKAGE = REPO / "dochar"
+FOUNDATION = ("errors", "config", "__init__")       # imported by anything
+STAGES = ("data", "splits", "graphs", "features", "models", "metrics", "runs", "report", "gate")
+WIRING = ("experiment", "curve", "predict", "cli")
+DRIVERS = ("dochar.gate.command",)   # the gate's command reruns a reference experiment
+
+
+def _module_name(path: Path) -> str:
+    parts = path.relative_to(REPO).with_suffix("").parts
+    return ".".join(parts[:-1] if parts[-1] == "__init__" else parts)
+
+
+def _imports(path: Path) -> set[str]:
+    found: set[str] = set()
+    for node in ast.walk(ast.parse(path.read_text(), filename=str(path))):
+        if isinstance(node, ast.ImportFrom) and node.module and node.level == 0:
+            found.add(node.module)
+            found.update(f"{node.module}.{alias.name}" for alias in node.names)
+        elif isinstance(node, ast.Import):
+            found.update(alias.name for alias in node.names)
+    return found
+
+
+def _graph() -> dict[str, set[str]]:
+    modules = {_module_name(p): p for p in PACKAGE.rglob("*.py")}
+    return {name: {m for m in _imports(path) if m in modules and m != name}
+            for name, path in modules.items()}
+
+
+def _rank(module: str) -> int:
+    if module in DRIVERS:
+        return len(STAGES)
+    first = module.split(".")[1] if "." in module else "__init__"
+    if first in FOUNDATION:
+        return -1
+    if first in STAGES:
+        return STAGES.index(first)
+    assert first in WIRING, f"dochar.{first} is neither a stage, the foundation nor wiring"
+    return len(STAGES)
+
+
+def test_no_module_reaches_up_to_a_later_stage():
+    late = [(source, target) for source, targets in _graph().items() for target in targets
+            if _rank(target) > _rank(source)]
+    assert late == []
+
+
+def test_no_import_cycle():
+    # a package's __init__ importing its own submodules is how it exports names: not a cycle
+    graph = {source: {t for t in targets if not t.startswith(source + ".")}
+             for source, targets in _graph().items()}
+    state: dict[str, str] = {}
+    cycles: list[list[str]] = []
+
+    def visit(node: str, path: list[str]) -> None:
+        state[node] = "open"
+        for target in sorted(graph[node]):
+            if state.get(target) == "open":
+                cycles.append(path[path.index(target):] + [target])
+            elif target not in state:
+                visit(target, [*path, target])
+        state[node] = "done"
+
+    for node in sorted(graph):
+        if node not in state:
+            visit(node, [node])
+    assert cycles == []
+
+
+def test_top_level_is_short():
+    top = sorted(p.stem for p in PACKAGE.glob("*.py"))
+    assert len(top) <= 8, top
+
+
+def test_the_generator_reads_only_the_word_table_format():
+    used = {m for path in (REPO / "data_synth").rglob("*.py") for m in _imports(path)
+            if m.startswith("dochar")}
+    assert used <= {"dochar.data.word_table", "dochar.data.word_table.write_word_table"}, used
