@@ -8,6 +8,7 @@ confidence (Tesseract's 0-100) is kept as ``confidence`` on a 0-1 scale.
 
 from __future__ import annotations
 
+import math
 import os
 import re
 from dataclasses import dataclass
@@ -22,11 +23,15 @@ _PAGE_SUFFIX = re.compile(r"^(?P<doc>.+)_page(?P<page>\d+)$")
 
 @dataclass(frozen=True)
 class OcrSettings:
-    """Tesseract language(s) and page segmentation mode (3 = automatic, Tesseract's default;
-    11 = sparse text, often better on forms)."""
+    """Tesseract language(s), page segmentation mode (11 = sparse text; 3 = automatic, Tesseract's
+    own default) and the least image width: a narrower image (a low-resolution scan) is enlarged
+    by the smallest whole factor that reaches it, and the boxes scaled back. Both defaults were
+    chosen on three FUNSD training images (word match rate 0.705 unenlarged, 0.735 enlarged,
+    segmentation 11), and segmentation 11 over 3 on two rendered certificates."""
 
     language: str = "eng"
-    segmentation: int = 3
+    segmentation: int = 11
+    min_width: int = 1000
 
 
 def document_and_page(path: Path) -> tuple[str, int | None]:
@@ -39,6 +44,12 @@ def ocr_words(image, settings: OcrSettings) -> list[tuple[str, float, float, flo
     import pytesseract
 
     os.environ.setdefault("OMP_THREAD_LIMIT", "1")  # Tesseract's own threads fight on 2 cores
+    factor = max(1, math.ceil(settings.min_width / max(image.width, 1)))
+    if factor > 1:
+        from PIL import Image
+
+        image = image.resize((image.width * factor, image.height * factor),
+                             Image.Resampling.LANCZOS)
     try:
         data = pytesseract.image_to_data(image, lang=settings.language,
                                          config=f"--psm {settings.segmentation}",
@@ -51,8 +62,8 @@ def ocr_words(image, settings: OcrSettings) -> list[tuple[str, float, float, flo
             data["level"], data["text"], data["left"], data["top"], data["width"],
             data["height"], data["conf"]):
         if int(level) == 5:
-            words.append((str(text), float(left), float(top), float(left + width),
-                          float(top + height), max(float(conf), 0.0) / 100.0))
+            words.append((str(text), left / factor, top / factor, (left + width) / factor,
+                          (top + height) / factor, max(float(conf), 0.0) / 100.0))
     return words
 
 
