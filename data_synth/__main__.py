@@ -1,6 +1,7 @@
 """Command line: write a synthetic word table, e.g.
 
     python -m data_synth --documents 300 --seed 0 --out data/synth.parquet
+    python -m data_synth --documents 5 --out data/truth.parquet --render pdf,png --render-dir data/pages
 """
 
 from __future__ import annotations
@@ -16,6 +17,7 @@ from tqdm import tqdm
 from data_synth.generator import iter_documents
 from data_synth.layouts import LAYOUT_IDS
 from data_synth.noise import NoiseConfig
+from data_synth.render import ScanNoise, render_documents
 from dochar.data.word_table import write_word_table
 
 
@@ -34,6 +36,18 @@ def _parser() -> argparse.ArgumentParser:
     parser.add_argument("--merge-rate", type=float, default=0.0, help="word merge probability")
     parser.add_argument("--confusion-rate", type=float, default=0.0,
                         help="per-character look-alike swap probability")
+    render = parser.add_argument_group("rendering (the --out table stays the truth in points)")
+    render.add_argument("--render", default="",
+                        help="comma-separated: pdf, png (page images; their truth in pixels "
+                             "goes to RENDER_DIR/truth_images.parquet)")
+    render.add_argument("--render-dir", type=Path, help="folder for the rendered files")
+    render.add_argument("--dpi", type=float, default=150.0, help="page image resolution")
+    render.add_argument("--scan-blur", type=float, default=0.0,
+                        help="Gaussian blur radius in pixels")
+    render.add_argument("--scan-skew", type=float, default=0.0,
+                        help="largest page rotation in degrees")
+    render.add_argument("--scan-speckle", type=float, default=0.0,
+                        help="fraction of pixels turned black or white")
     return parser
 
 
@@ -42,6 +56,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     args = parser.parse_args(argv)
     if args.out.suffix.lower() not in {".parquet", ".csv"}:
         parser.error(f"--out {args.out}: use a .parquet or .csv file name")
+    formats = {f.strip() for f in args.render.split(",") if f.strip()}
+    if formats and args.render_dir is None:
+        parser.error("--render needs --render-dir")
     layouts = None if args.layouts is None else [s.strip() for s in args.layouts.split(",")
                                                  if s.strip()]
     try:
@@ -58,6 +75,15 @@ def main(argv: Sequence[str] | None = None) -> int:
     pages = table.groupby("doc_id")["page"].nunique().sum()
     print(f"wrote {path}: {table['doc_id'].nunique()} documents, {pages} pages, "
           f"{len(table)} words, {table['layout_id'].nunique()} layouts, seed {args.seed}")
+    if formats:
+        try:
+            scan = ScanNoise(args.scan_blur, args.scan_skew, args.scan_speckle)
+            counts = render_documents(table, args.render_dir, formats, dpi=args.dpi,
+                                      noise=scan, seed=args.seed)
+        except ValueError as error:
+            parser.error(str(error))
+        print(f"rendered into {args.render_dir}: {counts['pdf']} PDFs, "
+              f"{counts['png']} page images at {args.dpi:g} dpi")
     return 0
 
 

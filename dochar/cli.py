@@ -6,6 +6,7 @@
     dochar compare RUN_A RUN_B           paired difference of two runs on the same test pages
     dochar report [--experiment NAME]    static HTML page of an experiment's runs
     dochar gate [--update] [key=value]   reference run vs the committed baseline (CI)
+    dochar import SRC... --out TABLE     PDF, hOCR, ALTO, page images, form JSON -> word table
 """
 
 from __future__ import annotations
@@ -210,6 +211,9 @@ def main(argv: list[str] | None = None) -> int:
         return _hydra_command(_curve_job, argv)
     if argv and argv[0] == "graph-stats":
         return _hydra_command(_graph_stats_job, argv)
+    if argv and argv[0] == "import":
+        from dochar.data.import_command import main as import_main
+        return import_main(argv[1:])
     if argv and argv[0] == "gate":
         from dochar.gate.command import main as gate_main
 

@@ -23,7 +23,7 @@ from dochar.data.word_table import (
 )
 
 log = logging.getLogger(__name__)
-SOURCES = ("synth", "form_json", "word_table")
+SOURCES = ("synth", "form_json", "word_table", "pdf", "hocr", "alto", "image")
 
 
 @dataclass
@@ -69,6 +69,9 @@ def _load_raw(data_cfg: Mapping[str, Any], progress: bool) -> tuple[pd.DataFrame
                        "import_files_reported": len(report.problems)}
     if source == "word_table":
         return read_word_table(data_cfg["path"]), {}
+    if source in ("pdf", "hocr", "alto", "image"):
+        from dochar.data.importers import load_for_run
+        return load_for_run(data_cfg)
     raise WordTableError(f"data.source: unknown source {source!r}; choose one of {list(SOURCES)}")
 
 
