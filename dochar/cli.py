@@ -5,6 +5,7 @@
     dochar graph-stats [key=value ...]   graph diagnostics for a data/graph choice, no training
     dochar compare RUN_A RUN_B           paired difference of two runs on the same test pages
     dochar report [--experiment NAME]    static HTML page of an experiment's runs
+    dochar runs [--experiment NAME]      list the tracked runs (id, name, data, scores, date)
     dochar gate [--update] [key=value]   reference run vs the committed baseline (CI)
     dochar import SRC... --out TABLE     PDF, hOCR, ALTO, page images, form JSON -> word table
 """
@@ -121,54 +122,57 @@ def _hydra_command(task, argv: list[str]) -> int:
     return 0
 
 
-def _load(uri: str, experiment: str, run_ids: list[str] | None):
+def _store(uri: str):
     os.environ.setdefault("MLFLOW_ENABLE_ARTIFACTS_PROGRESS_BAR", "false")
-    from dochar.report.sources import load_bundles_from_mlflow
+    from dochar.runs.store import RunStore
 
-    bundles = load_bundles_from_mlflow(uri, experiment, run_ids)
-    if not bundles:
-        raise SystemExit(f"dochar: no finished dochar runs in experiment {experiment!r} at {uri}")
-    return bundles
+    return RunStore(uri)
 
 
 def _compare(args: argparse.Namespace) -> int:
     from dochar.runs.compare import compare_runs, format_comparison
+    from dochar.runs.store import find_run
 
-    bundles = _load(args.tracking_uri, args.experiment, None)
-
-    def find(prefix: str):
-        """A run id or its first characters, as the run tables print them."""
-        matches = [b for b in bundles if (b.run_id or "").startswith(prefix)]
-        if len(matches) != 1:
-            raise SystemExit(f"dochar compare: {prefix!r} matches {len(matches)} runs of "
-                             f"experiment {args.experiment!r}; give more of the run id")
-        return matches[0]
-
-    run_a, run_b = find(args.run_a), find(args.run_b)
-    try:
-        result = compare_runs(run_a, run_b, score=args.score, method=args.method,
-                              resamples=args.resamples, seed=args.seed)
-    except ValueError as error:
-        raise SystemExit(f"dochar compare: {error}") from None
+    run_a, run_b = (find_run(reference, args.tracking_uri) for reference in (args.run_a, args.run_b))
+    result = compare_runs(run_a, run_b, score=args.score, method=args.method,
+                          resamples=args.resamples, seed=args.seed)
     print(format_comparison(run_a, run_b, result, args.score))
     return 0
 
 
 def _report(args: argparse.Namespace) -> int:
     from dochar.report import write_report
+    from dochar.runs.store import RunLookupError, find_run
 
-    bundles = _load(args.tracking_uri, args.experiment, args.runs or None)
-    if args.sweep:
-        sweeps = sorted({b.tags.get("sweep_id", "") for b in bundles} - {""})
-        wanted = sweeps[-1] if args.sweep == "latest" and sweeps else args.sweep
-        bundles = [b for b in bundles if b.tags.get("sweep_id") == wanted]
+    if args.runs:
+        bundles = [find_run(reference, args.tracking_uri) for reference in args.runs]
+        name = args.experiment or "selected-runs"
+    else:
+        if not args.experiment:
+            raise RunLookupError("dochar report: name the runs (--runs) or an --experiment")
+        store = _store(args.tracking_uri)
+        sweep = store.latest_sweep(args.experiment) if args.sweep == "latest" else args.sweep
+        bundles = store.bundles(args.experiment, sweep=sweep)
+        name = args.experiment
         if not bundles:
-            raise SystemExit(f"dochar report: no runs of sweep {args.sweep!r} "
-                             f"(sweeps here: {sweeps or 'none'})")
-    out = Path(args.out or Path("reports") / f"{args.experiment}.html")
-    path = write_report(bundles, out, title=f"dochar — {args.experiment}", score=args.score,
+            raise RunLookupError(f"no finished dochar runs in experiment {args.experiment!r}"
+                                 + (f", sweep {sweep!r}" if sweep else "")
+                                 + f" at {args.tracking_uri}")
+    out = Path(args.out or Path("reports") / f"{name}.html")
+    path = write_report(bundles, out, title=f"dochar — {name}", score=args.score,
                         reference=args.reference)
     print(f"report written: {path.resolve()}")
+    return 0
+
+
+def _runs(args: argparse.Namespace) -> int:
+    from dochar.runs.console import runs_table
+
+    tags = dict(item.split("=", 1) for item in args.tag or [])
+    frame = _store(args.tracking_uri).listing(args.experiment, tags)
+    if args.limit:
+        frame = frame.tail(args.limit)
+    runs_table(frame)
     return 0
 
 
@@ -182,24 +186,30 @@ def _parser() -> argparse.ArgumentParser:
         commands.add_parser(name, help="Hydra overrides follow", add_help=False)
     commands.add_parser("gate", help="CI regression gate (dochar gate --help)", add_help=False)
 
-    def tracked(sub: argparse.ArgumentParser) -> None:
-        sub.add_argument("--experiment", default="dochar-demo", help="MLflow experiment name")
+    def tracked(sub: argparse.ArgumentParser, score: bool = True) -> None:
+        sub.add_argument("--experiment", help="MLflow experiment name")
         sub.add_argument("--tracking-uri", default=resolve_uri(), help="MLflow store")
-        sub.add_argument("--score", default="macro_f1", help="metric to rank/compare by")
+        if score:
+            sub.add_argument("--score", default="macro_f1", help="metric to rank/compare by")
 
     compare = commands.add_parser("compare", help="paired comparison of two runs")
-    compare.add_argument("run_a", help="run id, or its first characters")
-    compare.add_argument("run_b", help="run id, or its first characters")
+    compare.add_argument("run_a", help="run id, its first characters, or a run folder")
+    compare.add_argument("run_b", help="run id, its first characters, or a run folder")
     compare.add_argument("--method", choices=["bootstrap", "randomisation"], default="bootstrap")
     compare.add_argument("--resamples", type=int, default=2000)
     compare.add_argument("--seed", type=int, default=0)
     tracked(compare)
     report = commands.add_parser("report", help="static HTML report of an experiment's runs")
-    report.add_argument("--runs", nargs="*", help="run ids (default: every finished run)")
+    report.add_argument("--runs", nargs="*", help="run ids, prefixes or folders, any "
+                        "experiment (default: every finished run of --experiment)")
     report.add_argument("--sweep", help="only the runs of one sweep: its id, or 'latest'")
     report.add_argument("--reference", help="run name to compare every run against")
     report.add_argument("--out", help="output HTML path (default reports/<experiment>.html)")
     tracked(report)
+    runs = commands.add_parser("runs", help="list the store's runs, newest last")
+    runs.add_argument("--tag", action="append", help="KEY=VALUE, e.g. dataset=funsd (repeatable)")
+    runs.add_argument("--limit", type=int, default=50, help="show the newest N (0: all)")
+    tracked(runs, score=False)
     return parser
 
 
@@ -213,14 +223,23 @@ def main(argv: list[str] | None = None) -> int:
         return _hydra_command(_graph_stats_job, argv)
     if argv and argv[0] == "import":
         from dochar.data.import_command import main as import_main
+
         return import_main(argv[1:])
     if argv and argv[0] == "gate":
         from dochar.gate.command import main as gate_main
 
         return gate_main(argv[1:])
     args = _parser().parse_args(argv)
-    handlers = {"compare": _compare, "report": _report}
-    return handlers[args.command](args)
+    handlers = {"compare": _compare, "report": _report, "runs": _runs}
+    from dochar.errors import DocharError
+
+    try:
+        return handlers[args.command](args)
+    except DocharError as error:
+        if os.environ.get("DOCHAR_TRACEBACK") == "1":
+            raise
+        print(f"dochar {args.command}: error: {error}", file=sys.stderr)
+        return 2
 
 
 if __name__ == "__main__":

@@ -25,7 +25,6 @@ directory. ``--update`` rewrites the baseline and prints what changed.
 from __future__ import annotations
 
 import argparse
-import re
 import shlex
 import sys
 import time
@@ -61,7 +60,6 @@ from dochar.runs.bundle import RunBundle
 GATE_KEYS = ("name", "baseline", "overrides", "tolerance", "data_check")
 DATA_CHECKS = ("error", "warn")
 _MAX_CONFIG_NOTES = 12
-RUN_ID = re.compile(r"[0-9a-f]{32}")
 
 
 class GateError(RuntimeError):
@@ -161,33 +159,20 @@ def run_reference(overrides: Sequence[str]) -> RunBundle:
 
 
 def load_run(reference: str, tracking_uri: str | None) -> tuple[RunBundle, str]:
-    """A finished run: its folder (or the ``dochar run`` output folder around it), or an MLflow
-    run id (32 hex digits) in ``tracking_uri``."""
-    if not RUN_ID.fullmatch(reference):
-        path = Path(reference)
-        if not path.is_dir():
-            raise GateError(f"--from-run {reference}: no such run folder (nor an MLflow run id)")
-        if not (path / "summary.json").exists() and (path / "run" / "summary.json").exists():
-            path = path / "run"
-        try:
-            return RunBundle.load(path), f"run folder {path}"
-        except (OSError, ValueError, KeyError) as error:
-            raise GateError(f"--from-run {path}: {error}") from error
-    from mlflow import MlflowClient
-
-    from dochar.report.sources import load_bundles_from_mlflow
+    """A finished run: its folder (or the ``dochar run`` output folder around it), or a run of
+    the tracking store by id or id prefix, from any experiment."""
+    from dochar.runs.store import find_run, run_folder
     from dochar.runs.tracking import resolve_uri
 
     uri = resolve_uri(tracking_uri)
-    client = MlflowClient(tracking_uri=uri)
     try:
-        run = client.get_run(reference)
-        experiment = client.get_experiment(run.info.experiment_id).name
-        bundle = load_bundles_from_mlflow(uri, experiment, [reference])[0]
-    except Exception as error:  # MLflow raises its own and plain errors alike for a bad id
-        raise GateError(f"--from-run {reference}: not a readable run in {uri} ({error})") \
-            from error
-    return bundle, f"run {reference} of experiment {experiment!r}"
+        bundle = find_run(reference, uri)
+    except (OSError, ValueError, KeyError) as error:
+        raise GateError(f"--from-run {reference}: not a readable run folder nor a run of {uri} "
+                        f"({error})") from error
+    folder = run_folder(reference)
+    return bundle, (f"run folder {folder}" if folder is not None
+                    else f"run {bundle.run_id} of {uri}")
 
 
 def run_overrides(bundle: RunBundle) -> list[str]:

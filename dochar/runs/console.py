@@ -74,3 +74,13 @@ def aggregate_table(repeats: pd.DataFrame) -> Table:
         table.add_row(str(row.system), str(row.n), cell("macro_f1"), cell("micro_f1"),
                       cell("entity_f1"), cell("cost/train_seconds", 1))
     return table
+
+
+def runs_table(frame: pd.DataFrame) -> None:
+    """`dochar runs`: one line per tracked run, oldest first."""
+    table = Table(title=f"{len(frame)} run(s)", title_justify="left")
+    for column in frame.columns:
+        table.add_column(column, justify="right" if column.endswith("_f1") else "left")
+    for row in frame.itertuples(index=False):
+        table.add_row(*[_fmt(v) if isinstance(v, float) or v is None else str(v) for v in row])
+    console.print(table)

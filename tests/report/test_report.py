@@ -19,7 +19,7 @@ from sklearn.calibration import calibration_curve
 from sklearn.metrics import confusion_matrix, f1_score
 
 from dochar.report import ReportInputError, write_report
-from dochar.report.sources import load_bundles_from_mlflow
+from dochar.runs.store import RunLookupError, RunStore
 from dochar.report.summaries import confusion_rows, display_names, reliability
 from dochar.runs.bundle import RunBundle
 from tests.helpers.report_runs import (
@@ -278,7 +278,8 @@ def test_runs_come_back_from_a_local_mlflow_store(runs, tmp_path):
     finally:
         mlflow.set_tracking_uri(previous)
 
-    loaded = load_bundles_from_mlflow(uri, "report runs")
+    store = RunStore(uri)
+    loaded = store.bundles("report runs")
     assert [b.run_id for b in loaded] == list(logged)
     for bundle in loaded:
         on_disk = RunBundle.load(logged[bundle.run_id])
@@ -287,8 +288,8 @@ def test_runs_come_back_from_a_local_mlflow_store(runs, tmp_path):
         pd.testing.assert_frame_equal(bundle.edges, on_disk.edges)
         assert bundle.config == on_disk.config and bundle.command == on_disk.command
     second = list(logged)[1]
-    assert [b.run_id for b in load_bundles_from_mlflow(uri, "report runs", [second])] == [second]
-    with pytest.raises(ReportInputError, match="status FAILED"):
-        load_bundles_from_mlflow(uri, "report runs", [failed.info.run_id])
-    with pytest.raises(ReportInputError, match="no experiment named 'elsewhere'"):
-        load_bundles_from_mlflow(uri, "elsewhere")
+    assert [b.run_id for b in store.load([store.resolve_id(second[:12])])] == [second]
+    with pytest.raises(RunLookupError, match="status FAILED"):
+        store.load([failed.info.run_id])
+    with pytest.raises(RunLookupError, match="no experiment named 'elsewhere'"):
+        store.bundles("elsewhere")
