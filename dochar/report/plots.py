@@ -103,7 +103,7 @@ def confusion_panels(panels: Sequence[tuple[str, Sequence[str], np.ndarray]], *,
         top = max(float(np.nanmax(m)) for _, _, m in panels) if counts else 1.0
         top = max(top, 1.0)
         shown = None
-        for axes, (name, labels, matrix) in zip(axes_list, panels):
+        for index, (axes, (name, labels, matrix)) in enumerate(zip(axes_list, panels)):
             axes.set_facecolor(MISSING)
             shown = axes.imshow(np.ma.masked_where(~(matrix > 0), matrix), cmap=cmap, vmin=0,
                                 vmax=top)
@@ -117,7 +117,8 @@ def confusion_panels(panels: Sequence[tuple[str, Sequence[str], np.ndarray]], *,
             axes.set_xticks(range(len(labels)), ticks, rotation=50, ha="right", fontsize=8)
             axes.set_yticks(range(len(labels)), ticks, fontsize=8)
             axes.set_xlabel("predicted class")
-            axes.set_ylabel("true class")
+            if index == 0:
+                axes.set_ylabel("true class")
             axes.set_title(plain(name), fontsize=10)
         figure.colorbar(shown, ax=list(axes_list), fraction=0.025, pad=0.02,
                         label="words" if counts else "share of the true class")

@@ -50,7 +50,8 @@ def verdict(bundles: Sequence[RunBundle], names: Sequence[str], order: Sequence[
                           metric(bundles[best], f"{score}_high"))
         why = ("no reference run to compare with" if reference is None or challenger is None
                else "no paired comparison available")
-        return (f"{names[best]} ranks first with {score_words(score)} {number(value)}"
+        lead = "scores" if len(bundles) == 1 else "ranks first with"
+        return (f"{names[best]} {lead} {score_words(score)} {number(value)}"
                 f"{' ' + ranked if ranked else ''} on {_scope(bundles[best], n_docs)}; {why}.")
     if challenger in pairing.failures:
         return (f"{names[challenger]} ranks first among the runs compared, but cannot be paired "
