@@ -17,8 +17,8 @@ TAIL = (r" word macro-F1 \[(?P<low>{n}), (?P<high>{n})\](?: \(the interval cover
         r"p (?P<p>< 0\.001|= \d\.\d{{3}}), on (?P<documents>[\d,]+) test documents?"
         r"(?: of (?P<families>\d+) layout famil(?:y|ies) unseen in training)?\.").format(n=NUMBER)
 BEATS = re.compile(rf"(?P<winner>.+) beats (?P<loser>.+) by \+(?P<by>{NUMBER})" + TAIL)
-TIE = re.compile(rf"No clear difference between (?P<a>.+) and (?P<b>.+): "
-                 rf"(?P<difference>[+-]\d+\.\d{{3}})" + TAIL)
+TIE = re.compile(r"No clear difference between (?P<a>.+) and (?P<b>.+): "
+                 r"(?P<difference>[+-]\d+\.\d{3})" + TAIL)
 
 
 @dataclass(frozen=True)

@@ -72,9 +72,9 @@ def write_report(bundles: Sequence[RunBundle], out_path: str | Path, *,
     curves = [(names[i], learning_curve(bundles[i], score)) for i in order]
     curves = [(name, points) for name, points in curves if points]
     if curves:
-        chapters.append(("learning-curves", f"{words[0].upper()}{words[1:]} against training "
-                         "documents", [image(plots.learning_plot(curves, words),
-                                             "learning curves")]))
+        heading = f"{words[0].upper()}{words[1:]} against training documents"
+        chapters.append(("learning-curves", heading,
+                         [image(plots.learning_plot(curves, words), "learning curves")]))
     best = bundles[order[0]]
     page_labels = _with_unlisted(best, labels)
     if overlay_pages > 0:
