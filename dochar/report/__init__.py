@@ -6,6 +6,7 @@ opens offline and can be mailed or attached to a CI job as is.
 
 from __future__ import annotations
 
+import datetime as dt
 from collections.abc import Callable, Sequence
 from pathlib import Path
 
@@ -13,33 +14,15 @@ import numpy as np
 import yaml
 
 from dochar.report import plots
-from dochar.report.leaderboard import default_paired, leaderboard, resolve_reference
+from dochar.report.leaderboard import (default_paired, leaderboard, pair_with_reference,
+                                       resolve_reference)
 from dochar.report.overlay import OVERLAY_STYLE, class_style, overlays
-from dochar.report.page import (
-    Html,
-    details,
-    document,
-    image,
-    note,
-    number,
-    paragraph,
-    preformatted,
-    section,
-    table,
-)
-from dochar.report.summaries import (
-    ReportInputError,
-    check_bundle,
-    class_order,
-    confusion_rows,
-    display_names,
-    has_layouts,
-    layout_scores,
-    learning_curve,
-    metric,
-    ranking,
-    reliability,
-)
+from dochar.report.page import (Html, contents, details, document, facts, image, note, number,
+                                paragraph, preformatted, section, table)
+from dochar.report.summaries import (ReportInputError, check_bundle, class_order,
+                                     confusion_rows, display_names, has_layouts, layout_scores,
+                                     learning_curve, metric, ranking, reliability, score_words)
+from dochar.report.verdict import provenance, verdict
 from dochar.runs.bundle import RunBundle
 
 __all__ = ["write_report", "ReportInputError"]
@@ -48,12 +31,13 @@ __all__ = ["write_report", "ReportInputError"]
 def write_report(bundles: Sequence[RunBundle], out_path: str | Path, *,
                  title: str = "dochar report", score: str = "macro_f1",
                  reference: str | None = None, overlay_pages: int = 3,
-                 paired: Callable | None = None) -> Path:
+                 paired: Callable | None = None, written: dt.date | None = None) -> Path:
     """Write the report for ``bundles`` to ``out_path`` and return the path.
 
     ``paired(frame_a, frame_b)`` compares a run's predictions (a) with the reference run's (b)
-    and returns an object with ``difference``, ``low``, ``high`` and ``p_value``; without it
-    the project's paired bootstrap on word macro-F1 is used when available.
+    on the ranking score and returns an object with ``difference``, ``low``, ``high`` and
+    ``p_value``; without it the project's paired bootstrap on word macro-F1 is used when
+    available. ``written`` is the date the page states (today by default).
     """
     bundles = list(bundles)
     if not bundles:
@@ -68,40 +52,49 @@ def write_report(bundles: Sequence[RunBundle], out_path: str | Path, *,
     reference_index = resolve_reference(bundles, names, reference)
     if paired is None:
         paired, paired_note = default_paired(bundles)
+        measure = score_words("macro_f1")
     else:
         paired_note = "Difference as computed by the supplied paired comparison."
+        measure = score_words(score)
+    pairing = pair_with_reference(bundles, reference_index, paired, paired_note, measure)
     labels = class_order(bundles)
+    words = score_words(score)
 
-    sections = [
-        section("leaderboard", "Runs ranked by " + score,
-                leaderboard(bundles, names, order, score, reference_index, paired, paired_note)),
-        section("per-class", "F1 per class", _per_class(bundles, names, order, labels)),
-        section("confusion", "Confusion of the top runs", _confusion(bundles, names, order)),
-        section("per-layout", "Scores per layout", _per_layout(bundles, names, order)),
-        section("calibration", "Calibration", _calibration(bundles, names, order)),
+    chapters = [
+        ("leaderboard", f"Runs ranked by {words}",
+         leaderboard(bundles, names, order, score, pairing)),
+        ("per-class", "Word F1 per class and run", _per_class(bundles, names, order, labels)),
+        ("confusion", "Which classes the top runs confuse", _confusion(bundles, names, order)),
+        ("per-layout", "Word macro-F1 per layout family", _per_layout(bundles, names, order)),
+        ("calibration", "How far confidence matches accuracy",
+         _calibration(bundles, names, order)),
     ]
     curves = [(names[i], learning_curve(bundles[i], score)) for i in order]
     curves = [(name, points) for name, points in curves if points]
     if curves:
-        sections.append(section("learning-curves", "Score against training documents",
-                                 [image(plots.learning_plot(curves, score), "learning curves")]))
+        heading = f"{words[0].upper()}{words[1:]} against training documents"
+        chapters.append(("learning-curves", heading,
+                         [image(plots.learning_plot(curves, words), "learning curves")]))
     best = bundles[order[0]]
     page_labels = _with_unlisted(best, labels)
     if overlay_pages > 0:
-        sections.append(section("pages", f"Test pages as predicted by {names[order[0]]}",
-                                [paragraph("Boxes are filled with the predicted class; wrong "
-                                           "predictions have a thick black outline. Hover a "
-                                           "box for its text and classes.")]
-                                + overlays(best, page_labels, overlay_pages)))
-    sections.append(section("runs", "How each run was made", _provenance(bundles, names, order)))
+        chapters.append(("pages", f"Test pages as predicted by {names[order[0]]}",
+                         [paragraph("Boxes are filled with the predicted class; wrong "
+                                    "predictions have a thick black outline. Hover a box for "
+                                    "its text and classes.")]
+                         + overlays(best, page_labels, overlay_pages)))
+    chapters.append(("runs", "How each run was made", _provenance(bundles, names, order)))
 
     n_words = len(best.predictions)
-    lede = (f"{len(bundles)} run(s), ranked by {score}; {n_words:,} test words, "
+    lede = (f"{len(bundles)} run(s), ranked by {words}; {n_words:,} test words, "
             f"{best.predictions['doc_id'].nunique():,} test documents in the best run.")
+    top = [paragraph(verdict(bundles, names, order, score, pairing), "verdict", "verdict"),
+           facts(provenance(bundles, written or dt.date.today()), "facts"),
+           contents([(i, heading) for i, heading, _ in chapters])]
     out_path = Path(out_path)
     out_path.parent.mkdir(parents=True, exist_ok=True)
-    out_path.write_text(document(title, lede, sections,
-                                 OVERLAY_STYLE + "\n" + class_style(page_labels)),
+    out_path.write_text(document(title, lede, [section(*c) for c in chapters],
+                                 OVERLAY_STYLE + "\n" + class_style(page_labels), top=top),
                         encoding="utf-8")
     return out_path
 
@@ -119,13 +112,14 @@ def _per_class(bundles, names, order, labels) -> list[Html]:
         return [note("No run has per-class scores (metrics f1/<class>).")]
     return [image(plots.f1_heatmap([names[i] for i in order], labels, values),
                   "F1 per class and run"),
-            note("Grey cells: the run has no score for that class.")]
+            note("Blank cells: the run has no score for that class. Dark cells are low scores.")]
 
 
 def _confusion(bundles, names, order) -> list[Html]:
     panels = [(names[i], *confusion_rows(bundles[i])) for i in order[:2]]
     return [image(plots.confusion_panels(panels), "confusion matrices"),
-            note("Rows are true classes and sum to 1; grey rows have no test words.")]
+            note("Rows are true classes and sum to 1; the darker a cell, the larger the share. "
+                 "Blank cells hold no words, blank rows classes without test words.")]
 
 
 def _per_layout(bundles, names, order) -> list[Html]:
@@ -137,7 +131,7 @@ def _per_layout(bundles, names, order) -> list[Html]:
     rows = [[layout, f"{int(row['words']):,}", *(number(row[r]) for r in runs)]
             for layout, row in scores.iterrows()]
     parts = [Html('<div class="scroll">'),
-             table(["layout", "test words", *runs], rows, numeric=range(1, len(runs) + 2),
+             table(["layout family", "test words", *runs], rows, numeric=range(1, len(runs) + 2),
                    nowrap=[0], table_id="layout-table"),
              Html("</div>"), note("Word macro-F1 over the classes present in each layout.")]
     skipped = [names[i] for i in order if i not in chosen]

@@ -3,10 +3,11 @@
 from __future__ import annotations
 
 from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
 from typing import Any
 
 from dochar.report.page import Html, amount, count, interval, note, number, table
-from dochar.report.summaries import ReportInputError, class_order, metric
+from dochar.report.summaries import ReportInputError, class_order, metric, score_words
 from dochar.runs.bundle import RunBundle
 
 PairedFn = Callable[[Any, Any], Any]
@@ -55,55 +56,85 @@ def _cost(bundle: RunBundle, key: str) -> float | None:
     return None if value is None else float(value)
 
 
-def _paired_cells(paired: PairedFn, run: RunBundle, reference: RunBundle,
-                  failures: list[str], name: str) -> list[str]:
-    try:
-        result = paired(run.predictions, reference.predictions)
-    except ValueError as error:   # e.g. the two runs were tested on different documents
-        failures.append(f"No paired difference for {name}: {error}")
+@dataclass
+class Pairing:
+    """Each run's paired result against the reference, computed once for table and verdict.
+
+    ``results`` is None when no comparison is available; ``failures`` holds why a run could
+    not be paired (e.g. it was tested on other documents).
+    """
+
+    reference: int | None
+    results: dict[int, Any] | None
+    note: str
+    measure: str = "word macro-F1"
+    failures: dict[int, str] = field(default_factory=dict)
+
+
+def pair_with_reference(bundles: Sequence[RunBundle], reference: int | None,
+                        paired: PairedFn | None, paired_note: str,
+                        measure: str = "word macro-F1") -> Pairing:
+    if paired is None or reference is None:
+        return Pairing(reference, None, paired_note, measure)
+    pairing = Pairing(reference, {}, paired_note, measure)
+    for i, bundle in enumerate(bundles):
+        if i == reference:
+            continue
+        try:
+            pairing.results[i] = paired(bundle.predictions, bundles[reference].predictions)
+        except ValueError as error:   # e.g. the two runs were tested on different documents
+            pairing.failures[i] = str(error)
+    return pairing
+
+
+def _paired_cells(pairing: Pairing, i: int) -> list[str]:
+    if i == pairing.reference:
+        return ["reference", "", ""]
+    if i in pairing.failures:
         return ["n/a", "", ""]
+    result = pairing.results[i]
     return [f"{float(result.difference):+.3f}", interval(result.low, result.high),
             p_value(result.p_value)]
 
 
 def leaderboard(bundles: Sequence[RunBundle], names: Sequence[str], order: Sequence[int],
-                score: str, reference_index: int | None, paired: PairedFn | None,
-                paired_note: str) -> list[Html]:
+                score: str, pairing: Pairing) -> list[Html]:
     """The table (best run first) and the notes that explain or qualify it."""
-    show_paired = paired is not None and reference_index is not None
-    headers = ["#", "run", "model", score, "95% interval", "entity F1"]
-    titles = [f"rank by {score}", "", "tags: model", "test score used for ranking",
+    show_paired = pairing.results is not None
+    words = score_words(score)
+    headers = ["#", "run", "model", words, "95% interval", "entity F1"]
+    titles = [f"rank by {words}", "", "tags: model", "test score used for ranking",
               f"from metrics {score}_low / {score}_high", "entity-level F1"]
     if show_paired:
         headers += ["vs reference", "95% interval", "p"]
-        titles += ["this run minus the reference run, same test words", "of the difference",
-                   "two-sided p-value for no difference"]
+        titles += [f"this run minus the reference run, {pairing.measure}, same test documents",
+                   "of the difference", "two-sided p-value for no difference"]
     headers += ["train (s)", "pages/s", "parameters"]
     titles += ["training wall-clock seconds", "test pages per second", "as recorded by the run"]
-    rows, classes, failures = [], [], []
+    rows, classes = [], []
     for rank, i in enumerate(order, start=1):
         bundle = bundles[i]
         row = [str(rank), names[i], bundle.tags.get("model", ""), number(metric(bundle, score)),
                interval(metric(bundle, f"{score}_low"), metric(bundle, f"{score}_high")),
                number(metric(bundle, "entity_f1"))]
         if show_paired:
-            row += (["reference", "", ""] if i == reference_index else
-                    _paired_cells(paired, bundle, bundles[reference_index], failures, names[i]))
+            row += _paired_cells(pairing, i)
         row += [amount(_cost(bundle, "train_seconds")), amount(_cost(bundle, "pages_per_second")),
                 count(_cost(bundle, "parameters"))]
         rows.append(row)
         classes.append(" ".join(c for c, on in (("best", rank == 1),
-                                                ("reference", i == reference_index)) if on))
+                                                ("reference", i == pairing.reference)) if on))
     numeric = [0, 3, 4, 5, *range(6, len(headers))]
     parts = [Html('<div class="scroll">'),
              table(headers, rows, numeric=numeric, nowrap=[1, 2], table_id="leaderboard-table",
                    row_classes=classes, titles=titles),
              Html("</div>")]
     if show_paired:
-        parts.append(note(f"Reference run: {names[reference_index]}. {paired_note}"))
-    elif paired is None:
-        parts.append(note(paired_note))
+        parts.append(note(f"Reference run: {names[pairing.reference]}. {pairing.note}"))
+    elif pairing.reference is not None:
+        parts.append(note(pairing.note))
     else:
         parts.append(note("Paired differences are not shown: no reference run was named and no "
                           f"run is tagged model={REFERENCE_MODEL}."))
-    return parts + [note(text) for text in failures]
+    return parts + [note(f"No paired difference for {names[i]}: {pairing.failures[i]}")
+                    for i in order if i in pairing.failures]

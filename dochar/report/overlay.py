@@ -10,7 +10,6 @@ from collections.abc import Sequence
 
 import numpy as np
 import pandas as pd
-from matplotlib import colormaps
 
 from dochar.report.page import Html, esc, note, number, table
 from dochar.runs.bundle import RunBundle
@@ -19,30 +18,55 @@ SVG_WIDTH = 520
 ERROR_ROWS = 40
 EDGE_COLUMNS = ("doc_id", "page", "source", "target", "relation")
 NO_TEXT = Html('<i class="note">(no text)</i>')
-# tab20 reordered so the first ten classes get the ten saturated colours.
-_TAB20 = [colormaps["tab20"](i) for i in range(20)]
-PALETTE = [f"#{int(r * 255):02x}{int(g * 255):02x}{int(b * 255):02x}"
-           for r, g, b, _ in _TAB20[0::2] + _TAB20[1::2]]
-EDGE_COLOURS = ("#4a5a6a", "#b5651d", "#2e7d32", "#6a1b9a", "#00838f", "#ad1457")
+# Class fills: Paul Tol's "muted" qualitative scheme, told apart by colour-blind readers
+# (P. Tol, "Colour Schemes", SRON technical note SRON/EPS/TN/09-002, scheme "muted"; hex values
+# from memory). Classes past the ninth reuse the colours under white diagonal hatching.
+PALETTE = ("#CC6677", "#332288", "#DDCC77", "#117733", "#88CCEE", "#882255", "#44AA99",
+           "#999933", "#AA4499")
+# Edge lines: Okabe & Ito's colour-universal palette ("Color Universal Design: how to make
+# figures and presentations that are friendly to colorblind people", 2008), black left out.
+EDGE_COLOURS = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9")
 
 OVERLAY_STYLE = """
-.overlay .sheet{fill:#fff;stroke:#888;stroke-width:1px;vector-effect:non-scaling-stroke}
+.overlay .sheet{fill:#fff;stroke:#8a969e;stroke-width:1px;vector-effect:non-scaling-stroke}
 .overlay .w{fill-opacity:.62;stroke:#0005;stroke-width:.5px;vector-effect:non-scaling-stroke}
 .overlay .w.err{fill-opacity:.9;stroke:#000;stroke-width:2.4px}
-.overlay .w:hover{stroke:#d00;stroke-width:2.4px}
+.overlay .w:hover{stroke:#a64b00;stroke-width:2.4px}
 .overlay .edge{fill:none;stroke-width:.7px;stroke-opacity:.6;vector-effect:non-scaling-stroke}
+.legend .swatch rect{fill-opacity:.62;stroke:#0005;stroke-width:1px}
+.legend .swatch rect.err{fill:#fff;fill-opacity:1;stroke:#000;stroke-width:3px}
 """.strip()
 
 
+def _fill(i: int) -> str:
+    return PALETTE[i] if i < len(PALETTE) else f"url(#hatch-{i})"
+
+
+def hatch_patterns(n_labels: int) -> Html:
+    """SVG patterns for classes past the palette: its colour under white diagonal lines."""
+    patterns = [f'<pattern id="hatch-{i}" width="6" height="6" patternUnits="userSpaceOnUse" '
+                f'patternTransform="rotate(45)"><rect width="6" height="6" '
+                f'fill="{PALETTE[i % len(PALETTE)]}"/><rect width="2.2" height="6" fill="#fff"/>'
+                f"</pattern>" for i in range(len(PALETTE), n_labels)]
+    if not patterns:
+        return Html("")
+    return Html('<svg width="0" height="0" style="position:absolute" aria-hidden="true">'
+                f'<defs>{"".join(patterns)}</defs></svg>')
+
+
 def class_style(labels: Sequence[str]) -> str:
-    """CSS fill classes ``.c<i>`` for the ordered labels (colours repeat past twenty)."""
-    return "\n".join(f".c{i}{{fill:{PALETTE[i % len(PALETTE)]}}}" for i in range(len(labels)))
+    """CSS fill classes ``.c<i>`` for the ordered labels (hatched past the palette)."""
+    return "\n".join(f".c{i}{{fill:{_fill(i)}}}" for i in range(len(labels)))
+
+
+def _swatch(css: str) -> str:
+    return (f'<svg class="swatch" viewBox="0 0 14 14" aria-hidden="true">'
+            f'<rect class="{css}" x="1" y="1" width="12" height="12"/></svg>')
 
 
 def legend(labels: Sequence[str], relations: Sequence[str] = ()) -> Html:
-    items = [f'<span><i class="swatch" style="background:{PALETTE[i % len(PALETTE)]}"></i>'
-             f"{esc(label)}</span>" for i, label in enumerate(labels)]
-    items.append('<span><i class="swatch error"></i>wrong prediction</span>')
+    items = [f"<span>{_swatch(f'c{i}')}{esc(label)}</span>" for i, label in enumerate(labels)]
+    items.append(f"<span>{_swatch('err')}wrong prediction</span>")
     for i, relation in enumerate(relations):
         items.append(f'<span><i class="swatch" style="background:'
                      f'{EDGE_COLOURS[i % len(EDGE_COLOURS)]};height:3px"></i>'
@@ -150,7 +174,7 @@ def overlays(bundle: RunBundle, labels: Sequence[str], n_pages: int) -> list[Htm
         else:
             edges = bundle.edges
             relations = sorted(edges["relation"].astype(str).unique())
-    blocks.append(legend(labels, relations))
+    blocks += [hatch_patterns(len(labels)), legend(labels, relations)]
     doc_ids = predictions["doc_id"].astype(str)
     for doc_id, page in choose_pages(predictions, n_pages):
         words = predictions[(doc_ids == doc_id) & (predictions["page"] == page)]

@@ -66,6 +66,15 @@ def display_names(bundles: Sequence[RunBundle]) -> list[str]:
     return names
 
 
+SCORE_WORDS = {"macro_f1": "word macro-F1", "micro_f1": "word micro-F1",
+               "entity_f1": "entity F1"}
+
+
+def score_words(key: str) -> str:
+    """A metric key as the page says it: 'macro_f1' -> 'word macro-F1'."""
+    return SCORE_WORDS.get(key, key.replace("/", " ").replace("_", " "))
+
+
 def metric(bundle: RunBundle, key: str) -> float | None:
     value = bundle.metrics.get(key)
     if value is None or not math.isfinite(float(value)):

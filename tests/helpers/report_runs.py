@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import json
 import re
+import subprocess
 import time
 from html import unescape
 from html.parser import HTMLParser
@@ -22,7 +23,7 @@ from sklearn.neighbors import NearestNeighbors
 from sklearn.tree import DecisionTreeClassifier
 
 import data_synth
-from dochar.data.word_table import validate_word_table
+from dochar.data.word_table import table_fingerprint, validate_word_table
 from dochar.runs.bundle import PREDICTION_COLUMNS, PROBABILITY_PREFIX, RunBundle
 
 FUNSD_LABELS = ["header", "question", "answer", "other"]
@@ -159,29 +160,41 @@ def fit_run(name: str, model, train: pd.DataFrame, test: pd.DataFrame, tags: dic
         tags=tags, command=f"python -m dochar train model={tags['model']} name='{name}' && echo")
 
 
+def run_tags(dataset: str, protocol: str, table: pd.DataFrame) -> dict[str, str]:
+    """The provenance tags a dochar run records (dochar/experiment.py, dochar/tracking.py)."""
+    commit = subprocess.run(["git", "rev-parse", "HEAD"], capture_output=True, text=True,
+                            cwd=Path(__file__).parent).stdout.strip() or "unknown"
+    return {"dataset": dataset, "split_protocol": protocol,
+            "data_fingerprint": table_fingerprint(table), "git_commit": commit}
+
+
 def funsd_runs(funsd_root: Path) -> list[RunBundle]:
     train = read_forms(funsd_root / "training_data", 10)
     test = read_forms(funsd_root / "testing_data", 5)
     first = test.groupby("doc_id")["word_id"].idxmin()
     test.loc[first, "text"] = HOSTILE   # one hostile word per test page, to prove escaping
-    tree = {"model": "decision_tree"}
+    # FUNSD's own training/testing folders: the "fixed" protocol.
+    common = run_tags("funsd", "fixed", pd.concat([train, test], ignore_index=True))
+    tree = {"model": "decision_tree", **common}
     forest = RandomForestClassifier(n_estimators=40, min_samples_leaf=2, random_state=0)
     return [fit_run("shallow tree", DecisionTreeClassifier(max_depth=3, random_state=0), train,
                     test, tree),
             fit_run("deep tree", DecisionTreeClassifier(max_depth=12, random_state=0), train,
                     test, tree),
-            fit_run("forest & friends", forest, train, test, {"model": "random_forest"},
+            fit_run("forest & friends", forest, train, test, {"model": "random_forest", **common},
                     curve_sizes=(2, 5, 10))]
 
 
 def synthetic_runs(n_runs: int) -> list[RunBundle]:
-    """Trees of growing depth on generated certificates (8 documents train, 4 test)."""
-    table = data_synth.generate(n_documents=12, seed=0)
+    """Trees of growing depth on generated certificates, the last two layout families held out
+    of training (16 documents train, 4 test)."""
+    table = data_synth.generate(n_documents=20, seed=0)
     table = validate_word_table(table, list(data_synth.LABELS), strict=True).table
-    docs = sorted(table["doc_id"].unique())
-    train, test = table[table["doc_id"].isin(docs[:8])], table[table["doc_id"].isin(docs[8:])]
+    held_out = table["layout_id"].isin(data_synth.LAYOUT_IDS[-2:])
+    train, test = table[~held_out], table[held_out]
+    tags = {"model": "decision_tree", **run_tags("synth", "layout_held_out", table)}
     return [fit_run(f"tree depth {depth}", DecisionTreeClassifier(max_depth=depth, random_state=0),
-                    train, test, {"model": "decision_tree"}, labels=list(data_synth.LABELS))
+                    train, test, tags, labels=list(data_synth.LABELS))
             for depth in range(2, 2 + 2 * n_runs, 2)]
 
 

@@ -7,8 +7,11 @@ number the report shows can be recomputed independently with scikit-learn and co
 from __future__ import annotations
 
 import base64
+import datetime as dt
 import io
 import re
+from html import unescape
+from importlib import metadata
 from pathlib import Path
 
 import matplotlib.image
@@ -22,16 +25,9 @@ from dochar.report import ReportInputError, write_report
 from dochar.runs.store import RunLookupError, RunStore
 from dochar.report.summaries import confusion_rows, display_names, reliability
 from dochar.runs.bundle import RunBundle
-from tests.helpers.report_runs import (
-    FUNSD_LABELS,
-    StartTags,
-    document_counts,
-    document_draws,
-    funsd_runs,
-    macro_f1_of_counts,
-    synthetic_runs,
-    table_cells,
-)
+from tests.helpers.report_runs import (FUNSD_LABELS, StartTags, document_counts, document_draws,
+                         funsd_runs, macro_f1_of_counts, synthetic_runs, table_cells)
+from tests.helpers.report_verdict import check_verdict, facts_of
 
 
 @pytest.fixture(scope="module")
@@ -54,7 +50,7 @@ def test_leaderboard_is_first_and_ranked_by_recomputed_score(runs, report):
                                    average="macro") for r in runs}
     header, rows = table_cells(report, "leaderboard-table")
     assert [row[1] for row in rows] == sorted(recomputed, key=recomputed.get, reverse=True)
-    score_col = header.index("macro_f1")
+    score_col = header.index("word macro-F1")
     assert [row[score_col] for row in rows] == [f"{recomputed[row[1]]:.3f}" for row in rows]
     by_name = {r.name: r for r in runs}
     for row in rows:
@@ -65,6 +61,10 @@ def test_leaderboard_is_first_and_ranked_by_recomputed_score(runs, report):
     sections = re.findall(r'<section id="([^"]+)"', report)
     assert sections == ["leaderboard", "per-class", "confusion", "per-layout", "calibration",
                         "learning-curves", "pages", "runs"]
+    # Headings in words, never metric keys (issue 9): no underscores, the score spelled out.
+    headings = [unescape(h) for h in re.findall(r"<h2>(.*?)</h2>", report)]
+    assert headings[0] == "Runs ranked by word macro-F1"
+    assert not [h for h in headings if "_" in h]
     # FUNSD has no layout families: the section says so instead of showing an empty table.
     layouts = re.search(r'<section id="per-layout">.*?</section>', report, flags=re.S).group(0)
     assert "no layout ids" in layouts and "<table" not in layouts
@@ -153,6 +153,14 @@ def test_paired_column_shows_what_the_given_comparison_returns(runs, tmp_path):
                                           "< 0.001" if result.p_value < 0.0005
                                           else f"{result.p_value:.3f}"]
     assert len(results) == len(runs) - 1
+    # The verdict carries the same numbers, here from the test's own bootstrap: the best run
+    # other than the reference is the forest (sklearn scores), and it is the one described.
+    forest = next(r for r in runs if r.name == "forest & friends")
+    mine = results[id(forest.predictions)]
+    said = check_verdict(html, runs, reference="deep tree", measure="macro_f1")
+    assert said.challenger == "forest & friends"
+    assert np.isclose(said.difference, mine.difference, atol=5e-4)
+    assert np.allclose([said.low, said.high], [mine.low, mine.high], atol=5e-4)
 
 
 def test_default_reference_is_the_random_forest_with_the_project_comparison(runs, report,
@@ -175,6 +183,75 @@ def test_default_reference_is_the_random_forest_with_the_project_comparison(runs
     header, rows = table_cells(html, "leaderboard-table")
     assert rows[-1][1] == "partial" and rows[-1][column] == "n/a"
     assert "No paired difference for partial: " in html
+
+
+def test_verdict_opens_the_page_and_agrees_with_the_leaderboard(runs, report):
+    # Default report: the forest is the reference and ranks first, so the verdict compares
+    # the runner-up with it; the project's paired bootstrap supplies interval and p-value.
+    assert report.index('id="verdict"') < report.index('<section id="leaderboard"')
+    said = check_verdict(report, runs, reference="forest & friends", measure="macro_f1")
+    assert said.challenger == "deep tree" and said.form == "reference beats"
+    assert said.documents == runs[0].predictions["doc_id"].nunique() and said.families is None
+
+
+def test_verdict_of_a_run_beating_the_reference(runs, tmp_path):
+    html = write_report(runs, tmp_path / "v.html", reference="shallow tree").read_text()
+    said = check_verdict(html, runs, reference="shallow tree", measure="macro_f1")
+    assert said.challenger == "forest & friends"
+
+
+def test_verdict_says_plainly_when_there_is_no_clear_difference(runs, tmp_path):
+    # The same predictions under another name: difference 0, interval [0, 0] covers 0.
+    forest = next(r for r in runs if r.name == "forest & friends")
+    again = RunBundle(name="forest again", labels=forest.labels, metrics=dict(forest.metrics),
+                      predictions=forest.predictions, tags={"model": "forest_copy"})
+    html = write_report([forest, again], tmp_path / "tie.html").read_text()
+    said = check_verdict(html, [forest, again], reference="forest & friends",
+                         measure="macro_f1")
+    assert said.form == "no clear difference" and said.challenger == "forest again"
+
+
+def test_verdict_names_the_layout_families_held_out(tmp_path):
+    runs = synthetic_runs(3)
+    html = write_report(runs, tmp_path / "synthetic.html", overlay_pages=0,
+                        reference="tree depth 2").read_text()
+    said = check_verdict(html, runs, reference="tree depth 2", measure="macro_f1")
+    test = runs[0].predictions
+    assert said.documents == test["doc_id"].nunique() == 4
+    assert said.families == test["layout_id"].nunique() == 2
+
+
+def test_facts_under_the_verdict_come_from_the_runs_or_the_installed_libraries(runs, tmp_path):
+    facts = facts_of(write_report(runs, tmp_path / "f.html",
+                                  written=dt.date(2026, 12, 1)).read_text())
+    tags = runs[0].tags
+    assert facts["written"] == "2026-12-01"
+    assert facts["data"] == f"funsd, fingerprint {tags['data_fingerprint']}"
+    assert facts["split protocol"] == "fixed"
+    assert facts["commit"] == tags["git_commit"][:12]
+    # No run records versions: the installed ones, read from each package's own __version__.
+    import mlflow
+    import numpy
+    import sklearn
+    import torch
+    import torch_geometric
+    installed = {"torch": torch.__version__, "torch-geometric": torch_geometric.__version__,
+                 "scikit-learn": sklearn.__version__, "numpy": numpy.__version__,
+                 "mlflow": mlflow.__version__}
+    assert facts["libraries"] == (", ".join(f"{k} {v}" for k, v in installed.items())
+                                  + " (installed where this report was written)")
+    # Runs that record their versions are believed; runs that disagree are shown as such.
+    recorded = [RunBundle(name=r.name, labels=r.labels, metrics=r.metrics,
+                          predictions=r.predictions,
+                          tags={**r.tags, "version/numpy": "1.26.4" if i else "2.0.0",
+                                "data_fingerprint": "abc" if i else "xyz"})
+                for i, r in enumerate(runs)]
+    facts = facts_of(write_report(recorded, tmp_path / "g.html").read_text())
+    assert "numpy differs between runs: 1.26.4 (2 runs), 2.0.0 (1 run)" in facts["libraries"]
+    assert f"torch {metadata.version('torch')}" in facts["libraries"]
+    assert facts["libraries"].endswith(
+        "(installed where this report was written / recorded by the runs)")
+    assert facts["data"] == "funsd, fingerprint differs between runs: abc (2 runs), xyz (1 run)"
 
 
 def test_confusion_rows_match_scikit_learn(runs):
@@ -221,6 +298,7 @@ def test_per_layout_scores_match_scikit_learn_on_generated_certificates(tmp_path
     assert "learning-curves" not in html   # no curve/<n>/macro_f1 metrics in these runs
     assert html.count('<div class="overlay"') == 1
     assert ">vs reference<" not in html and "no reference run was named" in html
+    assert "no reference run to compare with" in html
 
 
 def test_report_stays_small_and_is_deterministic(runs, report, tmp_path):

@@ -1,4 +1,5 @@
-"""The report opened in headless Chromium: no script errors, every image decodes, rows match."""
+"""The report opened in headless Chromium: no script errors, every image decodes, rows match,
+the verdict comes first and numbers are set to be read (screenshot in test-artifacts/)."""
 
 from __future__ import annotations
 
@@ -49,6 +50,15 @@ def test_report_renders_cleanly_in_chromium(funsd_root, tmp_path):
             widths = page.eval_on_selector_all(
                 "img", "images => images.map(i => i.complete ? i.naturalWidth : 0)")
             first_heading = page.locator("main section h2").first.inner_text()
+            verdict = page.locator("header #verdict")
+            verdict_text = verdict.inner_text()
+            verdict_bottom = verdict.bounding_box()["y"] + verdict.bounding_box()["height"]
+            table_top = page.locator("#leaderboard-table").bounding_box()["y"]
+            number_style = page.eval_on_selector(
+                "#leaderboard-table td.num", "cell => [getComputedStyle(cell).textAlign, "
+                "getComputedStyle(cell).fontVariantNumeric]")
+            section_number = page.eval_on_selector(
+                "main section h2", "h => getComputedStyle(h, '::before').content")
             overlay_boxes = page.locator(".overlay svg rect.w").count()
             screenshot = REPO / "test-artifacts" / "report.png"
             screenshot.parent.mkdir(parents=True, exist_ok=True)
@@ -61,5 +71,10 @@ def test_report_renders_cleanly_in_chromium(funsd_root, tmp_path):
     assert [u for u in requests if not u.startswith(("file://", "data:"))] == []
     assert rows == len(runs)
     assert widths and all(w > 0 for w in widths)
-    assert first_heading.startswith("Runs ranked by")
+    assert first_heading == "Runs ranked by word macro-F1"
+    # The page answers first: the verdict sits above the leaderboard and names the measure.
+    assert verdict_bottom < table_top and "word macro-F1" in verdict_text
+    # Numbers are right-aligned in equal-width figures; sections are numbered.
+    assert number_style[0] == "right" and "tabular-nums" in number_style[1]
+    assert section_number not in ("none", "normal", "")
     assert overlay_boxes > 0
