@@ -37,18 +37,20 @@ def _finish(cfg, bundle, model) -> float:
 
     from dochar.report.run_folder import write_run_files
     from dochar.runs.console import console, ranking_table
-    from dochar.runs.tracking import log_run, resolve_uri
+    from dochar.runs.tracking import log_run, resolve_uri, ui_hint
 
     hydra_cfg = HydraConfig.get()
     bundle.command = " ".join(["dochar", _SUBCOMMAND[0], *hydra_cfg.overrides.task])
     folder = Path(hydra_cfg.runtime.output_dir) / "run"
     write_run_files(folder, bundle, model)
+    uri = resolve_uri(cfg.tracking.uri)
     if cfg.tracking.enabled:
-        log_run(bundle, folder, uri=resolve_uri(cfg.tracking.uri),
-                experiment=str(cfg.tracking.experiment))
+        log_run(bundle, folder, uri=uri, experiment=str(cfg.tracking.experiment))
     else:
         bundle.save(folder)
     console.print(ranking_table([bundle], title=f"run {bundle.name}"))
+    if cfg.tracking.enabled and not hydra_cfg.mode.name == "MULTIRUN":
+        console.print(ui_hint(uri, str(cfg.tracking.experiment)))
     return float(bundle.metrics["macro_f1"])
 
 

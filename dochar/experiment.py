@@ -10,6 +10,7 @@ import logging
 from typing import Any
 
 import numpy as np
+import pandas as pd
 import torch
 from omegaconf import DictConfig, OmegaConf
 
@@ -62,6 +63,16 @@ def run_name(cfg: DictConfig) -> str:
     return f"{system}/{graph}/{'+'.join(cfg.features.groups)}"
 
 
+def document_table(table: pd.DataFrame, part_of: dict[str, str]) -> pd.DataFrame:
+    """One row per document the run used: its part of the split, layout, pages and words."""
+    docs = table.assign(doc_id=table["doc_id"].astype(str))
+    frame = docs.groupby("doc_id").agg(pages=("page", "nunique"), words=("word_id", "size"))
+    if "layout_id" in docs:
+        frame["layout_id"] = docs.groupby("doc_id")["layout_id"].first().astype(str)
+    frame.insert(0, "part", frame.index.map(part_of))
+    return frame[frame["part"].notna()]
+
+
 def run_experiment(cfg: DictConfig) -> tuple[RunBundle, Any]:
     """Run the composed config; returns the run's bundle and the fitted model."""
     check_names(cfg)
@@ -91,10 +102,12 @@ def run_experiment(cfg: DictConfig) -> tuple[RunBundle, Any]:
     metrics.update(split.notes)
     if not split.leakage.empty:
         scores.tables["leakage"] = split.leakage
+    scores.tables["documents"] = document_table(split.table, part_of)
     tags = {"dataset": str(cfg.data.name), "split_protocol": str(cfg.split.protocol),
             "graph_builder": str(cfg.graph.name), "features": "+".join(cfg.features.groups),
             "model": system_name(cfg.model), "model_kind": str(cfg.model.kind),
-            "seed": str(cfg.seed), "data_fingerprint": table_fingerprint(data.table)}
+            "seed": str(cfg.seed), "data_fingerprint": table_fingerprint(data.table),
+            "data_source": str(cfg.data.get("path") or cfg.data.get("source") or "")}
     bundle = RunBundle(name=run_name(cfg), labels=labels, metrics=metrics,
                        predictions=predictions,
                        config=OmegaConf.to_container(cfg, resolve=True), cost=fitted.cost,

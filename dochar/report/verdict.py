@@ -15,11 +15,11 @@ from dochar.report.leaderboard import Pairing, p_value
 from dochar.report.page import interval, number
 from dochar.report.summaries import has_layouts, metric, score_words
 from dochar.runs.bundle import RunBundle
+from dochar.runs.tracking import LIBRARIES
 from dochar.splits.protocols import LAYOUT_PROTOCOLS
 
-# Distribution names as pip knows them; a run may record each as tag "version/<name>" or under
+# A run records each library's version as tag "version/<name>" (dochar.runs.tracking) or under
 # the config key "versions".
-LIBRARIES = ("torch", "torch-geometric", "scikit-learn", "numpy", "mlflow")
 
 
 def _scope(bundle: RunBundle, n_documents: int) -> str:

@@ -18,12 +18,8 @@ from omegaconf import DictConfig
 from dochar.runs.aggregate import aggregate_runs
 from dochar.runs.bundle import RunBundle
 from dochar.runs.console import aggregate_table, console, print_comparison
-from dochar.runs.tracking import (
-    SWEEP_ID_ENV,
-    SWEEP_PARENT_ENV,
-    ensure_experiment,
-    resolve_uri,
-)
+from dochar.runs.tracking import (SWEEP_ID_ENV, SWEEP_PARENT_ENV, ensure_experiment, resolve_uri,
+                                  ui_hint)
 
 RUN_FOLDER = "run"
 REPEAT_KEYS = ("seed", "split.fold")  # overrides that repeat a system rather than change it
@@ -96,4 +92,5 @@ class SweepTable(Callback):
                     client.log_artifact(run_id, str(sweep_dir / name))
             client.set_terminated(run_id)
             os.environ.pop(SWEEP_PARENT_ENV, None)
+            console.print(ui_hint(uri, str(config.tracking.experiment)))
         os.environ.pop(SWEEP_ID_ENV, None)

@@ -14,6 +14,7 @@ from pathlib import Path
 from typing import Any
 
 import mlflow
+import mlflow.data
 from mlflow.tracking import MlflowClient
 
 from dochar.runs.bundle import RunBundle
@@ -22,6 +23,10 @@ DEFAULT_STORE = "mlflow.db"
 DEFAULT_ARTIFACTS = "mlartifacts"
 SWEEP_PARENT_ENV = "DOCHAR_SWEEP_PARENT"
 SWEEP_ID_ENV = "DOCHAR_SWEEP_ID"
+EXPERIMENT_KIND_TAG = "mlflow.experimentKind"
+MODEL_DEVELOPMENT = "custom_model_development"
+LOCAL_UI = "http://127.0.0.1:5000"
+LIBRARIES = ("dochar", "torch", "torch-geometric", "scikit-learn", "numpy", "pandas", "mlflow")
 
 
 def resolve_uri(configured: str | None = None) -> str:
@@ -33,16 +38,66 @@ def resolve_uri(configured: str | None = None) -> str:
 
 
 def ensure_experiment(uri: str, name: str) -> str:
-    """Create the experiment on first use, with artifacts beside a local SQLite store."""
+    """Create the experiment on first use, with artifacts beside a local SQLite store.
+
+    MLflow 3's UI opens an experiment by its kind; marking dochar's as model development makes
+    it open on the runs view (an unmarked one opens on traces, empty for dochar).
+    """
     client = MlflowClient(tracking_uri=uri)
     experiment = client.get_experiment_by_name(name)
-    if experiment is not None:
-        return experiment.experiment_id
-    location = None
-    if uri.startswith("sqlite:///"):
-        location = (Path(uri.removeprefix("sqlite:///")).parent / DEFAULT_ARTIFACTS).resolve()
-        location = location.as_uri()
-    return client.create_experiment(name, artifact_location=location)
+    if experiment is None:
+        location = None
+        if uri.startswith("sqlite:///"):
+            location = (Path(uri.removeprefix("sqlite:///")).parent / DEFAULT_ARTIFACTS).resolve()
+            location = location.as_uri()
+        experiment_id = client.create_experiment(name, artifact_location=location)
+    else:
+        experiment_id = experiment.experiment_id
+    if (experiment is None or experiment.tags.get(EXPERIMENT_KIND_TAG) != MODEL_DEVELOPMENT):
+        client.set_experiment_tag(experiment_id, EXPERIMENT_KIND_TAG, MODEL_DEVELOPMENT)
+    return experiment_id
+
+
+def runs_view(uri: str, experiment_id: str, ui: str = LOCAL_UI) -> str:
+    """The address of the experiment's runs view: on the server itself, or on `mlflow ui`
+    started over a local store at ``ui``."""
+    base = uri.rstrip("/") if uri.startswith(("http://", "https://")) else ui
+    return f"{base}/#/experiments/{experiment_id}/runs"
+
+
+def ui_hint(uri: str, experiment: str) -> str:
+    """What to run and open to see the experiment's runs, printed after every run and sweep."""
+    address = runs_view(uri, ensure_experiment(uri, experiment))
+    if uri.startswith(("http://", "https://")):
+        return f"runs of '{experiment}': {address}"
+    return (f"runs of '{experiment}': start `mlflow ui --backend-store-uri {uri} --port "
+            f"{LOCAL_UI.rsplit(':', 1)[1]}`, then open {address}")
+
+
+def library_versions() -> dict[str, str]:
+    """Versions of the libraries behind a run's numbers, as tags ``version/<distribution>``."""
+    from importlib.metadata import PackageNotFoundError, version
+
+    found = {}
+    for name in LIBRARIES:
+        try:
+            found[f"version/{name}"] = version(name)
+        except PackageNotFoundError:
+            continue
+    return found
+
+
+def log_dataset(bundle: RunBundle) -> None:
+    """The run's documents as an MLflow dataset input: runs on the same data group together."""
+    documents = bundle.tables.get("documents")
+    if documents is None:
+        return
+    dataset = mlflow.data.from_pandas(documents.reset_index(), name=bundle.tags.get("dataset"),
+                                      source=bundle.tags.get("data_source") or None,
+                                      digest=bundle.tags.get("data_fingerprint"))
+    counts = documents["part"].value_counts()
+    mlflow.log_input(dataset, context="/".join(f"{part} {counts.get(part, 0)}"
+                                               for part in ("train", "val", "test")))
 
 
 def flatten(config: Mapping[str, Any], prefix: str = "") -> dict[str, str]:
@@ -69,7 +124,7 @@ def log_run(bundle: RunBundle, folder: Path, *, uri: str, experiment: str,
     """Log params, metrics, tags and the bundle folder (artifacts); return the run id."""
     experiment_id = ensure_experiment(uri, experiment)
     mlflow.set_tracking_uri(uri)
-    bundle.tags.update({**(extra_tags or {}), "git_commit": git_commit()})
+    bundle.tags.update({**(extra_tags or {}), "git_commit": git_commit(), **library_versions()})
     if os.environ.get(SWEEP_ID_ENV):
         bundle.tags["sweep_id"] = os.environ[SWEEP_ID_ENV]
     tags = dict(bundle.tags)
@@ -80,6 +135,7 @@ def log_run(bundle: RunBundle, folder: Path, *, uri: str, experiment: str,
         mlflow.log_metrics({k: v for k, v in {**bundle.metrics, **{f"cost/{k}": v for k, v in
                                                                   bundle.cost.items()}}.items()})
         bundle.run_id = run.info.run_id
+        log_dataset(bundle)
         bundle.save(folder)
         mlflow.log_artifacts(str(folder))
     return bundle.run_id

@@ -3,29 +3,13 @@ the verdict comes first and numbers are set to be read (screenshot in test-artif
 
 from __future__ import annotations
 
-import os
-from pathlib import Path
-
 import pytest
 
 from dochar.report import write_report
-
-CHROMIUM = Path("/usr/bin/chromium")
 from tests.helpers import REPO
-
-LAUNCH_ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-               "--disable-background-networking", "--disable-component-update", "--disable-sync"]
+from tests.helpers.browser import LAUNCH_ARGS, require_chromium
 
 pytestmark = pytest.mark.browser
-
-
-def require_chromium() -> Path:
-    if not CHROMIUM.exists():
-        reason = f"headless browser not found at {CHROMIUM} (Debian package 'chromium')"
-        if os.environ.get("DOCHAR_REQUIRE_BROWSER") == "1":
-            pytest.fail(reason + "; DOCHAR_REQUIRE_BROWSER=1 makes this a failure")
-        pytest.skip(reason)
-    return CHROMIUM
 
 
 def test_report_renders_cleanly_in_chromium(funsd_root, tmp_path):

@@ -1,0 +1,117 @@
+"""What a team lead sees: a sweep's runs in MLflow's own UI, with their dataset, read back.
+
+The store is filled by the real command (`dochar run -m`), MLflow's client reads the dataset
+inputs back, and headless Chromium opens the address dochar prints (screenshot in
+test-artifacts/mlflow-runs.png).
+"""
+
+from __future__ import annotations
+
+import os
+import socket
+import subprocess
+import sys
+import time
+import urllib.request
+from pathlib import Path
+
+import pytest
+from mlflow import MlflowClient
+
+from dochar.runs.tracking import EXPERIMENT_KIND_TAG, MODEL_DEVELOPMENT, runs_view
+from tests.helpers import REPO
+from tests.helpers.browser import LAUNCH_ARGS, require_chromium
+
+EXPERIMENT = "lead view"
+SYSTEMS = ("random_forest", "logistic_regression")
+
+
+@pytest.fixture(scope="module")
+def swept(tmp_path_factory) -> tuple[Path, str]:
+    """A two-run sweep on 16 synthetic certificates, logged to an embedded store."""
+    folder = tmp_path_factory.mktemp("lead")
+    env = {**os.environ, "MLFLOW_TRACKING_URI": "", "PYTHONPATH": str(REPO)}
+    done = subprocess.run([sys.executable, "-m", "dochar.cli", "run", "-m",
+                           f"model={','.join(SYSTEMS)}", "data.documents=16",
+                           "split=random", "train.progress=false",
+                           f"tracking.experiment={EXPERIMENT}"],
+                          cwd=folder, env=env, capture_output=True, text=True, timeout=600)
+    assert done.returncode == 0, done.stderr[-3000:]
+    return folder, done.stdout
+
+
+def test_runs_carry_their_dataset_and_open_as_training_runs(swept):
+    folder, printed = swept
+    client = MlflowClient(tracking_uri=f"sqlite:///{folder / 'mlflow.db'}")
+    experiment = client.get_experiment_by_name(EXPERIMENT)
+    assert experiment.tags[EXPERIMENT_KIND_TAG] == MODEL_DEVELOPMENT
+    children = [r for r in client.search_runs([experiment.experiment_id])
+                if r.data.tags.get("kind") != "sweep"]
+    assert sorted(r.data.tags["model"] for r in children) == sorted(SYSTEMS)
+    for run in children:
+        inputs = run.inputs.dataset_inputs
+        assert len(inputs) == 1
+        dataset = inputs[0].dataset
+        assert dataset.name == run.data.tags["dataset"]
+        assert dataset.digest == run.data.tags["data_fingerprint"]
+        counts = {tag.key: tag.value for tag in inputs[0].tags}["mlflow.data.context"]
+        parts = {p.split()[0]: int(p.split()[1]) for p in counts.split("/")}
+        assert parts == {part: int(run.data.metrics[f"split/{part}_documents"])
+                         for part in ("train", "val", "test")}
+        assert sum(parts.values()) == 16
+        assert run.data.tags["version/torch"]
+    assert runs_view("sqlite:///x", experiment.experiment_id) in printed
+
+
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+@pytest.mark.browser
+def test_the_printed_address_lists_the_sweep_in_the_mlflow_ui(swept):
+    chromium = require_chromium()
+    from playwright.sync_api import sync_playwright
+
+    folder, _ = swept
+    port = _free_port()
+    server = subprocess.Popen([sys.executable, "-m", "mlflow", "ui", "--backend-store-uri",
+                               f"sqlite:///{folder / 'mlflow.db'}", "--host", "127.0.0.1",
+                               "--port", str(port), "--workers", "1"],
+                              stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    try:
+        deadline = time.monotonic() + 180
+        while True:
+            try:
+                urllib.request.urlopen(f"http://127.0.0.1:{port}/health", timeout=2)
+                break
+            except OSError:
+                assert time.monotonic() < deadline, "mlflow ui did not start"
+                time.sleep(1)
+        client = MlflowClient(tracking_uri=f"sqlite:///{folder / 'mlflow.db'}")
+        experiment_id = client.get_experiment_by_name(EXPERIMENT).experiment_id
+        address = runs_view("sqlite:///x", experiment_id, ui=f"http://127.0.0.1:{port}")
+        with sync_playwright() as p:
+            browser = p.chromium.launch(executable_path=str(chromium), args=LAUNCH_ARGS)
+            try:
+                page = browser.new_page(viewport={"width": 1400, "height": 900})
+                page.goto(address, wait_until="networkidle")
+                page.wait_for_selector("text=matching runs", timeout=90_000)
+                title = page.locator("h2, h1").all_inner_texts()
+                # the sweep is one parent row; its expander shows the runs it launched
+                page.locator('[col-id="attributes.`Run Name`"] button').first.click()
+                page.wait_for_selector(f"text={SYSTEMS[0]}/", timeout=30_000)
+                rows = " ".join(page.locator("[role=row]").all_inner_texts())
+                shot = REPO / "test-artifacts" / "mlflow-runs.png"
+                shot.parent.mkdir(parents=True, exist_ok=True)
+                page.screenshot(path=str(shot))
+            finally:
+                browser.close()
+    finally:
+        server.terminate()
+        server.wait(timeout=30)
+    assert any("Training runs" in t for t in title)
+    assert all(f"{system}/" in rows for system in SYSTEMS)
+    fingerprint = client.search_runs([experiment_id])[0].data.tags.get("data_fingerprint")
+    assert "sweep " in rows and (fingerprint is None or fingerprint in rows)
