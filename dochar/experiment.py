@@ -65,6 +65,9 @@ def run_name(cfg: DictConfig) -> str:
 def run_experiment(cfg: DictConfig) -> tuple[RunBundle, Any]:
     """Run the composed config; returns the run's bundle and the fitted model."""
     check_names(cfg)
+    if cfg.task.name == "links":
+        from dochar.link_experiment import run_links
+        return run_links(cfg)
     seed_everything(int(cfg.seed), int(cfg.train.threads))
     labels = list(cfg.data.labels)
     progress = bool(cfg.train.progress)
