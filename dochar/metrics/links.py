@@ -124,7 +124,7 @@ class GroupingF1:
         counts = pd.DataFrame(0.0, index=groups, columns=["correct", "predicted", "true"])
         for (group, _, _), rows in frame.groupby([keys, frame["doc_id"].astype(str),
                                                   frame["page"]], sort=False):
-            counts.loc[group] += _page_entity_counts(rows)
+            counts.loc[group] += np.array(_page_entity_counts(rows), dtype=float)
         return groups, counts.to_numpy(dtype=float)
 
     def from_counts(self, counts: np.ndarray) -> np.ndarray:

@@ -129,8 +129,9 @@ def form_links(form: list[dict], doc_id: str) -> list[dict]:
                 continue
             seen.add(frozenset(pair))
             first, second = pair
-            rank = [LINK_RANK.get(labels.get(end, ""), len(LINK_RANK)) for end in pair]
-            source, target = (second, first) if rank[1] < rank[0] else (first, second)
+            rank = [LINK_RANK.get(labels.get(end, "")) for end in pair]
+            flip = None not in rank and rank[1] < rank[0]
+            source, target = (second, first) if flip else (first, second)
             links.append({"doc_id": doc_id, "page": 1, "source": f"e{source}",
                           "target": f"e{target}", "kind": "key_value"})
     return links
