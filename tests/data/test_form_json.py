@@ -87,6 +87,13 @@ def test_funsd_linking_fields_become_key_value_links(funsd_root):
     assert not any("e22" in pair for pair in pairs)
     assert len(links) == 9
     assert set(links["kind"]) == {"key_value"} and set(links["doc_id"]) == {"82092117"}
+    # the one pair of FUNSD written question-first towards its heading, read by hand from
+    # training_data/annotations/00866042.json: entity 43 "PROTECTIVE PRECAUTIONS REQUIRED:" (question)
+    # and 44 "HAZARDOUS, COMPOUND" (header) list [43, 44]; the heading is the source
+    _, report = import_form_json([funsd_root / "training_data" / "annotations" /
+                                  "00866042.json"])
+    pairs = set(zip(report.links_frame()["source"], report.links_frame()["target"]))
+    assert ("e44", "e43") in pairs and ("e43", "e44") not in pairs
 
 
 def test_link_orientation_follows_the_labels(tmp_path):
