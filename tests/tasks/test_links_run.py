@@ -28,6 +28,7 @@ def dochar(cwd: Path, *args: str) -> subprocess.CompletedProcess:
     return result
 
 
+@pytest.mark.slow   # four small trainings and a compare: minutes on a shared 2-core machine
 @pytest.mark.parametrize("kind", ["key_value", "same_entity"])
 def test_links_sweep_gnn_and_forest(tmp_path, kind):
     result = dochar(tmp_path, "run", "-m", "model=relational,random_forest",
