@@ -29,12 +29,13 @@ from dochar.graphs.candidates import (
 )
 from dochar.metrics.evaluate import evaluate
 from dochar.metrics.intervals import bootstrap_interval
-from dochar.metrics.links import LINK, LINK_LABELS, NO_LINK, best_threshold, link_scorers
+from dochar.metrics.links import LINK, LINK_LABELS, NO_LINK, link_scorers
 from dochar.models.baselines import make_baseline
 from dochar.models.gnn import GNNStack, count_parameters
 from dochar.models.pairs import (
     PairInputs,
     PairScorer,
+    best_threshold,
     pair_geometry,
     pair_matrix,
     predict_pairs,

@@ -17,8 +17,6 @@ each adds one correct, one predicted and one true entity; ``page_nodes`` gives t
 
 from __future__ import annotations
 
-from collections.abc import Sequence
-
 import numpy as np
 import pandas as pd
 from scipy.sparse import coo_matrix
@@ -143,20 +141,3 @@ def link_scorers(kind: str) -> dict[str, LinkScore | GroupingF1]:
     if kind == "same_entity":
         scorers["entity_f1"] = GroupingF1()
     return scorers
-
-
-def best_threshold(probabilities: np.ndarray, labels: np.ndarray, missed: int = 0,
-                   grid: Sequence[float] | None = None) -> tuple[float, float]:
-    """(threshold, F1): the probability cut with the best link F1 on these (validation) pairs.
-
-    ``missed`` true links were no candidates: they add to FN whatever the threshold.
-    """
-    probabilities, labels = np.asarray(probabilities, float), np.asarray(labels, bool)
-    grid = np.linspace(0.05, 0.95, 19) if grid is None else np.asarray(grid, float)
-    predicted = probabilities[None, :] >= grid[:, None]
-    tp = (predicted & labels).sum(axis=1)
-    fp = (predicted & ~labels).sum(axis=1)
-    fn = (~predicted & labels).sum(axis=1) + missed
-    f1 = _safe_divide(2 * tp, 2 * tp + fp + fn)
-    best = int(np.argmax(f1))
-    return float(grid[best]), float(f1[best])

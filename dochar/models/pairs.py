@@ -23,7 +23,6 @@ from torch_geometric.loader import DataLoader
 
 from dochar.data.word_table import Page
 from dochar.graphs.base import direction_codes
-from dochar.metrics.links import best_threshold
 from dochar.models.gnn import GNNStack
 
 PAIR_GEOMETRY_NAMES: tuple[str, ...] = (
@@ -198,3 +197,21 @@ def pair_matrix(pages: Sequence[PairInputs]) -> np.ndarray:
         nodes = page.x if page.extra is None else np.hstack([page.x, page.extra])
         rows.append(np.hstack([nodes[page.pairs[0]], nodes[page.pairs[1]], page.geometry]))
     return np.vstack(rows).astype(np.float32) if rows else np.zeros((0, 0), np.float32)
+
+
+def best_threshold(probabilities: np.ndarray, labels: np.ndarray, missed: int = 0,
+                   grid: Sequence[float] | None = None) -> tuple[float, float]:
+    """(threshold, F1): the probability cut with the best link F1 on these (validation) pairs.
+
+    ``missed`` true links were no candidates: they add to FN whatever the threshold.
+    """
+    probabilities, labels = np.asarray(probabilities, float), np.asarray(labels, bool)
+    grid = np.linspace(0.05, 0.95, 19) if grid is None else np.asarray(grid, float)
+    predicted = probabilities[None, :] >= grid[:, None]
+    tp = (predicted & labels).sum(axis=1)
+    fp = (predicted & ~labels).sum(axis=1)
+    fn = (~predicted & labels).sum(axis=1) + missed
+    f1 = np.divide(2 * tp, 2 * tp + fp + fn, out=np.zeros(len(grid)),
+                   where=(2 * tp + fp + fn) > 0)
+    best = int(np.argmax(f1))
+    return float(grid[best]), float(f1[best])
