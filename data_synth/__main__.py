@@ -2,6 +2,7 @@
 
     python -m data_synth --documents 300 --seed 0 --out data/synth.parquet
     python -m data_synth --documents 5 --out data/truth.parquet --render pdf,png --render-dir data/pages
+    python -m data_synth --documents 50 --out data/words.parquet --links-out data/links.parquet
 """
 
 from __future__ import annotations
@@ -14,7 +15,7 @@ from pathlib import Path
 import pandas as pd
 from tqdm import tqdm
 
-from data_synth.generator import iter_documents
+from data_synth.generator import iter_documents_with_links
 from data_synth.layouts import LAYOUT_IDS
 from data_synth.noise import NoiseConfig
 from data_synth.render import ScanNoise, render_documents
@@ -29,6 +30,9 @@ def _parser() -> argparse.ArgumentParser:
     parser.add_argument("--seed", type=int, default=0, help="random seed (>= 0)")
     parser.add_argument("--out", type=Path, required=True,
                         help="output file; .parquet or .csv decides the format")
+    parser.add_argument("--links-out", type=Path, default=None,
+                        help="also write the links table (key -> value, column heading -> "
+                             "cell); .parquet or .csv")
     parser.add_argument("--layouts", default=None,
                         help=f"comma-separated layout ids (default all): {','.join(LAYOUT_IDS)}")
     parser.add_argument("--jitter", type=float, default=0.0, help="box jitter std in points")
@@ -56,6 +60,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     args = parser.parse_args(argv)
     if args.out.suffix.lower() not in {".parquet", ".csv"}:
         parser.error(f"--out {args.out}: use a .parquet or .csv file name")
+    if args.links_out is not None and args.links_out.suffix.lower() not in {".parquet", ".csv"}:
+        parser.error(f"--links-out {args.links_out}: use a .parquet or .csv file name")
     formats = {f.strip() for f in args.render.split(",") if f.strip()}
     if formats and args.render_dir is None:
         parser.error("--render needs --render-dir")
@@ -63,18 +69,24 @@ def main(argv: Sequence[str] | None = None) -> int:
                                                  if s.strip()]
     try:
         noise = NoiseConfig(args.jitter, args.split_rate, args.merge_rate, args.confusion_rate)
-        documents = iter_documents(args.documents, args.seed, layouts=layouts, noise=noise)
-        frames = list(tqdm(documents, total=max(args.documents, 0), unit="doc",
-                           desc="certificates"))
+        documents = iter_documents_with_links(args.documents, args.seed, layouts=layouts,
+                                              noise=noise)
+        pairs = list(tqdm(documents, total=max(args.documents, 0), unit="doc",
+                          desc="certificates"))
     except (TypeError, ValueError) as error:
         parser.error(str(error))
-    if not frames:
+    if not pairs:
         parser.error("--documents must be at least 1")
-    table = pd.concat(frames, ignore_index=True)
+    table = pd.concat([words for words, _ in pairs], ignore_index=True)
     path = write_word_table(table, args.out)
     pages = table.groupby("doc_id")["page"].nunique().sum()
     print(f"wrote {path}: {table['doc_id'].nunique()} documents, {pages} pages, "
           f"{len(table)} words, {table['layout_id'].nunique()} layouts, seed {args.seed}")
+    if args.links_out is not None:
+        links = pd.concat([links for _, links in pairs], ignore_index=True)
+        write_word_table(links, args.links_out)
+        kinds = ", ".join(f"{n} {kind}" for kind, n in links["kind"].value_counts().items())
+        print(f"wrote {args.links_out}: {len(links)} links ({kinds})")
     if formats:
         try:
             scan = ScanNoise(args.scan_blur, args.scan_skew, args.scan_speckle)

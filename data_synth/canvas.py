@@ -28,6 +28,16 @@ class Word:
     entity: str
 
 
+@dataclass(frozen=True)
+class Link:
+    """A directed link between two entities of one page, from the generator's own truth."""
+
+    page: int
+    source: str
+    target: str
+    kind: str      # "key_value" (key phrase -> its value) or "column_cell" (heading -> cell)
+
+
 def text_width(text: str, size: float, bold: bool = False) -> float:
     return len(text) * _ADVANCE[bold] * size
 
@@ -59,6 +69,7 @@ class Canvas:
         self.words: list[Word] = []
         self.page = 1
         self._entities = 0
+        self.links: list[Link] = []
         self.left = MARGIN
         self.right = PAGE_WIDTH - MARGIN
         self.top = MARGIN
@@ -71,6 +82,10 @@ class Canvas:
     def entity(self) -> str:
         self._entities += 1
         return f"e{self._entities}"
+
+    def link(self, source: str, target: str, kind: str) -> None:
+        """Record that entity ``source`` points to entity ``target`` on the current page."""
+        self.links.append(Link(self.page, source, target, kind))
 
     def new_page(self) -> float:
         self.page += 1

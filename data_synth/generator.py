@@ -4,6 +4,12 @@ Document i gets layout i mod the number of chosen layouts, so every layout appea
 n_documents reaches that number. Each document draws its content from its own generator seeded
 with (seed, i, 0) and its noise from (seed, i, 1): documents are independent of each other, and
 noise settings never change the clean content underneath.
+
+Beside the words, each document has links between its entities from the generator's own truth
+(key phrase -> value, column heading -> cell; :class:`data_synth.canvas.Link`), as rows of the
+links table (``doc_id, page, source, target, kind``). Noise can merge away a value's only word;
+such a link then points to an entity the word table lacks, and the links validator drops and
+counts it.
 """
 
 from __future__ import annotations
@@ -13,7 +19,7 @@ from collections.abc import Iterator, Sequence
 import numpy as np
 import pandas as pd
 
-from data_synth.canvas import PAGE_HEIGHT, PAGE_WIDTH, Canvas, Word
+from data_synth.canvas import PAGE_HEIGHT, PAGE_WIDTH, Canvas, Link, Word
 from data_synth.content import draw_certificate
 from data_synth.footer import render_footer
 from data_synth.header import render_header
@@ -26,18 +32,29 @@ LABELS: tuple[str, ...] = ("lab_name", "client", "cert_no", "sample_id", "date",
                            "verdict", "other")
 COLUMNS: tuple[str, ...] = ("doc_id", "page", "word_id", "text", "x0", "y0", "x1", "y1",
                             "page_width", "page_height", "label", "entity_id", "layout_id")
+LINK_COLUMNS: tuple[str, ...] = ("doc_id", "page", "source", "target", "kind")
 _CONTENT_STREAM, _NOISE_STREAM = 0, 1
 
 
 def render_document(layout: Layout, rng: np.random.Generator) -> list[Word]:
     """Clean words of one certificate in reading order (header, table, footer)."""
+    return _render(layout, rng).words
+
+
+def _render(layout: Layout, rng: np.random.Generator) -> Canvas:
     canvas = Canvas()
     cert = draw_certificate(rng, layout)
     y = render_header(canvas, cert, layout)
     y = render_table(canvas, cert, layout, y)
     render_footer(canvas, cert, layout, y)
     clip(canvas.words)
-    return canvas.words
+    return canvas
+
+
+def _links_frame(doc_id: str, links: list[Link]) -> pd.DataFrame:
+    return pd.DataFrame({"doc_id": doc_id, "page": np.array([k.page for k in links], np.int64),
+                         "source": [k.source for k in links], "target": [k.target for k in links],
+                         "kind": [k.kind for k in links]}, columns=list(LINK_COLUMNS))
 
 
 def _frame(doc_id: str, layout_id: str, words: list[Word]) -> pd.DataFrame:
@@ -65,6 +82,18 @@ def iter_documents(n_documents: int, seed: int = 0, *, layouts: Sequence[str] | 
 
     Arguments are checked here, before the first document, so a bad call fails at once.
     """
+    return (words for words, _ in iter_documents_with_links(n_documents, seed, layouts=layouts,
+                                                            noise=noise))
+
+
+def iter_documents_with_links(n_documents: int, seed: int = 0, *,
+                              layouts: Sequence[str] | None = None,
+                              noise: NoiseConfig | None = None
+                              ) -> Iterator[tuple[pd.DataFrame, pd.DataFrame]]:
+    """(word table, links table) per document; the words are those of ``iter_documents``.
+
+    Arguments are checked here, before the first document, so a bad call fails at once.
+    """
     if isinstance(n_documents, bool) or not isinstance(n_documents, (int, np.integer)) \
             or n_documents < 0:
         raise ValueError(f"n_documents must be a non-negative integer, got {n_documents!r}")
@@ -77,13 +106,15 @@ def iter_documents(n_documents: int, seed: int = 0, *, layouts: Sequence[str] | 
 
 
 def _documents(n_documents: int, seed: int, layouts: tuple[Layout, ...],
-               noise: NoiseConfig | None) -> Iterator[pd.DataFrame]:
+               noise: NoiseConfig | None) -> Iterator[tuple[pd.DataFrame, pd.DataFrame]]:
     for index in range(n_documents):
         layout = layouts[index % len(layouts)]
-        words = render_document(layout, np.random.default_rng([seed, index, _CONTENT_STREAM]))
+        canvas = _render(layout, np.random.default_rng([seed, index, _CONTENT_STREAM]))
+        words = canvas.words
         if noise is not None and not noise.is_clean:
             words = apply_noise(words, noise, np.random.default_rng([seed, index, _NOISE_STREAM]))
-        yield _frame(f"coa-{index:05d}", layout.layout_id, words)
+        doc_id = f"coa-{index:05d}"
+        yield _frame(doc_id, layout.layout_id, words), _links_frame(doc_id, canvas.links)
 
 
 def generate(n_documents: int, seed: int = 0, *, layouts: Sequence[str] | None = None,

@@ -1,7 +1,8 @@
 """Header of a certificate: laboratory block, title and the key-value fields.
 
 Keys are labelled "key", field values by FIELD_LABELS, addresses and titles "other". Each key
-phrase and each value is one entity, so a wrapped value stays one entity over several lines.
+phrase and each value is one entity, so a wrapped value stays one entity over several lines;
+each key entity is linked to its value entity (kind ``key_value``).
 """
 
 from __future__ import annotations
@@ -15,6 +16,20 @@ _COLUMN_GAP = 24.0    # between the two columns of a two-column header
 _SIDE_MIN = 200.0     # narrowest region a field block may share with the lab block
 
 Item = tuple[str, str, str, tuple[str, ...]]   # key phrase, value, value label, lines below
+
+
+def _key(canvas: Canvas, key: str, x: float, y: float, size: float) -> str:
+    """Place a key phrase as its own entity; returns the entity id."""
+    entity = canvas.entity()
+    canvas.line(key, x, y, size, "key", entity)
+    return entity
+
+
+def _value(canvas: Canvas, key_entity: str) -> str:
+    """A new entity for the value of ``key_entity``, linked from it."""
+    entity = canvas.entity()
+    canvas.link(key_entity, entity, "key_value")
+    return entity
 
 
 def _items(cert: Certificate, layout: Layout) -> list[Item]:
@@ -55,9 +70,9 @@ def _column(canvas: Canvas, items: list[Item], x: float, y: float, width: float,
     if layout.key_above:
         key_size = size - 1.5
         for key, value, label, extra in items:
-            canvas.line(key, x, y, key_size, "key")
+            key_entity = _key(canvas, key, x, y, key_size)
             y += line_height(key_size)
-            y += canvas.cell(value, x, y, width, size, label) * pitch
+            y += canvas.cell(value, x, y, width, size, label, _value(canvas, key_entity)) * pitch
             for text in extra:
                 y += canvas.cell(text, x, y, width, size - 1, "other") * line_height(size - 1)
             y += 4.0
@@ -66,8 +81,9 @@ def _column(canvas: Canvas, items: list[Item], x: float, y: float, width: float,
     value_x = x + key_width + _GAP
     value_width = max(width - key_width - _GAP, 60.0)
     for key, value, label, extra in items:
-        canvas.line(key, x, y, size, "key")
-        y += canvas.cell(value, value_x, y, value_width, size, label) * pitch
+        key_entity = _key(canvas, key, x, y, size)
+        y += canvas.cell(value, value_x, y, value_width, size, label,
+                         _value(canvas, key_entity)) * pitch
         for text in extra:
             lines = canvas.cell(text, value_x, y, value_width, size - 1, "other")
             y += lines * line_height(size - 1)
@@ -92,9 +108,10 @@ def _strip(canvas: Canvas, items: list[Item], y: float, layout: Layout) -> float
         bottom = y
         for offset, (key, value, label, _) in enumerate(items[start:start + per_row]):
             x = canvas.left + offset * cell_width
-            canvas.line(key, x, y, size - 1.5, "key")
+            key_entity = _key(canvas, key, x, y, size - 1.5)
             top = y + line_height(size - 1.5)
-            lines = canvas.cell(value, x, top, cell_width - 8.0, size, label)
+            lines = canvas.cell(value, x, top, cell_width - 8.0, size, label,
+                                _value(canvas, key_entity))
             bottom = max(bottom, top + lines * line_height(size))
         y = bottom + (8.0 if layout.ruled else 4.0)
     return y

@@ -1,6 +1,7 @@
 """The table of tested parameters, spilling to a new page (heading repeated) when it runs out.
 
-Every cell is one entity labelled by its column; heading cells are "column_header". Column
+Every cell is one entity labelled by its column; heading cells are "column_header", and each
+heading is linked to every cell below it on its page (kind ``column_cell``). Column
 widths follow content, except that the analyte column is capped by the layout, so long analyte
 names wrap onto a second line where the family has a narrow analyte column.
 """
@@ -49,10 +50,20 @@ def _widths(headings: list[str], cells: list[list[str]], layout: Layout,
 
 
 def _row(canvas: Canvas, texts: list[str], labels: list[str], xs: list[float],
-         widths: list[float], y: float, layout: Layout, bold: bool) -> None:
-    for text, label, x, width, kind in zip(texts, labels, xs, widths, layout.columns):
+         widths: list[float], y: float, layout: Layout, bold: bool,
+         headings: list[str] | None = None) -> list[str]:
+    """Place one row of cells; returns their entity ids. With ``headings`` (the entity ids of
+    this page's heading cells) each cell is linked from its column's heading."""
+    entities = []
+    for index, (text, label, x, width, kind) in enumerate(zip(texts, labels, xs, widths,
+                                                              layout.columns)):
         align = "right" if kind == "result" and layout.result_right and not bold else "left"
-        canvas.cell(text, x, y, width, layout.font_size, label, bold=bold, align=align)
+        entity = canvas.entity()
+        if headings is not None:
+            canvas.link(headings[index], entity, "column_cell")
+        canvas.cell(text, x, y, width, layout.font_size, label, entity, bold=bold, align=align)
+        entities.append(entity)
+    return entities
 
 
 def _height(texts: list[str], widths: list[float], size: float, bold: bool) -> float:
@@ -74,10 +85,13 @@ def render_table(canvas: Canvas, cert: Certificate, layout: Layout, y: float) ->
     caption = "Results of analysis" if layout.ruled else "Test results"
     heading_height = _height(headings, widths, size, True) + pad
 
+    heading_entities: list[str] = []
+
     def heading(y: float, text: str) -> float:
         canvas.line(text, canvas.left, y, size + 1, "other", bold=True)
         y += line_height(size + 1) + 2.0
-        _row(canvas, headings, ["column_header"] * len(headings), xs, widths, y, layout, True)
+        heading_entities[:] = _row(canvas, headings, ["column_header"] * len(headings), xs,
+                                   widths, y, layout, True)
         return y + heading_height + pad
 
     if y + line_height(size + 1) + heading_height + 3 * line_height(size) > canvas.bottom:
@@ -87,6 +101,6 @@ def render_table(canvas: Canvas, cert: Certificate, layout: Layout, y: float) ->
         height = _height(texts, widths, size, False) + pad
         if y + height > canvas.bottom:
             y = heading(canvas.new_page(), f"{caption} (continued)")
-        _row(canvas, texts, list(layout.columns), xs, widths, y, layout, False)
+        _row(canvas, texts, list(layout.columns), xs, widths, y, layout, False, heading_entities)
         y += height
     return y

@@ -86,13 +86,25 @@ def _graph_stats_job(cfg) -> None:
     from dochar import graphs
     from dochar.data.sources import load_data
     from dochar.data.word_table import iter_pages
-    from dochar.graphs.diagnostics import format_stats, graph_stats
+    from dochar.graphs.candidates import CandidateOptions
+    from dochar.graphs.diagnostics import candidate_recall, format_stats, graph_stats
 
     data = load_data(cfg.data, strict=bool(cfg.strict))
     builder = graphs.from_config(cfg.graph)
-    stats = graph_stats(list(iter_pages(data.table)), builder)
+    pages = list(iter_pages(data.table))
+    stats = graph_stats(pages, builder)
     print(f"graph builder {cfg.graph.name} on {cfg.data.name}:")
     print(format_stats(stats))
+    candidates = cfg.task.get("candidates") or {}
+    options = CandidateOptions(str(candidates.get("source", "graph")),
+                               float(candidates.get("max_distance", 0.1)))
+    recall = candidate_recall(pages, builder, data.links, options)
+    if recall.true_links:
+        print(f"  candidate links ({options.source}; share of true links the candidates "
+              "can supply):")
+        for key, value in recall.to_dict().items():
+            print(f"  {key:<28} {value:.4f}" if isinstance(value, float) else
+                  f"  {key:<28} {value}")
 
 
 def _reported(task):

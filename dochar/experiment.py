@@ -76,6 +76,9 @@ def document_table(table: pd.DataFrame, part_of: dict[str, str]) -> pd.DataFrame
 def run_experiment(cfg: DictConfig) -> tuple[RunBundle, Any]:
     """Run the composed config; returns the run's bundle and the fitted model."""
     check_names(cfg)
+    if cfg.task.name == "links":
+        from dochar.link_experiment import run_links
+        return run_links(cfg)
     seed_everything(int(cfg.seed), int(cfg.train.threads))
     labels = list(cfg.data.labels)
     progress = bool(cfg.train.progress)

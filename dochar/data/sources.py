@@ -1,7 +1,9 @@
 """The first stage: turn the ``data`` config into a validated word table.
 
 Each source kind converts into the word table and nothing else; validation is shared, so a
-synthetic set, an imported dataset and a user's own table obey the same rules.
+synthetic set, an imported dataset and a user's own table obey the same rules. The links table
+(:mod:`dochar.data.links_table`) travels beside the words: generated (synth), imported (form
+JSON) or read from ``data.links_path`` (word_table); it is validated against the words kept.
 """
 
 from __future__ import annotations
@@ -15,6 +17,11 @@ from typing import Any
 import pandas as pd
 from tqdm import tqdm
 
+from dochar.data.links_table import (
+    empty_links,
+    read_links_table,
+    validate_links_table,
+)
 from dochar.data.word_table import (
     ValidationReport,
     WordTableError,
@@ -30,26 +37,31 @@ SOURCES = ("synth", "form_json", "word_table", "pdf", "hocr", "alto", "image")
 class LoadedData:
     validation: ValidationReport
     notes: dict[str, Any] = field(default_factory=dict)
+    links: pd.DataFrame = field(default_factory=empty_links)   # validated links table
 
     @property
     def table(self) -> pd.DataFrame:
         return self.validation.table
 
 
-def _load_raw(data_cfg: Mapping[str, Any], progress: bool) -> tuple[pd.DataFrame, dict[str, Any]]:
+def _load_raw(data_cfg: Mapping[str, Any], progress: bool
+              ) -> tuple[pd.DataFrame, dict[str, Any], pd.DataFrame]:
+    """Words, import notes and links (empty where the source has none)."""
     source = data_cfg.get("source")
     if source == "synth":
         import data_synth
-        from data_synth.generator import iter_documents
+        from data_synth.generator import iter_documents_with_links
 
         noise = data_synth.NoiseConfig(**dict(data_cfg.get("noise") or {}))
         count = int(data_cfg["documents"])
-        documents = iter_documents(count, seed=int(data_cfg.get("generator_seed", 0)),
-                                   noise=noise)
-        frame = pd.concat(list(tqdm(documents, total=count, desc="generating", leave=False,
-                                    disable=not progress)), ignore_index=True)
+        documents = list(tqdm(iter_documents_with_links(
+            count, seed=int(data_cfg.get("generator_seed", 0)), noise=noise), total=count,
+            desc="generating", leave=False, disable=not progress))
+        frame = pd.concat([words for words, _ in documents], ignore_index=True)
         frame.attrs["source"] = f"synthetic certificates (seed {data_cfg.get('generator_seed', 0)})"
-        return frame, {}
+        links = pd.concat([links for _, links in documents], ignore_index=True)
+        links.attrs["source"] = f"generated links (seed {data_cfg.get('generator_seed', 0)})"
+        return frame, {}, links
     if source == "form_json":
         from dochar.data.importers.form_json import import_form_json
 
@@ -64,21 +76,25 @@ def _load_raw(data_cfg: Mapping[str, Any], progress: bool) -> tuple[pd.DataFrame
         log.info("import: %s", report.summary())
         if report.problems:
             log.warning("import problems:\n  %s", "\n  ".join(report.problems))
+        links = report.links_frame()
+        links.attrs["source"] = f"{data_cfg['path']} (linking fields)"
         return frame, {"import_empty_text_dropped": report.empty_text_dropped,
                        "import_boxes_clipped": report.boxes_clipped,
-                       "import_files_reported": len(report.problems)}
+                       "import_files_reported": len(report.problems)}, links
     if source == "word_table":
-        return read_word_table(data_cfg["path"]), {}
+        links_path = data_cfg.get("links_path")
+        links = read_links_table(links_path) if links_path else empty_links()
+        return read_word_table(data_cfg["path"]), {}, links
     if source in ("pdf", "hocr", "alto", "image"):
         from dochar.data.importers import load_for_run
-        return load_for_run(data_cfg)
+        return (*load_for_run(data_cfg), empty_links())
     raise WordTableError(f"data.source: unknown source {source!r}; choose one of {list(SOURCES)}")
 
 
 def load_data(data_cfg: Mapping[str, Any], *, strict: bool = False,
               progress: bool = False) -> LoadedData:
     """Load and validate; every skipped document is reported with its reason, never dropped silently."""
-    frame, notes = _load_raw(data_cfg, progress)
+    frame, notes, raw_links = _load_raw(data_cfg, progress)
     report = validate_word_table(frame, list(data_cfg["labels"]), strict=strict)
     log.info("word table: %s", report.summary())
     for problem in report.problems[:20]:
@@ -90,4 +106,10 @@ def load_data(data_cfg: Mapping[str, Any], *, strict: bool = False,
                              f"({report.summary()})")
     notes.update({"documents_in": report.documents_in, "documents_used": report.documents_used,
                   "documents_reported": report.documents_reported})
-    return LoadedData(report, notes)
+    links = validate_links_table(raw_links, report.table, strict=strict)
+    if links.links_in:
+        log.info("links table: %s", links.summary())
+        for problem in links.problems[:20]:
+            log.warning("link dropped: %s", problem)
+        notes.update(links.notes())
+    return LoadedData(report, notes, links.links)

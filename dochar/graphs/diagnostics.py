@@ -8,6 +8,9 @@ Homophily is the edge homophily ratio of Zhu et al., "Beyond Homophily in Graph 
 Networks", NeurIPS 2020: the share of edges whose two ends carry the same label; per class c,
 of the edges whose target has class c, the share whose source has class c too. Words with an
 empty label and pages without labels are left out of it (and a note says so).
+
+Candidate recall (:func:`candidate_recall`) tells before training whether a builder's edges
+can reach the true links at all: same-entity word links and key -> value segment links.
 """
 
 from __future__ import annotations
@@ -22,6 +25,8 @@ from scipy.sparse.csgraph import connected_components
 
 from dochar.data.word_table import Page
 from dochar.graphs.base import GraphBuilder, TypedEdges
+from dochar.graphs.candidates import CandidateOptions, candidate_pairs, missed_links
+from dochar.tasks.links import link_pages
 
 TABLE_LABELS: tuple[str, ...] = ("analyte", "method", "result", "unit", "limit", "verdict",
                                  "column_header")
@@ -214,3 +219,45 @@ def format_stats(stats: GraphStats) -> str:
         lines.extend("    " + line for line in table.splitlines())
     lines.extend(f"  note: {note}" for note in stats.notes)
     return "\n".join(lines)
+
+
+@dataclass
+class CandidateRecall:
+    """Per link kind: true links, and those the candidate pairs can supply."""
+
+    true_links: dict[str, int] = field(default_factory=dict)
+    found: dict[str, int] = field(default_factory=dict)
+    candidate_pairs: dict[str, int] = field(default_factory=dict)
+
+    def to_dict(self) -> dict[str, float | int]:
+        out: dict[str, float | int] = {}
+        for kind, total in self.true_links.items():
+            out[f"candidate_recall_{kind}"] = _share(self.found[kind], total)
+            out[f"true_links_{kind}"] = total
+            out[f"candidate_pairs_{kind}"] = self.candidate_pairs[kind]
+        return out
+
+
+def candidate_recall(pages: Iterable[Page], builder: GraphBuilder,
+                     links: pd.DataFrame | None = None,
+                     options: CandidateOptions | None = None) -> CandidateRecall:
+    """Share of true links the builder's candidate pairs can supply, for word grouping
+    (``same_entity``, on the words) and, when a links table is given, ``key_value`` (on the
+    segments); see :mod:`dochar.graphs.candidates`. Pages without entity ids are left out."""
+    pages = [page for page in pages if page.entity_ids is not None]
+    options = options or CandidateOptions()
+    recall = CandidateRecall()
+    kinds = ["same_entity"] + (["key_value"] if links is not None and len(links) else [])
+    for kind in kinds:
+        total = found = pair_count = 0
+        for page in link_pages(pages, kind, links):
+            nodes = page.nodes
+            pairs = candidate_pairs(nodes, options, directed=page.directed, builder=builder)
+            entities = None if page.directed else np.asarray(page.entities, dtype=object)
+            missed = missed_links(page.true_links, pairs, len(nodes), page.directed, entities)
+            total += page.true_links.shape[1]
+            found += page.true_links.shape[1] - missed.shape[1]
+            pair_count += pairs.shape[1]
+        recall.true_links[kind], recall.found[kind] = total, found
+        recall.candidate_pairs[kind] = pair_count
+    return recall

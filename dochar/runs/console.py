@@ -29,14 +29,21 @@ def _interval(metrics: dict[str, float], key: str) -> str:
 
 def ranking_table(bundles: Sequence[RunBundle], title: str = "runs ranked by macro-F1") -> Table:
     table = Table(title=title, title_justify="left")
-    for column in ("#", "run", "macro-F1 [95% CI]", "micro-F1", "entity F1 [95% CI]",
-                   "train s", "params", "run id"):
+    links = any("link_f1" in b.metrics for b in bundles)   # links runs rank by link F1
+    score = "link_f1" if links else "macro_f1"
+    columns = ["#", "run", "macro-F1 [95% CI]", "micro-F1", "entity F1 [95% CI]"]
+    if links:
+        columns[2:2] = ["link F1 [95% CI]", "link P", "link R"]
+    for column in (*columns, "train s", "params", "run id"):
         table.add_column(column, justify="left" if column in {"run", "run id"} else "right")
-    ranked = sorted(bundles, key=lambda b: -b.metrics.get("macro_f1", float("-inf")))
+    ranked = sorted(bundles, key=lambda b: -b.metrics.get(score, float("-inf")))
     for rank, bundle in enumerate(ranked, start=1):
         m = bundle.metrics
-        table.add_row(str(rank), bundle.name, _interval(m, "macro_f1"), _fmt(m.get("micro_f1")),
-                      _interval(m, "entity_f1"), _fmt(bundle.cost.get("train_seconds"), 1),
+        cells = [_interval(m, "macro_f1"), _fmt(m.get("micro_f1")), _interval(m, "entity_f1")]
+        if links:
+            cells[:0] = [_interval(m, "link_f1"), _fmt(m.get("link_precision")),
+                         _fmt(m.get("link_recall"))]
+        table.add_row(str(rank), bundle.name, *cells, _fmt(bundle.cost.get("train_seconds"), 1),
                       f"{int(bundle.cost.get('parameters', 0)):,}", (bundle.run_id or "")[:12])
     return table
 
@@ -63,7 +70,11 @@ def print_comparison(bundles: Sequence[RunBundle]) -> None:
 def aggregate_table(repeats: pd.DataFrame) -> Table:
     """Systems repeated over seeds or folds: mean ± sample std and the number of runs."""
     table = Table(title="systems over seeds / folds (mean ± std)", title_justify="left")
-    for column in ("system", "n", "macro-F1", "micro-F1", "entity F1", "train s"):
+    links = "link_f1_mean" in repeats.columns
+    columns = ["system", "n", "macro-F1", "micro-F1", "entity F1", "train s"]
+    if links:
+        columns.insert(2, "link F1")
+    for column in columns:
         table.add_column(column, justify="left" if column == "system" else "right")
     for row in repeats.itertuples(index=False):
         values = row._asdict()
@@ -71,8 +82,10 @@ def aggregate_table(repeats: pd.DataFrame) -> Table:
         def cell(metric: str, digits: int = 3) -> str:
             mean = values.get(f"{metric}_mean")
             return "–" if mean is None else mean_std_text(mean, values[f"{metric}_std"], digits)
-        table.add_row(str(row.system), str(row.n), cell("macro_f1"), cell("micro_f1"),
-                      cell("entity_f1"), cell("cost/train_seconds", 1))
+        cells = [cell("macro_f1"), cell("micro_f1"), cell("entity_f1")]
+        if links:
+            cells.insert(0, cell("link_f1"))
+        table.add_row(str(row.system), str(row.n), *cells, cell("cost/train_seconds", 1))
     return table
 
 

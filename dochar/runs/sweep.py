@@ -23,7 +23,7 @@ from dochar.runs.tracking import (SWEEP_ID_ENV, SWEEP_PARENT_ENV, ensure_experim
 
 RUN_FOLDER = "run"
 REPEAT_KEYS = ("seed", "split.fold")  # overrides that repeat a system rather than change it
-AGGREGATED = ("macro_f1", "micro_f1", "entity_f1", "cost/train_seconds")
+AGGREGATED = ("link_f1", "macro_f1", "micro_f1", "entity_f1", "cost/train_seconds")
 
 
 def sweep_bundles(sweep_dir: Path) -> list[RunBundle]:
@@ -41,7 +41,8 @@ def system_of(bundle: RunBundle) -> str:
 def sweep_frame(bundles: list[RunBundle]) -> pd.DataFrame:
     rows = [{"run": b.name, "system": system_of(b), "run_id": b.run_id, **b.tags, **b.metrics,
              **{f"cost/{k}": v for k, v in b.cost.items()}} for b in bundles]
-    return pd.DataFrame(rows).sort_values("macro_f1", ascending=False)
+    frame = pd.DataFrame(rows)
+    return frame.sort_values("link_f1" if "link_f1" in frame else "macro_f1", ascending=False)
 
 
 def repeats_summary(frame: pd.DataFrame) -> pd.DataFrame | None:
@@ -49,8 +50,8 @@ def repeats_summary(frame: pd.DataFrame) -> pd.DataFrame | None:
     if frame["system"].duplicated().sum() == 0:
         return None
     metrics = [m for m in AGGREGATED if m in frame.columns]
-    return aggregate_runs(frame, ["system"], metrics).sort_values("macro_f1_mean",
-                                                                   ascending=False)
+    summary = aggregate_runs(frame, ["system"], metrics)
+    return summary.sort_values(f"{metrics[0]}_mean", ascending=False)
 
 
 class SweepTable(Callback):

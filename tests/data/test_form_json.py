@@ -70,3 +70,45 @@ def test_broken_file_is_reported(tmp_path):
 def test_bad_option():
     with pytest.raises(ValueError, match="empty_text"):
         import_form_json([], empty_text="maybe")
+
+
+def test_funsd_linking_fields_become_key_value_links(funsd_root):
+    # FUNSD testing_data/annotations/82092117.json, read by hand: entity 1 "TO:" (question) and
+    # 14 "George Baroody" (answer) list [1, 14]; 13 "FAX NO." (question) and 12 "(614) 466-
+    # 5087" (answer) list [13, 12]; 3 "3" (answer) and 19 "NUMBER OF PAGES INCLUDING COVER
+    # SHEET:" (question) list [19, 3]; 22 "SPECIAL INSTRUCTIONS:" (question) lists none.
+    # The file lists 9 distinct pairs, each on both of its entities.
+    path = funsd_root / "testing_data" / "annotations" / "82092117.json"
+    _, report = import_form_json([path])
+    links = report.links_frame()
+    pairs = set(zip(links["source"], links["target"]))
+    assert {("e1", "e14"), ("e13", "e12"), ("e19", "e3")} <= pairs   # question -> answer
+    assert ("e14", "e1") not in pairs and ("e3", "e19") not in pairs
+    assert not any("e22" in pair for pair in pairs)
+    assert len(links) == 9
+    assert set(links["kind"]) == {"key_value"} and set(links["doc_id"]) == {"82092117"}
+    # the one pair of FUNSD written question-first towards its heading, read by hand from
+    # training_data/annotations/00866042.json: entity 43 "PROTECTIVE PRECAUTIONS REQUIRED:" (question)
+    # and 44 "HAZARDOUS, COMPOUND" (header) list [43, 44]; the heading is the source
+    _, report = import_form_json([funsd_root / "training_data" / "annotations" /
+                                  "00866042.json"])
+    pairs = set(zip(report.links_frame()["source"], report.links_frame()["target"]))
+    assert ("e44", "e43") in pairs and ("e43", "e44") not in pairs
+
+
+def test_link_orientation_follows_the_labels(tmp_path):
+    # header -> question -> answer whatever order the pair is written in; 'other' keeps it
+    form = {"form": [
+        {"id": 0, "label": "answer", "words": [{"text": "A", "box": [0, 0, 5, 5]}],
+         "linking": [[0, 1]]},
+        {"id": 1, "label": "question", "words": [{"text": "Q", "box": [6, 0, 9, 5]}],
+         "linking": [[0, 1], [2, 1]]},
+        {"id": 2, "label": "header", "words": [{"text": "H", "box": [0, 6, 5, 9]}],
+         "linking": [[2, 1]]},
+        {"id": 3, "label": "other", "words": [{"text": "O", "box": [6, 6, 9, 9]}],
+         "linking": [[3, 0]]}]}
+    path = tmp_path / "form.json"
+    path.write_text(json.dumps(form))
+    _, report = import_form_json([path])
+    assert report.links_frame()[["source", "target"]].values.tolist() == [
+        ["e1", "e0"], ["e2", "e1"], ["e3", "e0"]]

@@ -300,3 +300,28 @@ def test_cli_rejects_unknown_suffix_and_layout(tmp_path) -> None:
         main(["--documents", "2", "--out", str(tmp_path / "synth.txt")])
     with pytest.raises(SystemExit):
         main(["--documents", "2", "--out", str(tmp_path / "s.csv"), "--layouts", "nope"])
+
+
+def test_generated_links_follow_the_layout_truth():
+    # key -> value: the source is a key phrase, the target the value right after it (the value
+    # entity is the next entity created); heading -> cell: the cell lies in the heading's column
+    from data_synth.generator import iter_documents_with_links
+    from data_synth.layouts import FIELD_LABELS
+
+    for words, links in iter_documents_with_links(12, seed=4):
+        entity = _entities(words).set_index("entity_id")
+        boxes = words.groupby("entity_id").agg(x0=("x0", "min"), x1=("x1", "max"),
+                                               y0=("y0", "min"))
+        key_value = links[links["kind"] == "key_value"]
+        assert set(entity.loc[key_value["source"], "label"]) == {"key"}
+        assert set(entity.loc[key_value["target"], "label"]) <= set(FIELD_LABELS.values())
+        assert (key_value["target"].str[1:].astype(int)
+                == key_value["source"].str[1:].astype(int) + 1).all()
+        # every key phrase has exactly one value
+        assert sorted(key_value["source"]) == sorted(entity.index[entity["label"] == "key"])
+        cells = links[links["kind"] == "column_cell"]
+        assert set(entity.loc[cells["source"], "label"]) == {"column_header"}
+        source, target = boxes.loc[cells["source"]], boxes.loc[cells["target"]]
+        overlap = (np.minimum(source["x1"].to_numpy(), target["x1"].to_numpy())
+                   - np.maximum(source["x0"].to_numpy(), target["x0"].to_numpy()))
+        assert (overlap > 0).all() and (target["y0"].to_numpy() > source["y0"].to_numpy()).all()

@@ -10,6 +10,12 @@ get a documented repair rather than a crash or a silent drop, and both are count
 - boxes reaching past the page image: clipped to the page.
 
 Without the scanned image beside the annotations, the page size is the extent of the boxes.
+
+Links: each entity's ``linking`` lists pairs ``[id_a, id_b]`` of entity ids, the same pair on
+both entities and in no fixed order. A pair becomes one directed row of the links table
+(:mod:`dochar.data.links_table`), kind ``key_value``, oriented by the entities' labels along
+``header -> question -> answer`` (FUNSD's field relation: a heading points to its questions, a
+question to its answer); two entities of equal rank, or ``other``, keep the order given.
 """
 
 from __future__ import annotations
@@ -26,6 +32,7 @@ from tqdm import tqdm
 from dochar.data.word_table import WordTableError
 
 SPLIT_FOLDERS = {"training_data": "train", "testing_data": "test"}
+LINK_RANK = {"header": 0, "question": 1, "answer": 2}   # lower rank is the link's source
 
 
 @dataclass
@@ -37,6 +44,14 @@ class FormImportReport:
     boxes_reordered: int = 0
     boxes_clipped: int = 0
     problems: list[str] = field(default_factory=list)
+    links: list[dict] = field(default_factory=list)      # rows of the links table
+
+    def links_frame(self) -> pd.DataFrame:
+        from dochar.data.links_table import LINK_COLUMNS, empty_links
+
+        if not self.links:
+            return empty_links()
+        return pd.DataFrame(self.links, columns=list(LINK_COLUMNS))
 
     def summary(self) -> str:
         return (f"{self.files} forms, {self.words} words imported; empty-text words dropped "
@@ -98,7 +113,28 @@ def read_form_file(path: Path, report: FormImportReport, *, split: str = "",
                          "split": split})
     report.files += 1
     report.words += len(rows)
+    report.links += form_links(form, path.stem)
     return rows
+
+
+def form_links(form: list[dict], doc_id: str) -> list[dict]:
+    """One directed key -> value row per unordered ``linking`` pair (see the module notes)."""
+    labels = {entity.get("id", index): str(entity.get("label", ""))
+              for index, entity in enumerate(form)}
+    seen: set[frozenset] = set()
+    links = []
+    for entity in form:
+        for pair in entity.get("linking", []) or []:
+            if len(pair) != 2 or pair[0] == pair[1] or frozenset(pair) in seen:
+                continue
+            seen.add(frozenset(pair))
+            first, second = pair
+            rank = [LINK_RANK.get(labels.get(end, "")) for end in pair]
+            flip = None not in rank and rank[1] < rank[0]
+            source, target = (second, first) if flip else (first, second)
+            links.append({"doc_id": doc_id, "page": 1, "source": f"e{source}",
+                          "target": f"e{target}", "kind": "key_value"})
+    return links
 
 
 def import_form_json(paths: Iterable[str | Path], *, empty_text: str = "drop",
