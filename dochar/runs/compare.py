@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from dochar import tasks
 from dochar.metrics.evaluate import headline_scorers
 from dochar.metrics.intervals import PairedResult, paired_comparison
 from dochar.runs.bundle import RunBundle
@@ -14,7 +15,8 @@ def compare_runs(run_a: RunBundle, run_b: RunBundle, *, score: str = "macro_f1",
         raise ValueError(f"runs {run_a.name!r} and {run_b.name!r} use different label sets; "
                          "they cannot be compared word for word")
     ignore = run_a.config.get("evaluation", {}).get("entity_ignore", ["other"])
-    scorers = headline_scorers(run_a.labels, ignore)
+    task = tasks.from_config(run_a.config.get("task"))
+    scorers = headline_scorers(run_a.labels, ignore, task=task)
     if score not in scorers:
         raise ValueError(f"--score {score!r}: choose one of {sorted(scorers)}")
     return paired_comparison(run_a.predictions, run_b.predictions, scorers[score],
