@@ -15,7 +15,7 @@ $(STAMP): pyproject.toml
 	$(PYTHON) -m venv $(VENV)
 	$(BIN)/pip install --quiet --upgrade pip
 	$(BIN)/pip install --quiet "$(TORCH_SPEC)"
-	$(BIN)/pip install --quiet -e '.[test]'
+	$(BIN)/pip install --quiet -e '.[test,embed]' "$(TORCH_SPEC)"   # torch named: kept
 	touch $(STAMP)
 
 demo: $(STAMP)

@@ -1,4 +1,4 @@
-"""One run, start to finish: data → split → graphs → features → model → scores → bundle.
+"""One run, start to finish: data → split → task → graphs → features → model → scores → bundle.
 
 Each stage is built from its own config section and called through its module's interface;
 this file only wires them in the order of the data flow and records what it did.
@@ -14,7 +14,7 @@ import pandas as pd
 import torch
 from omegaconf import DictConfig, OmegaConf
 
-from dochar import graphs
+from dochar import graphs, tasks
 from dochar.data.sources import load_data
 from dochar.data.word_table import iter_pages, table_fingerprint
 from dochar.features import WordFeaturizer
@@ -35,6 +35,7 @@ def check_names(cfg: DictConfig) -> None:
     from dochar.models.baselines import BASELINES
     from dochar.models.layers import LAYERS
 
+    tasks.from_config(cfg.get("task"))
     if cfg.model.kind not in {"gnn", "baseline"}:
         raise graphs.GraphBuilderError(f"model.kind must be 'gnn' or 'baseline', got "
                                        f"{cfg.model.kind!r}")
@@ -60,7 +61,13 @@ def run_name(cfg: DictConfig) -> str:
                          ("self_loops", "self")):
         if cfg.graph.get(option):
             graph += f"+{mark}"
-    return f"{system}/{graph}/{'+'.join(cfg.features.groups)}"
+    name = f"{system}/{graph}/{'+'.join(cfg.features.groups)}"
+    task = tasks.from_config(cfg.get("task"))
+    if task.name == "entity_tags":
+        return f"{task.name}[{task.scheme}]:{name}"
+    if task.name == "segment_labels":
+        return f"{task.name}[{task.segments}]:{name}"
+    return name
 
 
 def document_table(table: pd.DataFrame, part_of: dict[str, str]) -> pd.DataFrame:
@@ -80,7 +87,9 @@ def run_experiment(cfg: DictConfig) -> tuple[RunBundle, Any]:
         from dochar.link_experiment import run_links
         return run_links(cfg)
     seed_everything(int(cfg.seed), int(cfg.train.threads))
-    labels = list(cfg.data.labels)
+    task = tasks.from_config(cfg.get("task"))
+    word_labels = list(cfg.data.labels)
+    labels = task.classes(word_labels)
     progress = bool(cfg.train.progress)
     data = load_data(cfg.data, strict=bool(cfg.strict), progress=progress)
     split = split_run(data.table, cfg.split, int(cfg.seed))
@@ -89,14 +98,16 @@ def run_experiment(cfg: DictConfig) -> tuple[RunBundle, Any]:
     pages = {part: [] for part in PARTS}
     for page in iter_pages(split.table):
         if page.doc_id in part_of:   # a nested training subset leaves some documents out
-            pages[part_of[page.doc_id]].append(page)
+            pages[part_of[page.doc_id]].append(task.nodes(page))
     sets = {part: PageSet.build(pages[part], builder, progress=progress,
                                 desc=f"graphs ({part})") for part in PARTS}
     featurizer = WordFeaturizer.from_config(cfg.features, cfg.data).fit(sets["train"].pages)
     torch.manual_seed(int(cfg.seed))
     fitted = fit_model(cfg, sets, featurizer, labels)
     predictions = prediction_frame(sets["test"].pages, fitted.probabilities, labels)
-    scores = evaluate(predictions, labels, cfg.evaluation, seed=int(cfg.seed))
+    words = task.word_predictions(sets["test"].pages, predictions)
+    scores = evaluate(predictions, labels, cfg.evaluation, seed=int(cfg.seed), task=task,
+                      words=words, word_labels=word_labels)
     metrics = scores.metrics
     stats = graph_stats(sets["test"].pages, builder, edges=sets["test"].edges).to_dict()
     metrics.update({f"graph/{k}": float(v) for k, v in stats.items()
@@ -106,7 +117,8 @@ def run_experiment(cfg: DictConfig) -> tuple[RunBundle, Any]:
     if not split.leakage.empty:
         scores.tables["leakage"] = split.leakage
     scores.tables["documents"] = document_table(split.table, part_of)
-    tags = {"dataset": str(cfg.data.name), "split_protocol": str(cfg.split.protocol),
+    tags = {"dataset": str(cfg.data.name), "task": task.name,
+            "split_protocol": str(cfg.split.protocol),
             "graph_builder": str(cfg.graph.name), "features": "+".join(cfg.features.groups),
             "model": system_name(cfg.model), "model_kind": str(cfg.model.kind),
             "seed": str(cfg.seed), "data_fingerprint": table_fingerprint(data.table),

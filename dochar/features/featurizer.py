@@ -3,7 +3,10 @@
 Groups: ``geometry`` (box layout), ``text_flags`` (surface flags plus one ``lexicon:<name>``
 column per configured word list) and ``char_cnn``, which adds no dense columns: it marks that
 the model encodes ``char_ids`` itself. The optional ``text_embedding`` group adds a pretrained
-sentence embedding of each word (:mod:`dochar.features.text_embedding`, the ``embed`` extra). All scales are fixed, so fitting learns nothing unless
+sentence embedding of each word (:mod:`dochar.features.text_embedding`, the ``embed`` extra).
+Two options add context (:mod:`dochar.features.context`): ``line_context`` (the line a word
+sits in; with ``text_embedding`` also the embedding of that line's text) and ``pool_words``
+(a segment's mean / max over its words' rows). All scales are fixed, so fitting learns nothing unless
 ``standardize`` is set; then column means and standard deviations come from the pages given to
 ``fit`` (the training pages only), and constant columns are left unscaled.
 """
@@ -17,6 +20,13 @@ import numpy as np
 
 from dochar.data.word_table import Page
 from dochar.features.chars import char_ids
+from dochar.features.context import (
+    LINE_CONTEXT_NAMES,
+    POOLINGS,
+    line_context_features,
+    line_texts,
+    pool_members,
+)
 from dochar.features.geometry import GEOMETRY_NAMES, geometry_features
 from dochar.features.lexicons import compile_lexicons, lexicon_features
 from dochar.features.text_embedding import EMBEDDING_DIM, TextEmbedder
@@ -58,7 +68,9 @@ class WordFeaturizer:
 
     def __init__(self, groups: Sequence[str] = ("geometry", "text_flags"),
                  lexicons: Mapping[str, Sequence[str]] | None = None, max_chars: int = 16,
-                 *, standardize: bool = False) -> None:
+                 *, standardize: bool = False, line_context: bool = False,
+                 pool_words: Sequence[str] = (), embedding_cache: str | None = "default"
+                 ) -> None:
         if isinstance(groups, str):
             groups = (groups,)
         unknown = [g for g in groups if g not in FEATURE_GROUPS + OPTIONAL_GROUPS]
@@ -68,7 +80,14 @@ class WordFeaturizer:
         if max_chars < 1:
             raise ValueError(f"WordFeaturizer: max_chars must be at least 1, got {max_chars}")
         self.groups = tuple(dict.fromkeys(groups))
-        self.embedder = TextEmbedder() if "text_embedding" in self.groups else None
+        self.embedder = (TextEmbedder(embedding_cache) if "text_embedding" in self.groups
+                         else None)
+        unknown_pooling = sorted(set(pool_words) - set(POOLINGS))
+        if unknown_pooling:
+            raise ValueError(f"WordFeaturizer: pool_words {unknown_pooling} unknown; choose "
+                             f"from {list(POOLINGS)}")
+        self.line_context = bool(line_context)
+        self.pool_words = tuple(dict.fromkeys(pool_words))
         self.lexicons = compile_lexicons(lexicons)
         if self.lexicons and "text_flags" not in self.groups:
             warnings.warn("WordFeaturizer: lexicon columns belong to the 'text_flags' group, "
@@ -84,12 +103,21 @@ class WordFeaturizer:
         """The featurizer a ``features`` section asks for, with the data's word lists."""
         groups = list(features_cfg["groups"])
         lexicons = data_cfg.get("lexicons") if "text_flags" in groups else None
+        cache = features_cfg.get("embedding_cache")
         return cls(groups=groups, lexicons=None if lexicons is None else
                    {name: list(words) for name, words in dict(lexicons).items()},
-                   max_chars=int(features_cfg["max_chars"]))
+                   max_chars=int(features_cfg["max_chars"]),
+                   line_context=bool(features_cfg.get("line_context", False)),
+                   pool_words=list(features_cfg.get("pool_words") or ()),
+                   embedding_cache="default" if cache is None else
+                   (None if str(cache) == "off" else str(cache)))
 
     @property
     def feature_names(self) -> list[str]:
+        own = self._own_names()
+        return own + [f"{how}:{name}" for how in self.pool_words for name in own]
+
+    def _own_names(self) -> list[str]:
         names: list[str] = []
         if "geometry" in self.groups:
             names += [f"geometry:{n}" for n in GEOMETRY_NAMES]
@@ -98,6 +126,10 @@ class WordFeaturizer:
             names += [f"lexicon:{n}" for n in self.lexicons]
         if self.embedder is not None:
             names += [f"embedding:{i}" for i in range(EMBEDDING_DIM)]
+        if self.line_context:
+            names += [f"line:{n}" for n in LINE_CONTEXT_NAMES]
+            if self.embedder is not None:
+                names += [f"line_embedding:{i}" for i in range(EMBEDDING_DIM)]
         return names
 
     @property
@@ -140,6 +172,16 @@ class WordFeaturizer:
         return char_ids(page.texts, self.max_chars)
 
     def _raw(self, page: Page) -> np.ndarray:
+        own = self._own(page)
+        if not self.pool_words:
+            return own
+        words = getattr(page, "words", None)
+        if words is None:                       # a page of words: each word pools itself
+            return np.concatenate([own] * (1 + len(self.pool_words)), axis=1)
+        pooled = pool_members(self._own(words), page.members, self.pool_words)
+        return np.concatenate([own, pooled], axis=1)
+
+    def _own(self, page: Page) -> np.ndarray:
         check_page(page)
         blocks = [np.zeros((len(page), 0), dtype=np.float32)]
         if "geometry" in self.groups:
@@ -149,4 +191,8 @@ class WordFeaturizer:
             blocks.append(lexicon_features(page.texts, self.lexicons))
         if self.embedder is not None:
             blocks.append(self.embedder(page.texts))
+        if self.line_context:
+            blocks.append(line_context_features(page))
+            if self.embedder is not None:
+                blocks.append(self.embedder(line_texts(page)))
         return np.concatenate(blocks, axis=1)

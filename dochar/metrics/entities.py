@@ -3,9 +3,8 @@
 The rule, exactly (it matches seqeval's default chunk scoring on the tags :func:`to_bio` makes):
 
 * **Reading order.** Words are ordered per page (``doc_cols``) by ``order_col`` when given;
-  otherwise by lines, then left to right. Lines: words sorted by vertical centre; a word joins
-  the current line when its centre lies inside the vertical extent of the line's first word,
-  otherwise it starts a new line (common practice for single-column reading order).
+  otherwise by dochar's one reading order (:func:`dochar.data.word_table.reading_order`:
+  lines by half-height overlap, top to bottom, then left to right).
 * **True entities.** The words sharing (doc, page, ``entity_id``), labelled with their true label
   (all words of an entity must agree). A word with an empty ``entity_id`` is an entity on its own.
   Entities whose label is in ``ignore`` (FUNSD's ``other``) are not scored.
@@ -30,6 +29,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from dochar.data.word_table import reading_order as word_table_reading_order
 from dochar.metrics.words import MetricInputError, check_labels
 
 
@@ -64,17 +64,9 @@ class _Ordered:
 
 
 def line_order(boxes: np.ndarray) -> np.ndarray:
-    """Reading order of one page's boxes (x0, y0, x1, y1): lines top to bottom, then x0."""
-    centre_y = (boxes[:, 1] + boxes[:, 3]) / 2
-    by_height = np.lexsort((boxes[:, 0], centre_y))
-    line = np.empty(len(boxes), dtype=np.int64)
-    current, band_bottom = -1, -np.inf
-    for position in by_height:
-        if centre_y[position] > band_bottom:
-            current += 1
-            band_bottom = boxes[position, 3]
-        line[position] = current
-    return np.lexsort((np.arange(len(boxes)), boxes[:, 0], line))
+    """Reading order of one page's boxes (x0, y0, x1, y1): dochar's one reading order
+    (:func:`dochar.data.word_table.reading_order`), ties by row position."""
+    return word_table_reading_order(boxes)
 
 
 def reading_order(frame: pd.DataFrame, doc_cols: Sequence[str] = ("doc_id", "page"),

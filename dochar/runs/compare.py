@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from dochar import tasks
 from dochar.metrics.evaluate import headline_scorers
 from dochar.metrics.intervals import PairedResult, paired_comparison
 from dochar.metrics.links import link_scorers
@@ -15,12 +16,12 @@ def compare_runs(run_a: RunBundle, run_b: RunBundle, *, score: str = "macro_f1",
         raise ValueError(f"runs {run_a.name!r} and {run_b.name!r} use different label sets; "
                          "they cannot be compared word for word")
     ignore = run_a.config.get("evaluation", {}).get("entity_ignore", ["other"])
-    task = run_a.config.get("task", {})
-    if task.get("name") == "links":   # rows are candidate pairs: link scores, no word entities
+    task_cfg = run_a.config.get("task", {}) or {}
+    if task_cfg.get("name") == "links":   # rows are candidate pairs: link scores, no entities
         scorers = {**headline_scorers(run_a.labels, entities=False),
-                   **link_scorers(str(task.get("link_kind")))}
+                   **link_scorers(str(task_cfg.get("link_kind")))}
     else:
-        scorers = headline_scorers(run_a.labels, ignore)
+        scorers = headline_scorers(run_a.labels, ignore, task=tasks.from_config(task_cfg))
     if score not in scorers:
         raise ValueError(f"--score {score!r}: choose one of {sorted(scorers)}")
     return paired_comparison(run_a.predictions, run_b.predictions, scorers[score],

@@ -1,0 +1,84 @@
+"""Boundary tags: hand-worked BIO / BIOES encodings, the repair rule against seqeval's own
+chunking, and the perfect-prediction ceiling of 1.0.
+
+Sources: the IOB2 and IOBES conventions (Ramshaw & Marcus 1995; Ratinov & Roth 2009); the
+repair rule is conlleval's chunking, which seqeval's default mode (``get_entities``) implements.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from seqeval.metrics.sequence_labeling import get_entities
+
+from dochar.data.word_table import Page
+from dochar.tasks import EntityTags, TaskError, from_config
+from dochar.tasks.entity_tags import decode, encode, repair, tag_classes
+
+
+def test_tag_classes_put_outside_first_and_skip_outside_labels():
+    assert tag_classes(["question", "answer", "other"], ["other"], "bio") == [
+        "O", "B-question", "I-question", "B-answer", "I-answer"]
+    assert len(tag_classes(["question", "answer", "other"], ["other"], "bioes")) == 1 + 2 * 4
+
+
+def test_encode_hand_worked():
+    # words 0..6: [0 1] question, 2 other, [3] answer, [4 5 6] answer
+    chunks = [(0, 1, "question"), (3, 3, "answer"), (4, 6, "answer")]
+    assert encode(chunks, 7, "bio") == ["B-question", "I-question", "O", "B-answer",
+                                        "B-answer", "I-answer", "I-answer"]
+    assert encode(chunks, 7, "bioes") == ["B-question", "E-question", "O", "S-answer",
+                                          "B-answer", "I-answer", "E-answer"]
+
+
+@pytest.mark.parametrize("tags,chunks", [
+    # BIO: an I- that opens a chunk is read as B- (conlleval); a type change cuts the chunk
+    (["I-a", "I-a", "O", "I-b", "B-b", "I-a"], [(0, 1, "a"), (3, 3, "b"), (4, 4, "b"),
+                                                (5, 5, "a")]),
+    (["B-a", "I-b", "I-b"], [(0, 0, "a"), (1, 2, "b")]),
+    (["O", "O"], []),
+])
+def test_bio_repair_hand_worked(tags, chunks):
+    assert decode(tags, "bio") == chunks
+
+
+@pytest.mark.parametrize("tags,chunks", [
+    # an unclosed B-/I- chunk ends where it stops; a lone E- or I- opens one
+    (["B-a", "I-a", "O", "E-a", "I-b", "E-b", "S-a", "E-a"],
+     [(0, 1, "a"), (3, 3, "a"), (4, 5, "b"), (6, 6, "a"), (7, 7, "a")]),
+    (["B-a", "B-a", "E-a"], [(0, 0, "a"), (1, 2, "a")]),
+    (["S-a", "I-a", "E-a"], [(0, 0, "a"), (1, 2, "a")]),
+])
+def test_bioes_repair_hand_worked(tags, chunks):
+    assert decode(tags, "bioes") == chunks
+    assert decode(repair(tags, "bioes"), "bioes") == chunks   # repaired tags are a fixed point
+
+
+@pytest.mark.parametrize("scheme,prefixes", [("bio", "BI"), ("bioes", "BIES")])
+@pytest.mark.parametrize("seed", range(5))
+def test_repair_rule_is_seqevals_default_chunking(scheme, prefixes, seed):
+    rng = np.random.default_rng(seed)
+    vocabulary = ["O"] + [f"{p}-{t}" for p in prefixes for t in ("a", "b")]
+    tags = [str(t) for t in rng.choice(vocabulary, size=60)]
+    # reference: seqeval.metrics.sequence_labeling.get_entities (conlleval chunking)
+    expected = sorted((start, end, label) for label, start, end in get_entities(tags))
+    assert sorted(decode(tags, scheme)) == expected
+
+
+def test_page_tags_follow_reading_order_not_word_ids():
+    # the table lists "12" before "Date:", but "Date:" is read first (left of it on one line)
+    boxes = np.array([[60, 10, 80, 20], [10, 10, 50, 20], [10, 40, 50, 50]], float)
+    page = Page("coa-1", 1, np.arange(3), ["12", "Date:", "Lab"], boxes, 100.0, 100.0,
+                labels=["answer", "question", "question"], entity_ids=["a", "q", "q"])
+    # read: Date:(q) 12(a) / Lab(q): entity q is split by "12" into two pieces
+    assert EntityTags("bio").tags(page) == ["B-answer", "B-question", "B-question"]
+    assert EntityTags("bioes").tags(page) == ["S-answer", "S-question", "S-question"]
+
+
+def test_from_config_refuses_unknown_names_and_options():
+    with pytest.raises(TaskError, match="choose one of"):
+        from_config({"name": "pairs"})
+    with pytest.raises(TaskError, match="unknown option"):
+        from_config({"name": "entity_tags", "schema": "bio"})
+    with pytest.raises(TaskError, match="scheme must be one of"):
+        from_config({"name": "entity_tags", "scheme": "iob1"})
