@@ -17,6 +17,7 @@ from dochar.metrics.calibration import expected_calibration_error
 from dochar.metrics.entities import entity_scores
 from dochar.metrics.intervals import bootstrap_interval
 from dochar.metrics.scorers import EntityF1, WordF1
+from dochar.metrics.seen_unseen import side_metrics
 from dochar.metrics.words import per_group_scores, score_words
 
 
@@ -50,6 +51,9 @@ def evaluate(predictions: pd.DataFrame, labels: Sequence[str], cfg: Mapping[str,
                                           n_resamples=int(cfg["bootstrap_resamples"]),
                                           confidence=float(cfg["confidence"]), seed=seed)
         metrics[f"{name}_low"], metrics[f"{name}_high"] = low, high
+    metrics.update(side_metrics(predictions, headline_scorers(labels, ignore,
+                                                              entities=has_entities),
+                                cfg, seed=seed))
     correct = (predictions["label"] == predictions["predicted"]).to_numpy()
     metrics["ece"] = float(expected_calibration_error(predictions["confidence"].to_numpy(),
                                                       correct))

@@ -15,11 +15,16 @@ from sklearn.linear_model import LogisticRegression
 from sklearn.pipeline import make_pipeline
 from sklearn.preprocessing import StandardScaler
 
+from dochar.models.template import LayoutTemplateClassifier
+
 BASELINES: dict[str, type] = {
     "random_forest": RandomForestClassifier,
     "gradient_boosting": HistGradientBoostingClassifier,
     "logistic_regression": LogisticRegression,
 }
+
+# Baselines that read whole pages rather than the flat feature matrix (``kind: template``).
+TEMPLATE_BASELINES: dict[str, type] = {"layout_template": LayoutTemplateClassifier}
 
 # Imbalanced word classes ("other" dominates) call for balanced weights; one or two threads
 # because experiments run side by side on small machines.
