@@ -16,10 +16,10 @@ import pandas as pd
 from omegaconf import DictConfig, OmegaConf
 
 from dochar.features import CharCNNEncoder, WordFeaturizer
-from dochar.models.baselines import make_baseline
+from dochar.models.baselines import make_baseline, make_template
 from dochar.models.gnn import GNNStack, count_parameters
 from dochar.models.inputs import PageSet, label_indices, to_graphs, to_matrix
-from dochar.models.template import OUTCOMES, LayoutTemplateClassifier
+from dochar.models.template import OUTCOMES
 from dochar.models.training import predict_proba, train
 from dochar.splits import PARTS
 
@@ -96,8 +96,8 @@ def fit_template(cfg: DictConfig, sets: dict[str, PageSet], featurizer: WordFeat
     signature = dict(cfg.split.get("signature") or {})
     if "keywords" in signature:
         signature["n_keywords"] = signature.pop("keywords")
-    estimator = LayoutTemplateClassifier(**dict(cfg.model.options or {}), classes=list(labels),
-                                         signature=signature)
+    estimator = make_template(str(cfg.model.estimator), dict(cfg.model.options or {}),
+                              list(labels), signature)
     started = time.perf_counter()
     estimator.fit(sets["train"].pages)
     train_seconds = time.perf_counter() - started

@@ -124,7 +124,8 @@ class LayoutTemplateClassifier(ClassifierMixin, BaseEstimator):
 
     # -- fitting ---------------------------------------------------------------------------
 
-    def _check_options(self) -> None:
+    def check_options(self) -> None:
+        """Raise a located error for an option out of range (also done by fit)."""
         where = "model=layout_template"
         if isinstance(self.neighbours, bool) or not isinstance(self.neighbours,
                                                                (int, np.integer)) \
@@ -171,7 +172,7 @@ class LayoutTemplateClassifier(ClassifierMixin, BaseEstimator):
 
     def fit(self, X: Sequence[Page], y: Sequence[Sequence[str]] | None = None
             ) -> LayoutTemplateClassifier:
-        self._check_options()
+        self.check_options()
         pages = _check_pages(X, "LayoutTemplateClassifier.fit", labelled=y is None)
         if y is not None and len(y) != len(pages):
             raise TemplateInputError(f"LayoutTemplateClassifier.fit: {len(pages)} pages but "

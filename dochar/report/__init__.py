@@ -27,6 +27,7 @@ from dochar.report.page import (
     section,
     table,
 )
+from dochar.report.seen_unseen import seen_unseen_sections
 from dochar.report.summaries import (
     ReportInputError,
     check_bundle,
@@ -75,6 +76,7 @@ def write_report(bundles: Sequence[RunBundle], out_path: str | Path, *,
     sections = [
         section("leaderboard", "Runs ranked by " + score,
                 leaderboard(bundles, names, order, score, reference_index, paired, paired_note)),
+        *seen_unseen_sections(bundles, names, order),
         section("per-class", "F1 per class", _per_class(bundles, names, order, labels)),
         section("confusion", "Confusion of the top runs", _confusion(bundles, names, order)),
         section("per-layout", "Scores per layout", _per_layout(bundles, names, order)),
