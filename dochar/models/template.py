@@ -277,4 +277,5 @@ class LayoutTemplateClassifier(ClassifierMixin, BaseEstimator):
         return np.vstack([self._page_proba(page, self._match(page)[0]) for page in pages])
 
     def predict(self, X: Sequence[Page]) -> np.ndarray:
+        self._check_fitted()
         return self.classes_[self.predict_proba(X).argmax(axis=1)]
