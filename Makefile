@@ -19,7 +19,8 @@ $(STAMP): pyproject.toml
 	touch $(STAMP)
 
 demo: $(STAMP)
-	$(BIN)/dochar run -m model=relational,random_forest tracking.experiment=$(DEMO_EXPERIMENT)
+	$(BIN)/dochar run -m model=relational,random_forest,layout_template split=seen_and_unseen_layouts \
+		tracking.experiment=$(DEMO_EXPERIMENT)
 	$(BIN)/dochar report --experiment $(DEMO_EXPERIMENT) --sweep latest
 	@echo
 	@echo "Browse every run in the MLflow UI (embedded SQLite store, no server to set up):"

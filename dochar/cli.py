@@ -36,7 +36,7 @@ def _finish(cfg, bundle, model) -> float:
     from hydra.core.hydra_config import HydraConfig
 
     from dochar.report.run_folder import write_run_files
-    from dochar.runs.console import console, ranking_table
+    from dochar.runs.console import console, has_sides, ranking_table, seen_unseen_table
     from dochar.runs.tracking import log_run, resolve_uri, ui_hint
 
     hydra_cfg = HydraConfig.get()
@@ -49,6 +49,8 @@ def _finish(cfg, bundle, model) -> float:
     else:
         bundle.save(folder)
     console.print(ranking_table([bundle], title=f"run {bundle.name}"))
+    if has_sides([bundle]):
+        console.print(seen_unseen_table([bundle]))
     if cfg.tracking.enabled and not hydra_cfg.mode.name == "MULTIRUN":
         console.print(ui_hint(uri, str(cfg.tracking.experiment)))
     return float(bundle.metrics["macro_f1"])
@@ -67,16 +69,22 @@ def _curve_job(cfg) -> float:
 
     full: list = []
 
+    axis = str(cfg.curve.get("axis") or "train_documents")
+
     def keep_full(bundle, model, point) -> None:
-        if point.split.train_documents is None and not full:
+        if point.split.get(axis) is None and not full:
             full.extend([bundle, model])
 
     seeds = list(cfg.curve.seeds) if cfg.curve.get("seeds") else None
-    frame = run_learning_curve(cfg, list(cfg.curve.sizes), seeds=seeds, on_run=keep_full)
+    frame = run_learning_curve(cfg, list(cfg.curve.sizes), seeds=seeds, on_run=keep_full,
+                               axis=axis)
     bundle, model = full
-    print(f"learning curve of {bundle.name}:")
-    print(frame[["n_train_documents", "seed", "macro_f1", "macro_f1_low", "macro_f1_high",
-                 "entity_f1", "train_seconds"]].round(3).to_string(index=False))
+    print(f"learning curve of {bundle.name} ({axis}):")
+    columns = ["n_train_documents", "documents_per_layout", "seed", "macro_f1", "macro_f1_low",
+               "macro_f1_high", "entity_f1", "seen/macro_f1", "unseen/macro_f1",
+               "train_seconds"]
+    print(frame[[c for c in columns if frame[c].notna().any()]].round(3)
+          .to_string(index=False))
     bundle.metrics.update(curve_metrics(frame))
     bundle.tables["learning_curve"] = frame.set_index("system")
     return _finish(cfg, bundle, model)

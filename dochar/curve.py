@@ -2,9 +2,15 @@
 
 Every point is a full run of the same composed config with ``split.train_documents`` set, so
 validation and test documents stay fixed along the curve and only the training part shrinks
-(a seeded subset, drawn in :func:`dochar.experiment.split_documents`). The full training part
+(a seeded subset, drawn in :func:`dochar.splits.split_run`). The full training part
 (``None``, "all") runs first: it fixes the pool size, so a size the pool cannot supply is
 refused before any more training time is spent.
+
+The other axis, ``split.pages_per_layout`` (``curve.axis``), keeps k documents of every training
+layout (nested, seeded): how a per-layout template grows with the pages labelled per layout.
+Every point of either axis is also placed at its training documents per layout
+(``curve_per_layout/<docs per layout>/<score>``), so the two kinds of curve share an axis, and
+carries its seen/unseen scores when the split has both sides.
 """
 
 from __future__ import annotations
@@ -23,6 +29,9 @@ from dochar.runs.bundle import RunBundle
 
 log = logging.getLogger(__name__)
 CURVE_SCORES: tuple[str, ...] = ("macro_f1", "micro_f1", "entity_f1")
+SIDE_SCORES: tuple[str, ...] = ("seen/macro_f1", "seen/entity_f1", "unseen/macro_f1",
+                                "unseen/entity_f1")
+AXES: tuple[str, ...] = ("train_documents", "pages_per_layout")
 RunHook = Callable[[RunBundle, Any, DictConfig], None]
 
 
@@ -46,20 +55,26 @@ def _check_sizes(sizes: Sequence[int | None]) -> list[int | None]:
     return checked
 
 
-def _point_config(cfg: DictConfig, size: int | None, seed: int) -> DictConfig:
+def _point_config(cfg: DictConfig, size: int | None, seed: int,
+                  axis: str = "train_documents") -> DictConfig:
     point = copy.deepcopy(cfg)
-    OmegaConf.update(point, "split.train_documents", size, force_add=True)
+    OmegaConf.update(point, f"split.{axis}", size, force_add=True)
     OmegaConf.update(point, "seed", seed, force_add=True)
     return point
 
 
-def _row(bundle: RunBundle, size: int | None, seed: int) -> dict[str, Any]:
+def _row(bundle: RunBundle, size: int | None, seed: int,
+         axis: str = "train_documents") -> dict[str, Any]:
     metrics = bundle.metrics
+    n_docs = int(metrics["split/train_documents"])
+    layouts = metrics.get("split/train_layouts", 0.0)
     row: dict[str, Any] = {"system": bundle.name,
                            "model_kind": bundle.tags.get("model_kind", ""), "seed": seed,
+                           "axis": axis,
                            "requested_documents": "all" if size is None else str(size),
-                           "n_train_documents": int(metrics["split/train_documents"])}
-    for score in CURVE_SCORES:
+                           "n_train_documents": n_docs,
+                           "documents_per_layout": n_docs / layouts if layouts else np.nan}
+    for score in CURVE_SCORES + SIDE_SCORES:
         for suffix in ("", "_low", "_high"):
             row[score + suffix] = float(metrics.get(score + suffix, np.nan))
     row["train_seconds"] = float(bundle.cost.get("train_seconds", np.nan))
@@ -67,16 +82,20 @@ def _row(bundle: RunBundle, size: int | None, seed: int) -> dict[str, Any]:
 
 
 def run_learning_curve(cfg: DictConfig, sizes: Sequence[int | None], *,
-                       seeds: Sequence[int] | None = None, on_run: RunHook | None = None
-                       ) -> pd.DataFrame:
+                       seeds: Sequence[int] | None = None, on_run: RunHook | None = None,
+                       axis: str = "train_documents") -> pd.DataFrame:
     """One row per (size, seed): system, n_train_documents, scores with their intervals.
 
-    ``sizes`` are training-document counts, ``None`` for the whole training part; ``seeds``
-    default to ``cfg.seed``. ``on_run(bundle, model, point_cfg)`` is called after each run,
-    e.g. to log it; the bundle carries tag ``train_documents``.
+    ``sizes`` are training-document counts (``axis="train_documents"``) or documents per
+    training layout (``axis="pages_per_layout"``; a layout with fewer keeps all of its own),
+    ``None`` for the whole training part; ``seeds`` default to ``cfg.seed``.
+    ``on_run(bundle, model, point_cfg)`` is called after each run, e.g. to log it; the bundle
+    carries tag ``train_documents``.
     """
     from dochar.experiment import run_experiment
 
+    if axis not in AXES:
+        raise LearningCurveError(f"curve.axis={axis!r}: choose one of {list(AXES)}")
     checked = _check_sizes(sizes)
     seeds = [int(cfg.seed)] if seeds is None else [int(s) for s in seeds]
     if not seeds:
@@ -86,18 +105,19 @@ def run_learning_curve(cfg: DictConfig, sizes: Sequence[int | None], *,
     for seed in seeds:
         pool: int | None = None
         for size in order:
-            if pool is not None and size is not None and size > pool:
+            if axis == "train_documents" and pool is not None and size is not None \
+                    and size > pool:
                 raise LearningCurveError(
                     f"learning-curve size {size}: the training part holds only {pool} "
                     f"documents (seed {seed}); choose sizes up to {pool}")
-            point = _point_config(cfg, size, seed)
-            log.info("learning curve: %s training documents, seed %d",
+            point = _point_config(cfg, size, seed, axis)
+            log.info("learning curve: %s = %s, seed %d", axis,
                      "all" if size is None else size, seed)
             bundle, model = run_experiment(point)
             bundle.tags["train_documents"] = str(int(bundle.metrics["split/train_documents"]))
             if size is None:
                 pool = int(bundle.metrics["split/train_documents"])
-            rows.append(_row(bundle, size, seed))
+            rows.append(_row(bundle, size, seed, axis))
             if on_run is not None:
                 on_run(bundle, model, point)
     frame = pd.DataFrame(rows)
@@ -123,12 +143,24 @@ def curve_metrics(frame: pd.DataFrame, system: str | None = None) -> dict[str, f
     own = frame[frame["system"] == system]
     metrics: dict[str, float] = {}
     for n_docs, runs in own.groupby("n_train_documents", sort=True):
-        for score in CURVE_SCORES:
-            values = runs[score].astype(float)
-            if values.notna().any():
-                metrics[f"curve/{int(n_docs)}/{score}"] = float(values.mean())
-            for suffix in ("_low", "_high"):
-                column = score + suffix
-                if len(runs) == 1 and column in runs and np.isfinite(runs[column].iloc[0]):
-                    metrics[f"curve/{int(n_docs)}/{column}"] = float(runs[column].iloc[0])
+        metrics.update(_point_metrics(runs, f"curve/{int(n_docs)}"))
+    if "documents_per_layout" in own and own["documents_per_layout"].notna().any():
+        for per_layout, runs in own.groupby(own["documents_per_layout"].round(2), sort=True):
+            metrics.update(_point_metrics(runs, f"curve_per_layout/{float(per_layout):g}"))
+    return metrics
+
+
+def _point_metrics(runs: pd.DataFrame, prefix: str) -> dict[str, float]:
+    """Mean over seeds of each score at one point, and its interval when the point is one run."""
+    metrics: dict[str, float] = {}
+    for score in CURVE_SCORES + SIDE_SCORES:
+        if score not in runs:
+            continue
+        values = runs[score].astype(float)
+        if values.notna().any():
+            metrics[f"{prefix}/{score}"] = float(values.mean())
+        for suffix in ("_low", "_high"):
+            column = score + suffix
+            if len(runs) == 1 and column in runs and np.isfinite(runs[column].iloc[0]):
+                metrics[f"{prefix}/{column}"] = float(runs[column].iloc[0])
     return metrics

@@ -32,16 +32,17 @@ log = logging.getLogger(__name__)
 
 def check_names(cfg: DictConfig) -> None:
     """Fail on an unknown builder, layer or estimator before any data is loaded."""
-    from dochar.models.baselines import BASELINES
+    from dochar.models.baselines import BASELINES, TEMPLATE_BASELINES
     from dochar.models.layers import LAYERS
 
     tasks.from_config(cfg.get("task"))
-    if cfg.model.kind not in {"gnn", "baseline"}:
-        raise graphs.GraphBuilderError(f"model.kind must be 'gnn' or 'baseline', got "
-                                       f"{cfg.model.kind!r}")
+    if cfg.model.kind not in {"gnn", "baseline", "template"}:
+        raise graphs.GraphBuilderError(f"model.kind must be 'gnn', 'baseline' or 'template', "
+                                       f"got {cfg.model.kind!r}")
     chosen = [("graph.name", cfg.graph.name, graphs.BUILDERS)]
     chosen.append(("model.layer", cfg.model.layer, LAYERS) if cfg.model.kind == "gnn"
-                  else ("model.estimator", cfg.model.estimator, BASELINES))
+                  else ("model.estimator", cfg.model.estimator,
+                        {"baseline": BASELINES, "template": TEMPLATE_BASELINES}[cfg.model.kind]))
     for key, name, registry in chosen:
         if name not in registry:
             raise graphs.GraphBuilderError(f"{key}={name!r}: unknown; choose one of "
@@ -52,6 +53,8 @@ def run_name(cfg: DictConfig) -> str:
     if cfg.get("run_name"):
         return str(cfg.run_name)
     system = system_name(cfg.model)
+    if cfg.model.kind == "template":   # reads positions only: no graph, no features
+        return system
     if cfg.model.kind != "gnn" and cfg.model.get("neighbour_features"):
         system += "+neighbours"
     if cfg.model.kind == "gnn" and (cfg.model.layer_options or {}).get("num_bases"):
@@ -104,7 +107,8 @@ def run_experiment(cfg: DictConfig) -> tuple[RunBundle, Any]:
     featurizer = WordFeaturizer.from_config(cfg.features, cfg.data).fit(sets["train"].pages)
     torch.manual_seed(int(cfg.seed))
     fitted = fit_model(cfg, sets, featurizer, labels)
-    predictions = prediction_frame(sets["test"].pages, fitted.probabilities, labels)
+    predictions = prediction_frame(sets["test"].pages, fitted.probabilities, labels,
+                                   split.assignment.test_sides)
     words = task.word_predictions(sets["test"].pages, predictions)
     scores = evaluate(predictions, labels, cfg.evaluation, seed=int(cfg.seed), task=task,
                       words=words, word_labels=word_labels)
@@ -114,9 +118,11 @@ def run_experiment(cfg: DictConfig) -> tuple[RunBundle, Any]:
                     if isinstance(v, (int, float)) and np.isfinite(v)})
     metrics.update({f"data/{k}": float(v) for k, v in data.notes.items()})
     metrics.update(split.notes)
+    metrics.update(fitted.notes)
     if not split.leakage.empty:
         scores.tables["leakage"] = split.leakage
     scores.tables["documents"] = document_table(split.table, part_of)
+    scores.tables.update(fitted.tables)
     tags = {"dataset": str(cfg.data.name), "task": task.name,
             "split_protocol": str(cfg.split.protocol),
             "graph_builder": str(cfg.graph.name), "features": "+".join(cfg.features.groups),

@@ -30,7 +30,7 @@ from dochar.features import (
 )
 from dochar.features.text_embedding import embedding_available
 from dochar.graphs import BUILDERS, GraphBuilderError, builder_options
-from dochar.models.baselines import BASELINES, make_baseline
+from dochar.models.baselines import BASELINES, TEMPLATE_BASELINES, make_baseline, make_template
 from dochar.models.gnn import NORMS, GNNStack
 from dochar.models.layers import LAYERS, layer_options
 from tests.helpers import REPO
@@ -106,6 +106,9 @@ def test_model_config_names_a_registered_layer_or_baseline(option) -> None:
         assert set(SHAPE_KEYS) <= set(model) and model.norm in NORMS
         stack = gnn_stack(model)
         assert len(stack.blocks) == model.depth
+    elif model.kind == "template":   # reads whole pages: no neighbour-feature variant
+        assert model.estimator in TEMPLATE_BASELINES and mirrors(option, model.estimator)
+        make_template(model.estimator, dict(model.options or {}), ["other"], {})
     else:
         assert model.kind == "baseline"
         assert model.estimator in BASELINES and mirrors(option, model.estimator)

@@ -21,6 +21,7 @@ from dochar.metrics.calibration import expected_calibration_error
 from dochar.metrics.entities import entity_scores
 from dochar.metrics.intervals import bootstrap_interval
 from dochar.metrics.scorers import EntityF1, WordF1
+from dochar.metrics.seen_unseen import side_metrics
 from dochar.metrics.tags import TagEntityF1, tag_entity_scores
 from dochar.metrics.words import per_group_scores, score_words
 from dochar.tasks import Task, WordLabels
@@ -85,6 +86,9 @@ def evaluate(predictions: pd.DataFrame, labels: Sequence[str], cfg: Mapping[str,
         tables["word_per_class"] = decoded.per_class
         metrics.update(_intervals(words, {"macro_f1": WordF1(word_labels, "macro")}, cfg, seed,
                                   prefix="word/"))
+    metrics.update(side_metrics(predictions, headline_scorers(labels, ignore, task=task,
+                                                              entities=has_entities),
+                                cfg, seed=seed))
     correct = (predictions["label"] == predictions["predicted"]).to_numpy()
     metrics["ece"] = float(expected_calibration_error(predictions["confidence"].to_numpy(),
                                                       correct))

@@ -15,11 +15,16 @@ from sklearn.linear_model import LogisticRegression
 from sklearn.pipeline import make_pipeline
 from sklearn.preprocessing import StandardScaler
 
+from dochar.models.template import LayoutTemplateClassifier, TemplateInputError
+
 BASELINES: dict[str, type] = {
     "random_forest": RandomForestClassifier,
     "gradient_boosting": HistGradientBoostingClassifier,
     "logistic_regression": LogisticRegression,
 }
+
+# Baselines that read whole pages rather than the flat feature matrix (``kind: template``).
+TEMPLATE_BASELINES: dict[str, type] = {"layout_template": LayoutTemplateClassifier}
 
 # Imbalanced word classes ("other" dominates) call for balanced weights; one or two threads
 # because experiments run side by side on small machines.
@@ -44,6 +49,23 @@ def make_baseline(name: str, seed: int, **options: Any) -> BaseEstimator:
     estimator = cls(**{**_DEFAULTS[name], **options, "random_state": seed})
     if name == "logistic_regression":
         return make_pipeline(StandardScaler(), estimator)
+    return estimator
+
+
+def make_template(name: str, options: dict[str, Any], classes: list[str],
+                  signature: dict[str, Any]) -> BaseEstimator:
+    """A page-reading baseline with its options checked (names and values) before any fit."""
+    if name not in TEMPLATE_BASELINES:
+        raise TemplateInputError(f"unknown template baseline {name!r}; valid: "
+                                 f"{sorted(TEMPLATE_BASELINES)}")
+    cls = TEMPLATE_BASELINES[name]
+    valid = set(cls().get_params()) - {"classes", "signature"}
+    unknown = sorted(set(options) - valid)
+    if unknown:
+        raise TemplateInputError(f"model.options: {name!r} has no option(s) {unknown}; valid "
+                                 f"options: {sorted(valid)}")
+    estimator = cls(**options, classes=classes, signature=signature)
+    estimator.check_options()
     return estimator
 
 

@@ -8,16 +8,18 @@ from __future__ import annotations
 
 import time
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
+import pandas as pd
 from omegaconf import DictConfig, OmegaConf
 
 from dochar.features import CharCNNEncoder, WordFeaturizer
-from dochar.models.baselines import make_baseline
+from dochar.models.baselines import make_baseline, make_template
 from dochar.models.gnn import GNNStack, count_parameters
 from dochar.models.inputs import PageSet, label_indices, to_graphs, to_matrix
+from dochar.models.template import OUTCOMES
 from dochar.models.training import predict_proba, train
 from dochar.splits import PARTS
 
@@ -29,6 +31,8 @@ class FittedModel:
     model: Any
     probabilities: list[np.ndarray]
     cost: dict[str, float]
+    notes: dict[str, float] = field(default_factory=dict)         # extra run metrics
+    tables: dict[str, pd.DataFrame] = field(default_factory=dict)  # extra run tables
 
 
 def system_name(model_cfg: Mapping[str, Any]) -> str:
@@ -85,10 +89,38 @@ def fit_baseline(cfg: DictConfig, sets: dict[str, PageSet], featurizer: WordFeat
     return FittedModel(estimator, np.split(full, sizes), cost)
 
 
+def fit_template(cfg: DictConfig, sets: dict[str, PageSet], featurizer: WordFeaturizer,
+                 labels: Sequence[str]) -> FittedModel:
+    """Per-layout templates from the training pages (no features, no validation use); page
+    outcomes are logged as ``template/<outcome>_pages`` and kept as the ``template_pages`` table."""
+    signature = dict(cfg.split.get("signature") or {})
+    if "keywords" in signature:
+        signature["n_keywords"] = signature.pop("keywords")
+    estimator = make_template(str(cfg.model.estimator), dict(cfg.model.options or {}),
+                              list(labels), signature)
+    started = time.perf_counter()
+    estimator.fit(sets["train"].pages)
+    train_seconds = time.perf_counter() - started
+    started = time.perf_counter()
+    full = estimator.predict_proba(sets["test"].pages)
+    infer_seconds = time.perf_counter() - started
+    matches = estimator.match_pages(sets["test"].pages)
+    sizes = np.cumsum([len(page) for page in sets["test"].pages])[:-1]
+    cost = {"train_seconds": train_seconds, "parameters": float(estimator.n_template_words_),
+            "pages_per_second": len(sets["test"].pages) / max(infer_seconds, 1e-9)}
+    counts = matches["outcome"].value_counts()
+    notes = {f"template/{outcome}_pages": float(counts.get(outcome, 0)) for outcome in OUTCOMES}
+    notes["template/families"] = float(len(estimator.families_))
+    return FittedModel(estimator, np.split(full, sizes), cost, notes,
+                       {"template_pages": matches.set_index("doc_id")})
+
+
+FITTERS = {"gnn": fit_gnn, "baseline": fit_baseline, "template": fit_template}
+
+
 def fit_model(cfg: DictConfig, sets: dict[str, PageSet], featurizer: WordFeaturizer,
               labels: Sequence[str]) -> FittedModel:
-    fit = fit_gnn if cfg.model.kind == "gnn" else fit_baseline
-    return fit(cfg, sets, featurizer, labels)
+    return FITTERS[str(cfg.model.kind)](cfg, sets, featurizer, labels)
 
 
 def _estimator_size(estimator: Any) -> int:

@@ -23,6 +23,7 @@ from dochar.report.summaries import (ReportInputError, check_bundle, class_order
                                      confusion_rows, display_names, has_layouts, layout_scores,
                                      learning_curve, metric, ranking, reliability, score_words)
 from dochar.report.verdict import provenance, verdict
+from dochar.report.seen_unseen import seen_unseen_sections
 from dochar.runs.bundle import RunBundle
 
 __all__ = ["write_report", "ReportInputError"]
@@ -63,6 +64,7 @@ def write_report(bundles: Sequence[RunBundle], out_path: str | Path, *,
     chapters = [
         ("leaderboard", f"Runs ranked by {words}",
          leaderboard(bundles, names, order, score, pairing)),
+        *seen_unseen_sections(bundles, names, order),
         ("per-class", "Word F1 per class and run", _per_class(bundles, names, order, labels)),
         ("confusion", "Which classes the top runs confuse", _confusion(bundles, names, order)),
         ("per-layout", "Word macro-F1 per layout family", _per_layout(bundles, names, order)),

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 
 import numpy as np
 import pandas as pd
@@ -15,7 +15,11 @@ EDGE_COLUMNS = ["doc_id", "page", "source", "target", "relation"]
 
 
 def prediction_frame(pages: Sequence[Page], probabilities: Sequence[np.ndarray],
-                     labels: Sequence[str]) -> pd.DataFrame:
+                     labels: Sequence[str], sides: Mapping[str, str] | None = None
+                     ) -> pd.DataFrame:
+    """One row per test word; ``layout_side`` is its document's side (seen / unseen layout,
+    ``""`` when not known), so scores per side resample whole documents."""
+    sides = sides or {}
     frames = []
     for page, proba in zip(pages, probabilities):
         frame = pd.DataFrame({
@@ -23,6 +27,7 @@ def prediction_frame(pages: Sequence[Page], probabilities: Sequence[np.ndarray],
             "text": page.texts, "x0": page.boxes[:, 0], "y0": page.boxes[:, 1],
             "x1": page.boxes[:, 2], "y1": page.boxes[:, 3], "page_width": page.width,
             "page_height": page.height, "layout_id": page.layout_id or "",
+            "layout_side": sides.get(page.doc_id, ""),
             "entity_id": page.entity_ids or [""] * len(page), "label": page.labels,
             "predicted": [labels[i] for i in proba.argmax(axis=1)],
             "confidence": proba.max(axis=1)})

@@ -9,6 +9,15 @@ Protocols:
   layout is seen in training or validation. ``test_size`` is a fraction of layouts.
 * ``layout_kfold``: ``GroupKFold`` by layout, one assignment per fold.
 * ``leave_one_layout_out``: ``LeaveOneGroupOut``, one assignment per layout.
+* ``seen_and_unseen_layouts``: whole layouts held out as under ``layout_held_out`` (the unseen
+  side of the test set) *and* ``seen_test_fraction`` of the documents of each remaining training
+  layout moved to the test set (the seen side; a layout keeps at least one training document).
+  Validation has both sides too, from the training pool only: whole layouts (``val_size`` of
+  the pool's layouts) and ``val_size`` of each remaining layout's documents, so settings chosen
+  on validation face the mix the test set holds.
+
+Every assignment records each test document's side (:func:`layout_sides`): ``seen`` when its
+layout has training documents, ``unseen`` when not, ``""`` without a layout id.
 
 Validation always comes from the training pool only (``val_size`` is a fraction of that pool;
 0 means no validation set), cut by layout under the layout protocols so that early stopping
@@ -17,6 +26,8 @@ on validation also measures unseen layouts. Each part is a sorted list of doc id
 
 from __future__ import annotations
 
+import zlib
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -26,8 +37,10 @@ from sklearn.model_selection import GroupKFold, GroupShuffleSplit, LeaveOneGroup
 from dochar.errors import DocharError
 
 PROTOCOLS: tuple[str, ...] = ("random", "fixed", "layout_held_out", "layout_kfold",
-                              "leave_one_layout_out")
-LAYOUT_PROTOCOLS = frozenset({"layout_held_out", "layout_kfold", "leave_one_layout_out"})
+                              "leave_one_layout_out", "seen_and_unseen_layouts")
+LAYOUT_PROTOCOLS = frozenset({"layout_held_out", "layout_kfold", "leave_one_layout_out",
+                              "seen_and_unseen_layouts"})
+SIDES = ("seen", "unseen")   # a test document's layout has / has no training documents
 PARTS = ("train", "val", "test")  # the parts of a split, also the values of the `split` column
 
 
@@ -43,6 +56,42 @@ class SplitAssignment:
     protocol: str
     fold: int | None = None
     test_layouts: list[str] = field(default_factory=list)   # layout protocols only
+    test_sides: dict[str, str] = field(default_factory=dict)  # test doc_id -> seen/unseen/""
+
+
+def layout_sides(train: Sequence[str], test: Sequence[str], layout_of: Mapping[str, str]
+                 ) -> dict[str, str]:
+    """Test doc_id -> ``seen`` (its layout has a training document), ``unseen``, or ``""`` (no
+    layout id: the side is not known)."""
+    trained = {layout_of.get(doc, "") for doc in train} - {""}
+    return {doc: "" if not layout_of.get(doc, "") else
+            "seen" if layout_of[doc] in trained else "unseen" for doc in test}
+
+
+def documents_per_layout(train: Sequence[str], layout_of: Mapping[str, str], per_layout: int,
+                         seed: int) -> tuple[list[str], int]:
+    """The first ``per_layout`` documents of each training layout in a seeded order that does
+    not depend on ``per_layout`` (so smaller subsets nest in larger ones), and how many layouts
+    had fewer documents than asked (they keep all of theirs)."""
+    if isinstance(per_layout, bool) or not isinstance(per_layout, (int, np.integer)) \
+            or per_layout < 1:
+        raise SplitError(f"split.pages_per_layout={per_layout!r}: use a positive number of "
+                         f"documents per layout, or null for all")
+    missing = [doc for doc in train if not layout_of.get(doc, "")]
+    if missing:
+        raise SplitError(f"split.pages_per_layout needs a layout_id for every training document; "
+                         f"{len(missing)} have none (e.g. {sorted(missing)[:5]}); set "
+                         f"split.infer_layouts=true to group them by inferred families")
+    by_layout: dict[str, list[str]] = {}
+    for doc in sorted(train):
+        by_layout.setdefault(layout_of[doc], []).append(doc)
+    kept: list[str] = []
+    short = 0
+    for layout, docs in sorted(by_layout.items()):
+        rng = np.random.default_rng([seed, zlib.crc32(layout.encode("utf-8"))])
+        kept.extend(rng.permutation(docs)[:per_layout].tolist())
+        short += len(docs) < per_layout
+    return sorted(kept), short
 
 
 def documents_of(table: pd.DataFrame) -> pd.DataFrame:
@@ -145,14 +194,53 @@ def _assignment(train: pd.DataFrame, test: pd.DataFrame, protocol: str, val_size
                            protocol, fold, sorted(test["layout_id"].unique()))
 
 
+def _seen_and_unseen(docs: pd.DataFrame, test_size: float, val_size: float,
+                     seen_fraction: float, seed: int, with_val: int) -> SplitAssignment:
+    pool, unseen = _group_cut(docs, test_size, seed, "test", "the documents", 1 + with_val)
+    assignment = _assignment(pool, unseen, "seen_and_unseen_layouts", val_size, seed + 1, None)
+    rng = np.random.default_rng(seed + 2)
+    layout_of = dict(zip(docs["doc_id"], docs["layout_id"]))
+    by_layout: dict[str, list[str]] = {}
+    for doc in assignment.train:
+        by_layout.setdefault(layout_of[doc], []).append(doc)
+    seen_test: list[str] = []
+    seen_val: list[str] = []
+    for _, members in sorted(by_layout.items()):
+        order = rng.permutation(members).tolist()
+        if len(order) >= 2:   # at least one document moves, at least one stays for training
+            n_test = _cut_size(seen_fraction, len(order), 1)
+            seen_test.extend(order[:n_test])
+            order = order[n_test:]
+        if val_size > 0 and len(order) >= 2:
+            n_val = _cut_size(val_size, len(order), 1)
+            seen_val.extend(order[:n_val])
+    assignment.train = sorted(set(assignment.train) - set(seen_test) - set(seen_val))
+    assignment.test = sorted([*assignment.test, *seen_test])
+    assignment.val = sorted([*assignment.val, *seen_val])
+    return assignment
+
+
 def make_splits(docs: pd.DataFrame, protocol: str, *, seed: int, test_size: float = 0.25,
-                val_size: float = 0.15, n_folds: int = 5) -> list[SplitAssignment]:
-    """Split one-row-per-document ``docs`` (doc_id, layout_id, split) under ``protocol``."""
+                val_size: float = 0.15, n_folds: int = 5, seen_test_fraction: float = 0.2
+                ) -> list[SplitAssignment]:
+    """Split one-row-per-document ``docs`` (doc_id, layout_id, split) under ``protocol``; each
+    assignment carries its test documents' sides (:func:`layout_sides`)."""
     if protocol not in PROTOCOLS:
         raise SplitError(f"unknown split protocol '{protocol}'; choose one of {list(PROTOCOLS)}")
     _fraction("test_size", test_size, allow_zero=False)
     _fraction("val_size", val_size, allow_zero=True)
     docs = _check_docs(docs)
+    layout_of = dict(zip(docs["doc_id"], docs["layout_id"]))
+    assignments = _make_splits(docs, protocol, seed, test_size, val_size, n_folds,
+                               seen_test_fraction)
+    for assignment in assignments:
+        assignment.test_sides = layout_sides(assignment.train, assignment.test, layout_of)
+    return assignments
+
+
+def _make_splits(docs: pd.DataFrame, protocol: str, seed: int, test_size: float,
+                 val_size: float, n_folds: int, seen_test_fraction: float
+                 ) -> list[SplitAssignment]:
     rng = np.random.default_rng(seed)
     with_val = 1 if val_size > 0 else 0
     if protocol == "random":
@@ -164,7 +252,7 @@ def make_splits(docs: pd.DataFrame, protocol: str, *, seed: int, test_size: floa
         return [SplitAssignment(train, val, test, protocol)]
     if protocol == "fixed":
         return [_fixed(docs, val_size, rng)]
-    needed = {"layout_held_out": 2, "leave_one_layout_out": 2,
+    needed = {"layout_held_out": 2, "leave_one_layout_out": 2, "seen_and_unseen_layouts": 2,
               "layout_kfold": max(n_folds, 2)}[protocol] + with_val
     why = ("train, test" + (", validation" if with_val else "")
            + (f"; {n_folds} folds" if protocol == "layout_kfold" else ""))
@@ -172,6 +260,9 @@ def make_splits(docs: pd.DataFrame, protocol: str, *, seed: int, test_size: floa
         raise SplitError(f"layout_kfold needs n_folds >= 2, got {n_folds}")
     _need_layouts(docs, protocol, needed, why)
     groups = docs["layout_id"]
+    if protocol == "seen_and_unseen_layouts":
+        _fraction("seen_test_fraction", seen_test_fraction, allow_zero=False)
+        return [_seen_and_unseen(docs, test_size, val_size, seen_test_fraction, seed, with_val)]
     if protocol == "layout_held_out":
         pool, test = _group_cut(docs, test_size, seed, "test", "the documents", 1 + with_val)
         return [_assignment(pool, test, protocol, val_size, seed + 1, None)]

@@ -232,12 +232,16 @@ def test_facts_under_the_verdict_come_from_the_runs_or_the_installed_libraries(r
     # No run records versions: the installed ones, read from each package's own __version__.
     import mlflow
     import numpy
+    import pandas
     import sklearn
     import torch
     import torch_geometric
-    installed = {"torch": torch.__version__, "torch-geometric": torch_geometric.__version__,
+
+    import dochar
+    installed = {"dochar": dochar.__version__, "torch": torch.__version__,
+                 "torch-geometric": torch_geometric.__version__,
                  "scikit-learn": sklearn.__version__, "numpy": numpy.__version__,
-                 "mlflow": mlflow.__version__}
+                 "pandas": pandas.__version__, "mlflow": mlflow.__version__}
     assert facts["libraries"] == (", ".join(f"{k} {v}" for k, v in installed.items())
                                   + " (installed where this report was written)")
     # Runs that record their versions are believed; runs that disagree are shown as such.

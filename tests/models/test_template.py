@@ -1,0 +1,151 @@
+"""The per-layout template baseline on pages built so that labels depend only on position.
+
+Each family below has fixed slots (a box and a label) in its own quarter of the page, with its
+own key words; a document of the family puts one word in every slot, moved by a jitter far
+smaller than half the gap between slots, on a page of its own size. By construction a word's
+nearest template word (positions as fractions of the page) is the same slot, so the template
+must label every word of a seen family correctly; and a page of a family never seen either
+borrows the template whose page signature is nearest (closer than the threshold) or gets
+``other`` everywhere, as the module documents.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from sklearn.metrics import f1_score
+
+from dochar.data.word_table import Page
+from dochar.models.baselines import make_template
+from dochar.models.template import LayoutTemplateClassifier, TemplateInputError, text_shape
+
+CLASSES = ["key", "value", "date", "other"]
+# quarter of the page each family writes in (x offset, y offset), and its fixed wording
+FAMILIES = {"north_west": ((0.0, 0.0), "laboratory"), "north_east": ((0.5, 0.0), "certificate"),
+            "south_west": ((0.0, 0.5), "specimen")}
+ROWS, COLUMNS = 5, 3
+
+
+def _slots(family: str) -> list[tuple[float, float, str]]:
+    """(x, y, label) of each slot, as fractions of the page: a 5 × 3 grid in the quarter."""
+    (ox, oy), _ = FAMILIES.get(family, ((0.5, 0.5), ""))
+    slots = []
+    for r in range(ROWS):
+        for c in range(COLUMNS):
+            label = ("key", "value", "date")[c] if r < 4 else "other"
+            slots.append((ox + 0.05 + 0.13 * c, oy + 0.05 + 0.09 * r, label))
+    return slots
+
+
+def _page(doc_id: str, family: str, rng: np.random.Generator, *, layout_id: str | None = None,
+          wording: str | None = None) -> Page:
+    width, height = rng.choice([600.0, 612.0, 1200.0]), rng.choice([800.0, 792.0, 1600.0])
+    texts, boxes, labels = [], [], []
+    word = wording or FAMILIES.get(family, ((0, 0), "unrelated"))[1]
+    for x, y, label in _slots(family):
+        x += rng.uniform(-0.01, 0.01)   # jitter: at most 0.01 of the page, slots 0.09 apart
+        y += rng.uniform(-0.01, 0.01)
+        boxes.append([x * width, y * height, (x + 0.08) * width, (y + 0.02) * height])
+        texts.append({"key": f"{word}:", "value": f"V{rng.integers(10, 99)}x",
+                      "date": f"{rng.integers(10, 28)}.05.2026", "other": word}[label])
+        labels.append(label)
+    return Page(doc_id=doc_id, page=1, word_ids=np.arange(len(texts)), texts=texts,
+                boxes=np.array(boxes), width=float(width), height=float(height), labels=labels,
+                layout_id=family if layout_id is None else layout_id)
+
+
+def _pages(count: int, seed: int, families=tuple(FAMILIES), **kwargs) -> list[Page]:
+    rng = np.random.default_rng(seed)
+    return [_page(f"{family}-{seed}-{i}", family, rng, **kwargs)
+            for family in families for i in range(count)]
+
+
+def _labels(pages: list[Page]) -> list[str]:
+    return [label for page in pages for label in page.labels]
+
+
+def _fitted(**options) -> LayoutTemplateClassifier:
+    return LayoutTemplateClassifier(classes=CLASSES, **options).fit(_pages(3, seed=1))
+
+
+@pytest.mark.parametrize("neighbours", [1, 3])
+def test_every_word_of_a_seen_layout_is_labelled_by_its_slot(neighbours) -> None:
+    model = _fitted(neighbours=neighbours)
+    test = _pages(4, seed=2)
+    predicted = model.predict(test)
+    # by construction the right answer is each word's own slot label: F1 must be exactly 1
+    assert f1_score(_labels(test), predicted, average="macro") == 1.0
+    assert (model.match_pages(test)["outcome"] == "template").all()
+    proba = model.predict_proba(test)
+    assert proba.shape == (len(_labels(test)), len(CLASSES))
+    assert np.allclose(proba.sum(axis=1), 1.0)
+
+
+def test_families_are_inferred_from_page_signatures_when_layout_ids_are_missing() -> None:
+    train = _pages(3, seed=1, layout_id="")
+    model = LayoutTemplateClassifier(classes=CLASSES).fit(train)
+    assert len(model.families_) == len(FAMILIES)   # three quarters, three wordings: 3 families
+    test = _pages(2, seed=5, layout_id="")
+    assert f1_score(_labels(test), model.predict(test), average="macro") == 1.0
+
+
+def test_an_unseen_family_that_looks_like_a_seen_one_borrows_its_template() -> None:
+    model = _fitted(fallback_threshold=0.3)
+    # a new layout id whose pages are north_east pages in every respect: signature distance ~0
+    test = _pages(2, seed=3, families=("north_east",), layout_id="north_east_v2")
+    matches = model.match_pages(test)
+    assert (matches["outcome"] == "fallback").all()
+    assert (matches["template"] == "north_east").all() and (matches["distance"] < 0.3).all()
+    assert f1_score(_labels(test), model.predict(test), average="macro") == 1.0
+
+
+def test_an_unseen_family_unlike_any_template_gets_other_and_is_counted() -> None:
+    model = _fitted(fallback_threshold=0.3)
+    # the south-east quarter and wording no training page uses: occupancy grids share no cell
+    # and the keyword bags no word, so the cosine distance is near 1 (well above 0.3)
+    test = _pages(2, seed=4, families=("south_east",))
+    matches = model.match_pages(test)
+    assert (matches["outcome"] == "no_template").all() and (matches["template"] == "").all()
+    assert (matches["distance"] > 0.3).all()
+    assert set(model.predict(test)) == {"other"}
+    assert np.array_equal(model.predict_proba(test)[:, CLASSES.index("other")],
+                          np.ones(len(_labels(test))))
+    # the threshold is the only thing that decides: at the largest cosine distance (2) the same
+    # pages fall back to their nearest template instead
+    loose = _fitted(fallback_threshold=2.0).match_pages(test)
+    assert (loose["outcome"] == "fallback").all() and (loose["template"] != "").all()
+
+
+def test_text_shape_breaks_ties_between_words_at_one_place() -> None:
+    box = np.array([[100.0, 100.0, 140.0, 110.0]])
+
+    def page(doc: str, text: str, label: str) -> Page:
+        return Page(doc, 1, np.array([0]), [text], box.copy(), 600.0, 800.0, [label],
+                    layout_id="one")
+    model = LayoutTemplateClassifier(classes=CLASSES, shape_weight=0.02).fit(
+        [page("a", "Lot:", "key"), page("b", "4711", "value")])
+    assert list(model.predict([page("c", "0815", "value"), page("d", "Batch:", "key")])) \
+        == ["value", "key"]
+    # text shape: digits 9, capitals A, other letters a, runs collapsed (as documented)
+    assert text_shape("Lot 42-b") == "Aa 9-a" and text_shape("12.05.2026") == "9.9.9"
+
+
+def test_bad_input_gets_a_located_error() -> None:
+    pages = _pages(1, seed=1)
+    unlabelled = Page("doc-x", 2, np.array([0]), ["x"], np.array([[0.0, 0, 1, 1]]), 10.0, 10.0)
+    with pytest.raises(TemplateInputError, match=r"page doc-x#p2 has no label"):
+        LayoutTemplateClassifier(classes=CLASSES).fit([unlabelled])
+    wrong = _pages(1, seed=1)[0]
+    wrong.labels = ["verdict", *wrong.labels[1:]]
+    with pytest.raises(TemplateInputError, match=rf"page {wrong.key}, word 0: label 'verdict'"):
+        LayoutTemplateClassifier(classes=CLASSES).fit([wrong])
+    with pytest.raises(TemplateInputError, match=r"neighbours must be a positive int, got 0"):
+        LayoutTemplateClassifier(classes=CLASSES, neighbours=0).fit(pages)
+    with pytest.raises(TemplateInputError, match=r"unknown_label 'blank' is not one of"):
+        LayoutTemplateClassifier(classes=CLASSES, unknown_label="blank").fit(pages)
+    with pytest.raises(TemplateInputError, match=r"no option\(s\) \['k'\]; valid options"):
+        make_template("layout_template", {"k": 3}, CLASSES, {})
+    with pytest.raises(TemplateInputError, match=r"item 1 is a dict, not a Page"):
+        LayoutTemplateClassifier(classes=CLASSES).fit([pages[0], {"doc_id": "x"}])
+    with pytest.raises(TemplateInputError, match=r"call fit before predict"):
+        LayoutTemplateClassifier().predict(pages)
