@@ -7,6 +7,7 @@
     dochar report [--experiment NAME]    static HTML page of an experiment's runs
     dochar gate [--update] [key=value]   reference run vs the committed baseline (CI)
     dochar import SRC... --out TABLE     PDF, hOCR, ALTO, page images, form JSON -> word table
+    dochar tracking-server [--db-uri ..] shared MLflow server on PostgreSQL, loopback by default
 """
 
 from __future__ import annotations
@@ -36,10 +37,12 @@ def _finish(cfg, bundle, model) -> float:
 
     from dochar.report.run_folder import write_run_files
     from dochar.runs.console import console, ranking_table
-    from dochar.runs.tracking import log_run, resolve_uri
+    from dochar.runs.sweep import validation_score
+    from dochar.runs.tracking import log_run, resolve_uri, seal
 
     hydra_cfg = HydraConfig.get()
     bundle.command = " ".join(["dochar", _SUBCOMMAND[0], *hydra_cfg.overrides.task])
+    seal(bundle)
     folder = Path(hydra_cfg.runtime.output_dir) / "run"
     write_run_files(folder, bundle, model)
     if cfg.tracking.enabled:
@@ -48,12 +51,19 @@ def _finish(cfg, bundle, model) -> float:
     else:
         bundle.save(folder)
     console.print(ranking_table([bundle], title=f"run {bundle.name}"))
-    return float(bundle.metrics["macro_f1"])
+    return validation_score(bundle)   # what sweepers optimise: never a test score
 
 
 def _run_job(cfg) -> float:
+    from dochar.data.sources import load_data
+    from dochar.data.word_table import table_fingerprint
     from dochar.experiment import run_experiment
+    from dochar.runs.sweep import skip_if_finished
 
+    done = skip_if_finished(cfg, lambda: table_fingerprint(
+        load_data(cfg.data, strict=bool(cfg.strict)).table))
+    if done is not None:
+        return done
     bundle, model = run_experiment(cfg)
     return _finish(cfg, bundle, model)
 
@@ -112,13 +122,15 @@ def _reported(task):
 
 
 def _hydra_command(task, argv: list[str]) -> int:
+    from dochar.runs.sweep import exit_code, guard_job
+
     _SUBCOMMAND[0] = argv[0]
     sys.argv = [f"dochar {argv[0]}", *argv[1:]]
     try:
-        _hydra_main(_reported(task))()
+        _hydra_main(_reported(guard_job(task)))()
     except SystemExit as stop:
         return int(stop.code or 0)
-    return 0
+    return exit_code()
 
 
 def _load(uri: str, experiment: str, run_ids: list[str] | None):
@@ -214,6 +226,9 @@ def main(argv: list[str] | None = None) -> int:
     if argv and argv[0] == "import":
         from dochar.data.import_command import main as import_main
         return import_main(argv[1:])
+    if argv and argv[0] == "tracking-server":
+        from dochar.runs.server import main as server_main
+        return server_main(argv[1:])
     if argv and argv[0] == "gate":
         from dochar.gate.command import main as gate_main
 
