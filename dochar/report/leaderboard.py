@@ -11,6 +11,7 @@ from dochar.runs.bundle import RunBundle
 
 PairedFn = Callable[[Any, Any], Any]
 REFERENCE_MODEL = "random_forest"
+TUNING_BUDGET = "tuning_budget"
 
 
 def resolve_reference(bundles: Sequence[RunBundle], names: Sequence[str],
@@ -80,6 +81,11 @@ def leaderboard(bundles: Sequence[RunBundle], names: Sequence[str], order: Seque
                    "two-sided p-value for no difference"]
     headers += ["train (s)", "pages/s", "parameters"]
     titles += ["training wall-clock seconds", "test pages per second", "as recorded by the run"]
+    tuned = any(TUNING_BUDGET in bundle.tags for bundle in bundles)
+    if tuned:
+        headers.append("tuning budget")
+        titles.append("Optuna trials this system was given (tag tuning_budget), each scored on "
+                      "validation words only")
     rows, classes, failures = [], [], []
     for rank, i in enumerate(order, start=1):
         bundle = bundles[i]
@@ -91,6 +97,9 @@ def leaderboard(bundles: Sequence[RunBundle], names: Sequence[str], order: Seque
                     _paired_cells(paired, bundle, bundles[reference_index], failures, names[i]))
         row += [amount(_cost(bundle, "train_seconds")), amount(_cost(bundle, "pages_per_second")),
                 count(_cost(bundle, "parameters"))]
+        if tuned:
+            budget = bundle.tags.get(TUNING_BUDGET)
+            row.append(f"{budget} trials" if budget else "not tuned")
         rows.append(row)
         classes.append(" ".join(c for c, on in (("best", rank == 1),
                                                 ("reference", i == reference_index)) if on))
