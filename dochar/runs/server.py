@@ -48,17 +48,18 @@ def check_database(uri: str, timeout: int = CONNECT_TIMEOUT_SECONDS) -> None:
         raise DatabaseUnreachable(f"--db-uri must be a postgresql:// URI, got "
                                   f"{mask_passwords(uri)!r}")
     try:
-        import psycopg2
+        import psycopg   # SQLAlchemy 2.1's default driver for postgresql:// (MLflow's store)
     except ImportError:
-        raise DatabaseUnreachable("the PostgreSQL driver is missing: pip install psycopg2-binary "
-                                  "(a dochar dependency; reinstall dochar)") from None
+        raise DatabaseUnreachable("the PostgreSQL driver is missing: pip install "
+                                  "'psycopg[binary]' (a dochar dependency; reinstall dochar)") \
+            from None
     try:
-        psycopg2.connect(host=parts.hostname or "127.0.0.1", port=parts.port or 5432,
+        psycopg.connect(host=parts.hostname or "127.0.0.1", port=parts.port or 5432,
                          user=unquote(parts.username) if parts.username else None,
                          password=unquote(parts.password) if parts.password else None,
                          dbname=(parts.path or "/").lstrip("/") or None,
                          connect_timeout=timeout).close()
-    except psycopg2.OperationalError as error:
+    except psycopg.OperationalError as error:
         reason = mask_passwords(str(error).strip().splitlines()[0] if str(error).strip()
                                 else type(error).__name__)
         raise DatabaseUnreachable(f"PostgreSQL at {mask_passwords(uri)} is not reachable: "
