@@ -8,6 +8,7 @@
     dochar runs [--experiment NAME]      list the tracked runs (id, name, data, scores, date)
     dochar gate [--update] [key=value]   reference run vs the committed baseline (CI)
     dochar import SRC... --out TABLE     PDF, hOCR, ALTO, page images, form JSON -> word table
+    dochar tracking-server [--db-uri ..] shared MLflow server on PostgreSQL, loopback by default
 """
 
 from __future__ import annotations
@@ -37,10 +38,12 @@ def _finish(cfg, bundle, model) -> float:
 
     from dochar.report.run_folder import write_run_files
     from dochar.runs.console import console, has_sides, ranking_table, seen_unseen_table
-    from dochar.runs.tracking import log_run, resolve_uri, ui_hint
+    from dochar.runs.sweep import in_sweep, validation_score
+    from dochar.runs.tracking import log_run, resolve_uri, seal, ui_hint
 
     hydra_cfg = HydraConfig.get()
     bundle.command = " ".join(["dochar", _SUBCOMMAND[0], *hydra_cfg.overrides.task])
+    seal(bundle)
     folder = Path(hydra_cfg.runtime.output_dir) / "run"
     write_run_files(folder, bundle, model)
     uri = resolve_uri(cfg.tracking.uri)
@@ -51,14 +54,21 @@ def _finish(cfg, bundle, model) -> float:
     console.print(ranking_table([bundle], title=f"run {bundle.name}"))
     if has_sides([bundle]):
         console.print(seen_unseen_table([bundle]))
-    if cfg.tracking.enabled and not hydra_cfg.mode.name == "MULTIRUN":
+    if cfg.tracking.enabled and not in_sweep():
         console.print(ui_hint(uri, str(cfg.tracking.experiment)))
-    return float(bundle.metrics["macro_f1"])
+    return validation_score(bundle)   # what sweepers optimise: never a test score
 
 
 def _run_job(cfg) -> float:
+    from dochar.data.sources import load_data
+    from dochar.data.word_table import table_fingerprint
     from dochar.experiment import run_experiment
+    from dochar.runs.sweep import skip_if_finished
 
+    done = skip_if_finished(cfg, lambda: table_fingerprint(
+        load_data(cfg.data, strict=bool(cfg.strict)).table))
+    if done is not None:
+        return done
     bundle, model = run_experiment(cfg)
     return _finish(cfg, bundle, model)
 
@@ -135,13 +145,15 @@ def _reported(task):
 
 
 def _hydra_command(task, argv: list[str]) -> int:
+    from dochar.runs.sweep import exit_code, guard_job
+
     _SUBCOMMAND[0] = argv[0]
     sys.argv = [f"dochar {argv[0]}", *argv[1:]]
     try:
-        _hydra_main(_reported(task))()
+        _hydra_main(_reported(guard_job(task)))()
     except SystemExit as stop:
         return int(stop.code or 0)
-    return 0
+    return exit_code()
 
 
 def _store(uri: str):
@@ -247,6 +259,9 @@ def main(argv: list[str] | None = None) -> int:
         from dochar.data.import_command import main as import_main
 
         return import_main(argv[1:])
+    if argv and argv[0] == "tracking-server":
+        from dochar.runs.server import main as server_main
+        return server_main(argv[1:])
     if argv and argv[0] == "gate":
         from dochar.gate.command import main as gate_main
 

@@ -14,9 +14,11 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from omegaconf import DictConfig, OmegaConf
+from sklearn.metrics import f1_score
 
 from dochar.features import CharCNNEncoder, WordFeaturizer
 from dochar.models.baselines import make_baseline, make_template
+from dochar.models.checkpoints import EpochCheckpoint, inputs_digest, training_key
 from dochar.models.gnn import GNNStack, count_parameters
 from dochar.models.inputs import PageSet, label_indices, to_graphs, to_matrix
 from dochar.models.template import OUTCOMES
@@ -54,17 +56,36 @@ def fit_gnn(cfg: DictConfig, sets: dict[str, PageSet], featurizer: WordFeaturize
                      residual=model_cfg.residual, char_encoder=encoder,
                      char_dim=int(cfg.features.char_cnn.out_dim) if encoder else 0,
                      layer_options=dict(model_cfg.layer_options or {}))
+    checkpoint = _checkpoint(cfg, graphs)
     started = time.perf_counter()
-    history = train(model, graphs["train"], graphs["val"], len(labels), cfg.train, int(cfg.seed))
+    history = train(model, graphs["train"], graphs["val"], len(labels), cfg.train, int(cfg.seed),
+                    checkpoint=checkpoint)
     train_seconds = time.perf_counter() - started
+    if checkpoint is not None:
+        checkpoint.remove()
     started = time.perf_counter()
     probabilities = predict_proba(model, graphs["test"])
     infer_seconds = time.perf_counter() - started
     cost = {"train_seconds": train_seconds, "parameters": float(count_parameters(model)),
             "pages_per_second": len(graphs["test"]) / max(infer_seconds, 1e-9),
             "best_epoch": float(history.best_epoch), "epochs_run": float(history.epochs_run),
-            "best_val_macro_f1": history.best_val_macro_f1}
+            "best_val_macro_f1": history.best_val_macro_f1,
+            "val_macro_f1": history.best_val_macro_f1 if graphs["val"] else float("nan")}
     return FittedModel(model, probabilities, cost)
+
+
+def _checkpoint(cfg: DictConfig, graphs: dict[str, list]) -> EpochCheckpoint | None:
+    """Epoch checkpoints under ``train.checkpoint_dir`` (null: none), keyed by what training
+    depends on, so the same config on the same data resumes a killed run."""
+    folder = cfg.train.get("checkpoint_dir")
+    if not folder:
+        return None
+    inputs = inputs_digest(graphs["train"], graphs["val"])
+    encoder = (OmegaConf.to_container(cfg.features.char_cnn, resolve=True)
+               if "char_cnn" in cfg.features else {})
+    key = training_key({**OmegaConf.to_container(cfg.model, resolve=True), "char_cnn": encoder},
+                       cfg.train, int(cfg.seed), inputs)
+    return EpochCheckpoint(folder, key, inputs)
 
 
 def fit_baseline(cfg: DictConfig, sets: dict[str, PageSet], featurizer: WordFeaturizer,
@@ -85,8 +106,21 @@ def fit_baseline(cfg: DictConfig, sets: dict[str, PageSet], featurizer: WordFeat
     full[:, estimator.classes_] = seen  # classes absent from training keep probability 0
     sizes = np.cumsum([len(page) for page in sets["test"].pages])[:-1]
     cost = {"train_seconds": train_seconds, "parameters": float(_estimator_size(estimator)),
-            "pages_per_second": len(sets["test"].pages) / max(infer_seconds, 1e-9)}
+            "pages_per_second": len(sets["test"].pages) / max(infer_seconds, 1e-9),
+            "val_macro_f1": _validation_macro_f1(estimator, sets["val"], featurizer, index,
+                                                 options)}
     return FittedModel(estimator, np.split(full, sizes), cost)
+
+
+def _validation_macro_f1(estimator: Any, pages: PageSet, featurizer: WordFeaturizer,
+                         index: Mapping[str, int], options: Mapping[str, Any]) -> float:
+    """Word macro-F1 on the validation pages, defined as the GNN's early-stopping score
+    (scikit-learn's macro F1 over the classes present): what tuning may look at."""
+    if not pages.pages:
+        return float("nan")
+    y_val = np.concatenate([label_indices(p, index) for p in pages.pages])
+    predicted = estimator.predict(to_matrix(pages, featurizer, **options))
+    return float(f1_score(y_val, predicted, average="macro", zero_division=0))
 
 
 def fit_template(cfg: DictConfig, sets: dict[str, PageSet], featurizer: WordFeaturizer,

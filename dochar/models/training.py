@@ -75,8 +75,11 @@ class TrainHistory:
 
 
 def train(model: torch.nn.Module, train_graphs: Sequence[Data], val_graphs: Sequence[Data],
-          num_classes: int, cfg: Mapping[str, Any], seed: int) -> TrainHistory:
-    """AdamW on weighted cross-entropy; keep the weights of the best validation epoch."""
+          num_classes: int, cfg: Mapping[str, Any], seed: int,
+          checkpoint: Any = None) -> TrainHistory:
+    """AdamW on weighted cross-entropy; keep the weights of the best validation epoch.
+
+    ``checkpoint`` (an ``EpochCheckpoint``) is saved after every epoch and resumed from first."""
     loader = DataLoader(list(train_graphs), batch_size=int(cfg["pages_per_batch"]), shuffle=True,
                         generator=torch.Generator().manual_seed(seed))
     optimizer = torch.optim.AdamW(model.parameters(), lr=float(cfg["learning_rate"]),
@@ -85,7 +88,11 @@ def train(model: torch.nn.Module, train_graphs: Sequence[Data], val_graphs: Sequ
         weight=class_weights(train_graphs, num_classes, cfg["class_weighting"]))
     history, best_state = TrainHistory(), copy.deepcopy(model.state_dict())
     val_batch = Batch.from_data_list(list(val_graphs)) if val_graphs else None
-    epochs = tqdm(range(1, int(cfg["max_epochs"]) + 1), desc="epochs", leave=False,
+    first = 1
+    if checkpoint is not None:
+        first, best_state = checkpoint.restore(model, optimizer, loader.generator, history,
+                                               best_state)
+    epochs = tqdm(range(first, int(cfg["max_epochs"]) + 1), desc="epochs", leave=False,
                   disable=not cfg.get("progress", True))
     for epoch in epochs:
         model.train()
@@ -99,6 +106,8 @@ def train(model: torch.nn.Module, train_graphs: Sequence[Data], val_graphs: Sequ
         history.losses.append(total / len(train_graphs))
         if val_batch is None:  # no validation documents: train the full budget, keep the last
             best_state, history.best_epoch, history.epochs_run = model.state_dict(), epoch, epoch
+            if checkpoint is not None:
+                checkpoint.save(epoch, model, optimizer, loader.generator, history, best_state)
             continue
         score = macro_f1(model, val_batch)
         history.val_scores.append(score)
@@ -110,5 +119,7 @@ def train(model: torch.nn.Module, train_graphs: Sequence[Data], val_graphs: Sequ
                            best=f"{history.best_val_macro_f1:.3f}")
         if epoch - history.best_epoch >= int(cfg["patience"]):
             break
+        if checkpoint is not None:
+            checkpoint.save(epoch, model, optimizer, loader.generator, history, best_state)
     model.load_state_dict(best_state)
     return history

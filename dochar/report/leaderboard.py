@@ -12,6 +12,7 @@ from dochar.runs.bundle import RunBundle
 
 PairedFn = Callable[[Any, Any], Any]
 REFERENCE_MODEL = "random_forest"
+TUNING_BUDGET = "tuning_budget"
 
 
 def resolve_reference(bundles: Sequence[RunBundle], names: Sequence[str],
@@ -111,6 +112,11 @@ def leaderboard(bundles: Sequence[RunBundle], names: Sequence[str], order: Seque
                    "of the difference", "two-sided p-value for no difference"]
     headers += ["train (s)", "pages/s", "parameters"]
     titles += ["training wall-clock seconds", "test pages per second", "as recorded by the run"]
+    tuned = any(TUNING_BUDGET in bundle.tags for bundle in bundles)
+    if tuned:
+        headers.append("tuning budget")
+        titles.append("Optuna trials this system was given (tag tuning_budget), each scored on "
+                      "validation words only")
     rows, classes = [], []
     for rank, i in enumerate(order, start=1):
         bundle = bundles[i]
@@ -121,6 +127,9 @@ def leaderboard(bundles: Sequence[RunBundle], names: Sequence[str], order: Seque
             row += _paired_cells(pairing, i)
         row += [amount(_cost(bundle, "train_seconds")), amount(_cost(bundle, "pages_per_second")),
                 count(_cost(bundle, "parameters"))]
+        if tuned:
+            budget = bundle.tags.get(TUNING_BUDGET)
+            row.append(f"{budget} trials" if budget else "not tuned")
         rows.append(row)
         classes.append(" ".join(c for c, on in (("best", rank == 1),
                                                 ("reference", i == pairing.reference)) if on))

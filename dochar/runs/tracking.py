@@ -2,19 +2,29 @@
 
 No server is needed: ``sqlite:///mlflow.db`` in the working directory holds runs and params, and
 artifacts go to ``mlartifacts/`` beside it. ``MLFLOW_TRACKING_URI`` or ``tracking.uri`` point
-elsewhere (a server, another file).
+elsewhere (a shared server from ``dochar tracking-server``, another file).
+
+Parallel sweeps on SQLite: SQLite lets one writer in at a time and MLflow's store gives up with
+"database is locked" when several job processes write at once, so every write to a SQLite store
+from dochar goes through one file lock beside the database (``mlflow.db.lock``). A server needs
+no lock: it serialises its own database writes.
 """
 
 from __future__ import annotations
 
+import contextlib
+import hashlib
+import json
 import os
+import re
 import subprocess
-from collections.abc import Mapping
+from collections.abc import Callable, Iterator, Mapping
 from pathlib import Path
 from typing import Any
 
 import mlflow
 import mlflow.data
+from filelock import FileLock
 from mlflow.tracking import MlflowClient
 
 from dochar.runs.bundle import RunBundle
@@ -27,6 +37,34 @@ EXPERIMENT_KIND_TAG = "mlflow.experimentKind"
 MODEL_DEVELOPMENT = "custom_model_development"
 LOCAL_UI = "http://127.0.0.1:5000"
 LIBRARIES = ("dochar", "torch", "torch-geometric", "scikit-learn", "numpy", "pandas", "mlflow")
+CONFIG_HASH_TAG = "config_hash"
+FINGERPRINT_TAG = "data_fingerprint"
+MASK = "***"
+SQLITE_LOCK_SECONDS = 600.0
+# Keys that change how a run is shown or logged, not what it computes: left out of the hash.
+UNHASHED = ("tracking", "run_name", "hydra", "train.progress", "train.checkpoint_dir")
+
+# RFC 3986 section 3.2.1: authority = [userinfo "@"] host, userinfo = user ":" password, neither
+# holding "/?#[]@" unencoded. Only the password is replaced: user and host stay readable.
+_PASSWORD = re.compile(r"(?P<head>[A-Za-z][A-Za-z0-9+.\-]*://[^:/?#\[\]@\s]*:)"
+                       r"(?P<password>[^/?#\[\]@\s]*)@")
+
+
+def mask_passwords(text: str) -> str:
+    """``postgresql://ana:s3cret@db/x`` -> ``postgresql://ana:***@db/x``: the one masking rule
+    for everything dochar prints, logs or writes."""
+    return _PASSWORD.sub(lambda m: f"{m['head']}{MASK}@", text)
+
+
+def masked(value: Any) -> Any:
+    """The same value with every URI password inside it (strings, lists, mappings) masked."""
+    if isinstance(value, str):
+        return mask_passwords(value)
+    if isinstance(value, Mapping):
+        return {key: masked(item) for key, item in value.items()}
+    if isinstance(value, (list, tuple)):
+        return type(value)(masked(item) for item in value)
+    return value
 
 
 def resolve_uri(configured: str | None = None) -> str:
@@ -37,25 +75,41 @@ def resolve_uri(configured: str | None = None) -> str:
     return f"sqlite:///{Path(DEFAULT_STORE).resolve()}"
 
 
+def sqlite_path(uri: str) -> Path | None:
+    return Path(uri.removeprefix("sqlite:///")) if uri.startswith("sqlite:///") else None
+
+
+@contextlib.contextmanager
+def store_writes(uri: str) -> Iterator[None]:
+    """Hold the store's write lock (SQLite only; a no-op for servers and other databases)."""
+    path = sqlite_path(uri)
+    if path is None:
+        yield
+        return
+    path.parent.mkdir(parents=True, exist_ok=True)
+    with FileLock(f"{path}.lock", timeout=SQLITE_LOCK_SECONDS):
+        yield
+
+
 def ensure_experiment(uri: str, name: str) -> str:
     """Create the experiment on first use, with artifacts beside a local SQLite store.
 
     MLflow 3's UI opens an experiment by its kind; marking dochar's as model development makes
     it open on the runs view (an unmarked one opens on traces, empty for dochar).
     """
-    client = MlflowClient(tracking_uri=uri)
-    experiment = client.get_experiment_by_name(name)
-    if experiment is None:
-        location = None
-        if uri.startswith("sqlite:///"):
-            location = (Path(uri.removeprefix("sqlite:///")).parent / DEFAULT_ARTIFACTS).resolve()
-            location = location.as_uri()
-        experiment_id = client.create_experiment(name, artifact_location=location)
-    else:
-        experiment_id = experiment.experiment_id
-    if (experiment is None or experiment.tags.get(EXPERIMENT_KIND_TAG) != MODEL_DEVELOPMENT):
-        client.set_experiment_tag(experiment_id, EXPERIMENT_KIND_TAG, MODEL_DEVELOPMENT)
-    return experiment_id
+    with store_writes(uri):
+        client = MlflowClient(tracking_uri=uri)
+        experiment = client.get_experiment_by_name(name)
+        if experiment is None:
+            location = None
+            if (path := sqlite_path(uri)) is not None:
+                location = (path.parent / DEFAULT_ARTIFACTS).resolve().as_uri()
+            experiment_id = client.create_experiment(name, artifact_location=location)
+        else:
+            experiment_id = experiment.experiment_id
+        if experiment is None or experiment.tags.get(EXPERIMENT_KIND_TAG) != MODEL_DEVELOPMENT:
+            client.set_experiment_tag(experiment_id, EXPERIMENT_KIND_TAG, MODEL_DEVELOPMENT)
+        return experiment_id
 
 
 def runs_view(uri: str, experiment_id: str, ui: str = LOCAL_UI) -> str:
@@ -111,6 +165,13 @@ def flatten(config: Mapping[str, Any], prefix: str = "") -> dict[str, str]:
     return flat
 
 
+def config_hash(config: Mapping[str, Any]) -> str:
+    """Hash of the resolved config without the keys in UNHASHED: equal hashes, same computation."""
+    kept = {key: value for key, value in flatten(config).items()
+            if not any(key == k or key.startswith(f"{k}.") for k in UNHASHED)}
+    return hashlib.sha256(json.dumps(kept, sort_keys=True).encode()).hexdigest()[:20]
+
+
 def git_commit() -> str:
     try:
         return subprocess.run(["git", "rev-parse", "HEAD"], capture_output=True, text=True,
@@ -119,18 +180,52 @@ def git_commit() -> str:
         return "unknown"
 
 
+def seal(bundle: RunBundle) -> RunBundle:
+    """Tag the run with its config hash, then mask passwords in its config, command and tags:
+    done once, before the run folder is written, so no file or store ever sees a password."""
+    bundle.tags.setdefault(CONFIG_HASH_TAG, config_hash(bundle.config))
+    tuning = bundle.config.get("tuning") or {}
+    if tuning.get("budget") is not None:
+        bundle.tags["tuning_budget"] = str(tuning["budget"])
+        bundle.tags["tuning_score"] = str(tuning.get("score", ""))
+    bundle.config = masked(bundle.config)
+    bundle.command = mask_passwords(bundle.command)
+    bundle.tags = masked(bundle.tags)
+    return bundle
+
+
 def log_run(bundle: RunBundle, folder: Path, *, uri: str, experiment: str,
             extra_tags: Mapping[str, str] | None = None) -> str:
     """Log params, metrics, tags and the bundle folder (artifacts); return the run id."""
+    seal(bundle)
     experiment_id = ensure_experiment(uri, experiment)
+    with _tracking_uri(uri):
+        return _log(bundle, folder, uri, experiment_id, extra_tags)
+
+
+@contextlib.contextmanager
+def _tracking_uri(uri: str) -> Iterator[None]:
+    """MLflow's fluent API for one block; its `set_tracking_uri` also writes
+    MLFLOW_TRACKING_URI into the environment, which later subprocesses would inherit."""
+    before = os.environ.get("MLFLOW_TRACKING_URI")
     mlflow.set_tracking_uri(uri)
-    bundle.tags.update({**(extra_tags or {}), "git_commit": git_commit(), **library_versions()})
+    try:
+        yield
+    finally:
+        mlflow.set_tracking_uri(before)
+
+
+def _log(bundle: RunBundle, folder: Path, uri: str, experiment_id: str,
+         extra_tags: Mapping[str, str] | None) -> str:
+    bundle.tags.update({**masked(dict(extra_tags or {})), "git_commit": git_commit(),
+                        **library_versions()})
     if os.environ.get(SWEEP_ID_ENV):
         bundle.tags["sweep_id"] = os.environ[SWEEP_ID_ENV]
     tags = dict(bundle.tags)
     if os.environ.get(SWEEP_PARENT_ENV):
         tags["mlflow.parentRunId"] = os.environ[SWEEP_PARENT_ENV]
-    with mlflow.start_run(experiment_id=experiment_id, run_name=bundle.name, tags=tags) as run:
+    with store_writes(uri), mlflow.start_run(experiment_id=experiment_id, run_name=bundle.name,
+                                             tags=tags) as run:
         mlflow.log_params(flatten(bundle.config))
         mlflow.log_metrics({k: v for k, v in {**bundle.metrics, **{f"cost/{k}": v for k, v in
                                                                   bundle.cost.items()}}.items()})
@@ -139,3 +234,40 @@ def log_run(bundle: RunBundle, folder: Path, *, uri: str, experiment: str,
         bundle.save(folder)
         mlflow.log_artifacts(str(folder))
     return bundle.run_id
+
+
+def log_failed_run(uri: str, experiment: str, name: str, reason: str,
+                   tags: Mapping[str, str]) -> str:
+    """A run with status FAILED and the reason as a tag, so a shared store shows what broke."""
+    experiment_id = ensure_experiment(uri, experiment)
+    all_tags = {**tags, "failure": mask_passwords(reason)[:5000]}
+    if os.environ.get(SWEEP_ID_ENV):
+        all_tags["sweep_id"] = os.environ[SWEEP_ID_ENV]
+    if os.environ.get(SWEEP_PARENT_ENV):
+        all_tags["mlflow.parentRunId"] = os.environ[SWEEP_PARENT_ENV]
+    with store_writes(uri):
+        client = MlflowClient(tracking_uri=uri)
+        run = client.create_run(experiment_id, run_name=name, tags=masked(all_tags))
+        client.set_terminated(run.info.run_id, status="FAILED")
+    return run.info.run_id
+
+
+def finished_run(uri: str, experiment: str, hash_value: str,
+                 data_fingerprint: Callable[[], str]) -> Any | None:
+    """A FINISHED run of the experiment with this config hash and data fingerprint, or None.
+
+    The fingerprint is asked for only when some run has the hash (it may mean loading the data).
+    """
+    with store_writes(uri):
+        client = MlflowClient(tracking_uri=uri)
+        found = client.get_experiment_by_name(experiment)
+        if found is None:
+            return None
+        runs = client.search_runs([found.experiment_id],
+                                  filter_string=(f"tags.{CONFIG_HASH_TAG} = '{hash_value}' and "
+                                                 "attributes.status = 'FINISHED'"),
+                                  max_results=50)
+    if not runs:
+        return None
+    fingerprint = data_fingerprint()
+    return next((run for run in runs if run.data.tags.get(FINGERPRINT_TAG) == fingerprint), None)
