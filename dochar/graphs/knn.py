@@ -54,9 +54,11 @@ def nearest_words(geo: PageGeometry, take: int) -> tuple[np.ndarray, np.ndarray]
     while len(pending):
         low, high = index.window(pending, reach)
         query, box = index.boxes_in(low, high)
-        other = box != pending[query]
-        query, box = query[other], box[other]
         gap2, centre2, _, _ = geo.pair_keys(pending[query], box)
+        whole = index.covers_grid(low, high)
+        # a settled target's answers all lie within the bound: rank only those pairs
+        usable = (box != pending[query]) & ((gap2 < index.gap_bound2(reach)) | whole[query])
+        query, box, gap2, centre2 = query[usable], box[usable], gap2[usable], centre2[usable]
         order = order_within_groups(query, (gap2, centre2, geo.rank[box]))
         query, box, gap2 = query[order], box[order], gap2[order]
         count = np.bincount(query, minlength=len(pending))
@@ -64,7 +66,7 @@ def nearest_words(geo: PageGeometry, take: int) -> tuple[np.ndarray, np.ndarray]
         enough = count >= take
         kth = np.full(len(pending), np.inf)
         kth[enough] = gap2[first[enough] + take - 1]
-        done = index.covers_grid(low, high) | (enough & (kth < index.gap_bound2(reach)))
+        done = whole | (enough & (kth < index.gap_bound2(reach)))
         kept = done[query] & (np.arange(len(query)) - first[query] < take)
         sources.append(box[kept])
         targets.append(pending[query[kept]])
