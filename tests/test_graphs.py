@@ -14,6 +14,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.spatial import cKDTree
 
+from benchmarks.pages import text_page
+from benchmarks.reference_builders import REFERENCE_BUILDERS
 from dochar.document import Page
 from dochar.graphs import BUILDERS, GraphBuilderError, make_graph_builder
 from dochar.graphs.gutters import crossing, find_gutters
@@ -236,6 +238,29 @@ def test_window_searches_match_oracles_on_adversarial_pages(page):
     assert edge_set(make_graph_builder("knn", k=15)(page)) == oracle_knn(page, 15)
     assert edge_set(make_graph_builder("sector", max_distance=0.05)(page)) == \
         oracle_sector(page, 0.05)
+
+
+def dense_page(seed: int, aligned: bool) -> Page:
+    """A page of 1,000 words in lines, so each window sees a small part of the page; aligned
+    pages put every word of a line on the same baseline and flatten one word in twenty."""
+    page = text_page(1000, seed)
+    boxes = page.boxes.copy()
+    if aligned:
+        rng = np.random.default_rng(seed)
+        boxes[:, 1] = np.round(boxes[:, 1] / 14) * 14
+        boxes[:, 3] = boxes[:, 1] + np.where(rng.random(len(boxes)) < 0.05, 0, 10)
+    return make_page(boxes, word_ids=page.word_ids, width=page.width, height=page.height)
+
+
+@pytest.mark.parametrize("aligned", [False, True])
+@pytest.mark.parametrize("seed", range(2))
+def test_window_searches_match_brute_force_on_dense_pages(seed, aligned):
+    # the reference builders rank or test every pair (benchmarks/reference_builders.py)
+    page = dense_page(seed, aligned)
+    for name, options in (("sector", {}), ("sector", {"max_distance": 0.01}), ("knn", {"k": 1}),
+                          ("knn", {"k": 8}), ("line_of_sight", {})):
+        assert edge_set(make_graph_builder(name, **options)(page)) == \
+            edge_set(REFERENCE_BUILDERS[name](page, **options)), (name, options)
 
 
 @pytest.mark.parametrize("seed", range(5))

@@ -6,8 +6,8 @@ listens to exactly ``min(k, n - 1)`` words. An edge is typed by the direction it
 in, by the dominant axis of the centre offset (:func:`dochar.graphs.base.direction_codes`).
 
 Search: candidates come from a window of grid cells around the target (:mod:`dochar.graphs.cells`);
-the window's answer stands once its k-th gap is below the gap every box outside the window must
-exceed, otherwise that target's window doubles. Near-linear on real pages, exact on any page.
+the window's answer stands once it holds k words nearer than the gap every box outside the window
+must exceed, otherwise that target's window doubles. Near-linear on real pages, exact on any page.
 """
 
 from __future__ import annotations
@@ -61,12 +61,8 @@ def nearest_words(geo: PageGeometry, take: int) -> tuple[np.ndarray, np.ndarray]
         query, box, gap2, centre2 = query[usable], box[usable], gap2[usable], centre2[usable]
         order = order_within_groups(query, (gap2, centre2, geo.rank[box]))
         query, box, gap2 = query[order], box[order], gap2[order]
-        count = np.bincount(query, minlength=len(pending))
         first = np.searchsorted(query, np.arange(len(pending)))
-        enough = count >= take
-        kth = np.full(len(pending), np.inf)
-        kth[enough] = gap2[first[enough] + take - 1]
-        done = whole | (enough & (kth < index.gap_bound2(reach)))
+        done = whole | (np.bincount(query, minlength=len(pending)) >= take)
         kept = done[query] & (np.arange(len(query)) - first[query] < take)
         sources.append(box[kept])
         targets.append(pending[query[kept]])
