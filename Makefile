@@ -7,7 +7,7 @@ STAMP := $(VENV)/.installed
 TORCH_SPEC ?= torch==2.13.0
 DEMO_EXPERIMENT ?= dochar-demo
 
-.PHONY: install demo test test-all bench gate clean
+.PHONY: install demo test test-all bench bench-smoke gate clean
 
 install: $(STAMP)
 
@@ -33,7 +33,10 @@ test-all: $(STAMP)
 	$(BIN)/python -m pytest -q
 
 bench: $(STAMP)
-	$(BIN)/python -m dochar.bench
+	$(BIN)/python -m benchmarks.run
+
+bench-smoke: $(STAMP)
+	$(BIN)/python -m benchmarks.run --smoke --out reports/benchmarks-smoke.md
 
 gate: $(STAMP)
 	$(BIN)/dochar gate
