@@ -15,7 +15,7 @@ def test_smoke_bench_writes_every_figure(tmp_path):
     assert main(["--smoke", "--out", str(out)]) == 0
     rows = [line for line in out.read_text(encoding="utf-8").splitlines()
             if line.startswith("| ") and not line.startswith("| figure")]
-    assert len(rows) == 20
+    assert len(rows) == 21
     identical = [r for r in rows if "edges identical" in r]
     assert len(identical) == 3 and all("| yes |" in r and r.endswith("| met |") for r in identical)
     timed = [r for r in rows if "≤" in r or "≥" in r]
