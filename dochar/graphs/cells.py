@@ -39,10 +39,10 @@ class CellIndex:
         cell = np.floor((points - self.origin) / self.size).astype(np.int64)
         return np.clip(cell, 0, self.shape - 1)
 
-    @property
-    def first_reach(self) -> float:
-        """A search distance that settles most words of a text page in one window."""
-        return 2.0 * float(self.size.min())
+    def first_reach(self, cells: float) -> float:
+        """A first search distance of ``cells`` times the smaller cell side; one side settles
+        the nearest word per direction on a text page, two settle about eight neighbours."""
+        return cells * float(self.size.min())
 
     def margin(self, reach: float) -> np.ndarray:
         """Cells of margin per axis so that a window reaches at least ``reach`` beyond a box."""

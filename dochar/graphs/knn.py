@@ -49,7 +49,7 @@ class KnnBuilder:
 def nearest_words(geo: PageGeometry, take: int) -> tuple[np.ndarray, np.ndarray]:
     """The ``take`` nearest other words of every word: (sources, targets)."""
     index = cell_index(geo.boxes)
-    pending, reach = np.arange(geo.n), index.first_reach
+    pending, reach = np.arange(geo.n), index.first_reach(2.0)
     sources, targets = [], []
     while len(pending):
         low, high = index.window(pending, reach)

@@ -35,6 +35,8 @@ from dochar.graphs.base import (ABOVE, BELOW, DIRECTIONS, LEFT, RIGHT, TypedEdge
 from dochar.graphs.cells import cell_index, order_within_groups
 from dochar.graphs.geometry import page_geometry
 
+FIRST_REACH = 2.0   # first look-ahead, in median word extents along the line of sight
+
 
 def sight_pairs(boxes: np.ndarray) -> np.ndarray:
     """Pair keys ``first * n + second`` (first < second) of the words that see each other
@@ -48,7 +50,7 @@ def sight_pairs(boxes: np.ndarray) -> np.ndarray:
     flats = RangeMax(y0[flat], x0[flat])
     starts = RangeMax(y1, x0), RangeMax(y0, x0)
     rows = RangeMax(*row_starts(index, x0))
-    pending, reach = np.arange(n), float(index.size[0])
+    pending, reach = np.arange(n), FIRST_REACH * float(index.size[0])
     found = []
     while len(pending):
         a = pending

@@ -59,7 +59,7 @@ def sector_neighbours(geo: PageGeometry, limit2: float
     """(sources, targets, sector codes) of the nearest word per sector within ``limit2``."""
     index = cell_index(geo.boxes)
     cones = cone_cells(geo, index)                       # (n, sector, low/high, x/y)
-    pending, reach = np.arange(geo.n), index.first_reach
+    pending, reach = np.arange(geo.n), index.first_reach(2.0)
     sources, targets, types = [], [], []
     while len(pending):
         low, high = index.window(pending, reach)
