@@ -7,7 +7,7 @@ STAMP := $(VENV)/.installed
 TORCH_SPEC ?= torch==2.13.0
 DEMO_EXPERIMENT ?= dochar-demo
 
-.PHONY: install demo test test-all bench gate clean
+.PHONY: install demo test test-all bench bench-smoke gate clean
 
 install: $(STAMP)
 
@@ -35,6 +35,9 @@ test-all: $(STAMP)
 
 bench: $(STAMP)
 	$(BIN)/python -m benchmarks.run
+
+bench-smoke: $(STAMP)
+	$(BIN)/python -m benchmarks.run --smoke --out reports/benchmarks-smoke.md
 
 gate: $(STAMP)
 	$(BIN)/dochar gate

@@ -72,13 +72,27 @@ class GraphBuilder(Protocol):
 
 def make_edges(source: np.ndarray, target: np.ndarray, types: np.ndarray,
                relations: tuple[str, ...]) -> TypedEdges:
-    """Canonical edges: duplicates dropped, sorted by (target, source, type)."""
-    triples = np.stack([np.asarray(target, dtype=np.int64).ravel(),
-                        np.asarray(source, dtype=np.int64).ravel(),
-                        np.asarray(types, dtype=np.int64).ravel()], axis=1)
-    if len(triples):
-        triples = np.unique(triples, axis=0)   # lexicographic: target, source, type
-    return TypedEdges(np.stack([triples[:, 1], triples[:, 0]]), triples[:, 2], relations)
+    """Canonical edges: duplicates dropped, sorted by (target, source, type).
+
+    Each triple is packed into one int64 key (target, source, type in mixed radix) and the keys
+    sorted: an order of magnitude faster than a row-wise unique on large pages.
+    """
+    target, source, types = (np.asarray(a, dtype=np.int64).ravel() for a in (target, source, types))
+    if not len(target):
+        return no_edges(relations)
+    if min(target.min(), source.min(), types.min()) < 0:
+        raise GraphBuilderError("edge endpoints and types must be non-negative")
+    nodes, kinds = int(max(target.max(), source.max())) + 1, max(len(relations), 1)
+    if types.max() >= kinds:
+        raise GraphBuilderError(f"edge_type outside [0, {len(relations)}) "
+                                f"for relations {tuple(relations)}")
+    if nodes * nodes * kinds >= 2 ** 62:
+        raise GraphBuilderError(f"{nodes} nodes are too many for one page's edge keys")
+    keys = np.sort((target * nodes + source) * kinds + types)
+    keys = keys[np.r_[True, keys[1:] != keys[:-1]]]
+    pair, kind = np.divmod(keys, kinds)
+    target, source = np.divmod(pair, nodes)
+    return TypedEdges(np.stack([source, target]), kind, relations)
 
 
 def no_edges(relations: tuple[str, ...]) -> TypedEdges:

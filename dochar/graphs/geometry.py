@@ -29,32 +29,19 @@ class PageGeometry:
     def n(self) -> int:
         return len(self.boxes)
 
-    def offsets(self, rows: slice) -> tuple[np.ndarray, np.ndarray]:
-        """Source centre minus target centre, targets ``rows`` x all sources."""
-        dx = self.centres[None, :, 0] - self.centres[rows, None, 0]
-        dy = self.centres[None, :, 1] - self.centres[rows, None, 1]
-        return dx, dy
+    def pair_keys(self, target: np.ndarray, source: np.ndarray
+                  ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """Per (target, source) pair: squared box gap, squared centre distance, centre offset.
 
-    def gap2(self, rows: slice) -> np.ndarray:
-        """Squared shortest distance between boxes (0 when they touch or overlap)."""
-        b = self.boxes
-        gx = np.maximum(0.0, np.maximum(b[None, :, 0] - b[rows, None, 2],
-                                        b[rows, None, 0] - b[None, :, 2]))
-        gy = np.maximum(0.0, np.maximum(b[None, :, 1] - b[rows, None, 3],
-                                        b[rows, None, 1] - b[None, :, 3]))
-        return gx * gx + gy * gy
-
-    def nearest_first(self, rows: slice) -> tuple[np.ndarray, np.ndarray]:
-        """Sources per target ordered by (box gap, centre distance, word_id), self excluded.
-
-        Returns ``order`` (targets x sources, source columns) and ``is_self`` aligned to it.
+        The same products and sums as a plain loop over the pair, so the ranking keys match it
+        bit for bit.
         """
-        dx, dy = self.offsets(rows)
-        centre2 = dx * dx + dy * dy
-        rank = np.broadcast_to(self.rank, centre2.shape)
-        order = np.lexsort((rank, centre2, self.gap2(rows)), axis=-1)
-        targets = np.arange(self.n)[rows]
-        return order, order == targets[:, None]
+        a, b = self.boxes[target], self.boxes[source]
+        gx = np.maximum(0.0, np.maximum(b[:, 0] - a[:, 2], a[:, 0] - b[:, 2]))
+        gy = np.maximum(0.0, np.maximum(b[:, 1] - a[:, 3], a[:, 1] - b[:, 3]))
+        dx = self.centres[source, 0] - self.centres[target, 0]
+        dy = self.centres[source, 1] - self.centres[target, 1]
+        return gx * gx + gy * gy, dx * dx + dy * dy, dx, dy
 
 
 def row_blocks(n: int, budget: int = PAIR_BUDGET) -> Iterator[slice]:

@@ -13,8 +13,13 @@ Two words see each other horizontally when
 Vertical sight is the same rule with x and y swapped. The relation is symmetric; each pair gets
 both directions, typed ``left``/``right`` (by the sign of the centre offset, 0 counting as
 ``right``) for horizontal sight and ``above``/``below`` for vertical sight; a pair that sees both
-ways (overlapping boxes) is typed by the dominant axis. Each word is compared only with words
-its own range overlaps, which keeps typical pages near-linear; one row of n words costs O(n^3).
+ways (overlapping boxes) is typed by the dominant axis.
+
+Search: each word looks right through a window of grid cells (:mod:`dochar.graphs.cells`) over
+its own y-range, reaching a distance ``d`` past its right edge. Partners starting within ``d`` are
+decided inside the window, since all their possible blockers meet it. Words farther away are all
+hidden once the boxes met so far cover the word's y-range (every band of positive height meets
+one, a flat word's line is straddled) and no flat box lies beyond; otherwise ``d`` doubles.
 """
 
 from __future__ import annotations
@@ -25,41 +30,158 @@ from typing import ClassVar
 import numpy as np
 
 from dochar.data.word_table import Page
-from dochar.graphs.base import (
-    ABOVE,
-    BELOW,
-    DIRECTIONS,
-    LEFT,
-    RIGHT,
-    TypedEdges,
-    direction_codes,
-    make_edges,
-    no_edges,
-)
+from dochar.graphs.base import (ABOVE, BELOW, DIRECTIONS, LEFT, RIGHT, TypedEdges,
+                                direction_codes, make_edges, no_edges)
+from dochar.graphs.cells import cell_index, order_within_groups
 from dochar.graphs.geometry import page_geometry
+
+FIRST_REACH = 2.0   # first look-ahead, in median word extents along the line of sight
 
 
 def sight_pairs(boxes: np.ndarray) -> np.ndarray:
-    """Pairs (m, 2), first < second, that see each other horizontally (swap axes for vertical)."""
+    """Pair keys ``first * n + second`` (first < second) of the words that see each other
+    horizontally, sorted (swap the axes for vertical sight)."""
+    n = len(boxes)
+    index = cell_index(boxes)
     x0, y0, x1, y1 = boxes.T
-    height = y1 - y0
+    flat = y1 == y0
+    levels = np.unique(np.concatenate([y0, y1]))
+    ranks = np.searchsorted(levels, y0), np.searchsorted(levels, y1)
+    flats = RangeMax(y0[flat], x0[flat])
+    starts = RangeMax(y1, x0), RangeMax(y0, x0)
+    rows = RangeMax(*row_starts(index, x0))
+    pending, reach = np.arange(n), FIRST_REACH * float(index.size[0])
     found = []
-    for i in range(len(boxes)):
-        near = np.flatnonzero((y0 <= y1[i]) & (y1 >= y0[i]))   # closed y-overlap, i included
-        partners = near[near > i]
-        if not len(partners):
-            continue
-        lo = np.maximum(y0[i], y0[partners])
-        hi = np.minimum(y1[i], y1[partners])
-        banded = (hi > lo) | (np.minimum(height[i], height[partners]) == 0)
-        partners, lo, hi = partners[banded], lo[banded], hi[banded]
-        gap_lo = np.minimum(x1[i], x1[partners])
-        gap_hi = np.maximum(x0[i], x0[partners])
-        blocked = ((x0[near][None, :] < gap_hi[:, None]) & (x1[near][None, :] > gap_lo[:, None])
-                   & (y0[near][None, :] < hi[:, None]) & (y1[near][None, :] > lo[:, None]))
-        sees = (gap_hi <= gap_lo) | ~blocked.any(axis=1)
-        found.append(np.column_stack([np.full(int(sees.sum()), i), partners[sees]]))
-    return np.concatenate(found).astype(np.int64) if found else np.zeros((0, 2), np.int64)
+    while len(pending):
+        a = pending
+        low = index.cells_of(np.column_stack([x0[a], y0[a]]))
+        high = index.cells_of(np.column_stack([x1[a] + reach, y1[a]]))
+        edge = x1[a] + reach
+        edge[~rows.exceeds(low[:, 1], high[:, 1], edge)] = np.inf     # nothing lies beyond
+        query, b = index.boxes_in(low, high)
+        other = b != a[query]
+        query, b = query[other], b[other]
+        i = a[query]
+        lo, hi = np.maximum(y0[i], y0[b]), np.minimum(y1[i], y1[b])
+        banded = (hi > lo) | ((hi == lo) & (flat[i] | flat[b]))
+        touching = banded & (x0[b] <= x1[i]) & (x0[i] <= x1[b])
+        partner = banded & (x0[b] > x1[i]) & (x0[b] <= edge[query])
+        # boxes that may hide what lies right of a: they reach past its right edge, start within
+        # the window and meet the inside of its y-range (or straddle a flat word's line)
+        hider = (x1[b] > x1[i]) & (x0[b] <= edge[query]) & (y0[b] < y1[i]) & (y1[b] > y0[i])
+        hidden = blocked(partner, hider, query, b, lo, hi, boxes)
+        covered = hidden_beyond(query[hider], b[hider], a, edge, boxes, ranks, levels, starts)
+        done = np.isinf(edge) | (covered & ~flats.exceeds(y0[a], y1[a], edge))
+        sees = (touching | (partner & ~hidden)) & done[query]
+        first, second = np.minimum(i[sees], b[sees]), np.maximum(i[sees], b[sees])
+        found.append(first * n + second)
+        pending, reach = pending[~done], reach * 2
+    return unique_sorted(np.concatenate(found))
+
+
+def _member(keys: np.ndarray, sorted_set: np.ndarray) -> np.ndarray:
+    at = np.minimum(np.searchsorted(sorted_set, keys), max(len(sorted_set) - 1, 0))
+    return sorted_set[at] == keys if len(sorted_set) else np.zeros(len(keys), dtype=bool)
+
+
+def unique_sorted(keys: np.ndarray) -> np.ndarray:
+    keys = np.sort(keys)
+    return keys[np.r_[True, keys[1:] != keys[:-1]]] if len(keys) else keys
+
+
+def row_starts(index, x0: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(row, largest x0 of the boxes filed under that grid row) for every row."""
+    span = index.high[:, 1] - index.low[:, 1] + 1
+    box = np.repeat(np.arange(len(x0)), span)
+    row = index.low[box, 1] + np.arange(len(box)) - np.repeat(np.cumsum(span) - span, span)
+    largest = np.full(int(index.shape[1]), -np.inf)
+    np.maximum.at(largest, row, x0[box])
+    return np.arange(len(largest)), largest
+
+
+def blocked(partner: np.ndarray, hider: np.ndarray, query: np.ndarray, box: np.ndarray,
+            lo: np.ndarray, hi: np.ndarray, boxes: np.ndarray) -> np.ndarray:
+    """Per candidate pair: is a partner's corridor met by one of its window's hiders?"""
+    x0, y0, x1, y1 = boxes.T
+    hiders = np.flatnonzero(hider)                      # grouped by query, ascending
+    per_query = np.bincount(query[hiders], minlength=int(query.max(initial=-1)) + 1)
+    first = np.r_[0, np.cumsum(per_query)[:-1]]
+    partners = np.flatnonzero(partner)
+    counts = per_query[query[partners]]
+    p = np.repeat(partners, counts)
+    k = hiders[np.repeat(first[query[partners]], counts)
+               + np.arange(int(counts.sum())) - np.repeat(np.cumsum(counts) - counts, counts)]
+    kb = box[k]
+    hit = (kb != box[p]) & (x0[kb] < x0[box[p]]) & (y0[kb] < hi[p]) & (y1[kb] > lo[p])
+    out = np.zeros(len(partner), dtype=bool)
+    out[p[hit]] = True
+    return out
+
+
+def hidden_beyond(query: np.ndarray, hider: np.ndarray, targets: np.ndarray, edge: np.ndarray,
+                  boxes: np.ndarray, ranks: tuple[np.ndarray, np.ndarray],
+                  levels: np.ndarray, starts: tuple[RangeMax, RangeMax]) -> np.ndarray:
+    """Per target: is every word starting right of ``edge`` hidden by the target's hiders?
+
+    The hiders' open y-intervals leave gaps in the target's y-range; a farther word of positive
+    height can only be seen through one gap, with its band inside it: a word reaching down into
+    the top gap (its y1 in the gap) or starting inside any other gap (its y0 in the gap). Range
+    queries on y1 and y0 settle both. A flat target needs its line strictly inside one hider.
+    Ranks of y values make the running maximum over sorted intervals compare exactly.
+    """
+    rank0, rank1 = ranks
+    y0 = boxes[:, 1]
+    t = targets[query]
+    start = np.maximum(rank0[hider], rank0[t])
+    end = np.minimum(rank1[hider], rank1[t])
+    own_start, own_end = rank0[targets], rank1[targets]
+    straddles = np.zeros(len(targets), dtype=bool)
+    straddles[query[(y0[hider] < y0[t]) & (boxes[hider, 3] > y0[t])]] = True
+    order = order_within_groups(query, (start,))
+    query, start, end = query[order], start[order], end[order]
+    stride = int(rank1.max(initial=0)) + 1
+    reached = np.maximum.accumulate(query * stride + end) - query * stride
+    first = np.r_[True, query[1:] != query[:-1]]
+    before = np.where(first, own_start[query], np.r_[0, reached[:-1]])
+    top = np.full(len(targets), -1)
+    top[query] = reached                                  # last write per group = its maximum
+    opening = start > before
+    bottom = np.flatnonzero((top >= 0) & (top < own_end))
+    gap_target = np.r_[query[opening], bottom]
+    gap_low = np.r_[before[opening], top[bottom]]
+    gap_high = np.r_[start[opening], own_end[bottom]]
+    at_top = gap_low == own_start[gap_target]
+    by_end, by_start = starts
+    seen = np.zeros(len(targets), dtype=bool)
+    for keyed, use in ((by_end, at_top), (by_start, ~at_top)):
+        g = gap_target[use]
+        seen[g[keyed.exceeds(levels[gap_low[use]], levels[gap_high[use]], edge[g])]] = True
+    return np.where(own_start == own_end, straddles, (top >= 0) & ~seen)
+
+
+class RangeMax:
+    """Largest value over a range of sorted keys, by a sparse table (O(1) per query)."""
+
+    def __init__(self, keys: np.ndarray, values: np.ndarray) -> None:
+        order = np.argsort(keys, kind="stable")
+        self.keys = keys[order]
+        table = [values[order].astype(np.float64)]
+        while (2 << (len(table) - 1)) <= len(self.keys):
+            prev, half = table[-1], 1 << (len(table) - 1)
+            table.append(np.maximum(prev[:-half], prev[half:]))
+        self.table = table
+
+    def exceeds(self, lo: np.ndarray, hi: np.ndarray, threshold: np.ndarray) -> np.ndarray:
+        """Does any value with key in the closed range [lo, hi] exceed ``threshold``?"""
+        left = np.searchsorted(self.keys, lo, side="left")
+        size = np.searchsorted(self.keys, hi, side="right") - left
+        level = np.floor(np.log2(np.maximum(size, 1))).astype(np.int64)
+        best = np.full(len(lo), -np.inf)
+        for k in np.unique(level[size > 0]):
+            use = (level == k) & (size > 0)
+            row = self.table[k]
+            best[use] = np.maximum(row[left[use]], row[left[use] + size[use] - (1 << k)])
+        return best > threshold
 
 
 @dataclass(frozen=True)
@@ -72,13 +194,12 @@ class LineOfSightBuilder:
         if geo.n < 2:
             return no_edges(self.relations)
         n = geo.n
-        pair_keys = [p[:, 0] * n + p[:, 1]
-                     for p in (sight_pairs(geo.boxes), sight_pairs(geo.boxes[:, [1, 0, 3, 2]]))]
-        keys = np.union1d(*pair_keys)
+        across, down = sight_pairs(geo.boxes), sight_pairs(geo.boxes[:, [1, 0, 3, 2]])
+        keys = unique_sorted(np.concatenate([across, down]))
         if not len(keys):
             return no_edges(self.relations)
+        in_h, in_v = (np.tile(_member(keys, k), 2) for k in (across, down))
         a, b = np.divmod(keys, n)
-        in_h, in_v = (np.tile(np.isin(keys, k), 2) for k in pair_keys)
         source, target = np.concatenate([a, b]), np.concatenate([b, a])
         dx, dy = (geo.centres[source] - geo.centres[target]).T
         types = np.where(in_h & in_v, direction_codes(dx, dy),

@@ -14,6 +14,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.spatial import cKDTree
 
+from benchmarks.pages import text_page
+from benchmarks.reference_builders import REFERENCE_BUILDERS
 from dochar.data.word_table import Page
 from dochar.graphs import BUILDERS, GraphBuilderError, make_graph_builder
 from dochar.graphs.gutters import crossing, find_gutters
@@ -46,6 +48,31 @@ def grid_pages(draw, max_words: int = 14) -> Page:
     boxes = [(x, y, x + w, y + h) for x, y, w, h in cells]
     ids = draw(st.permutations(range(n)))
     return make_page(boxes, word_ids=ids, width=30, height=40)   # diagonal exactly 50
+
+
+@st.composite
+def adversarial_pages(draw, max_words: int = 40) -> Page:
+    """Hard cases for window searches: copies of a few boxes, words on one line (a row, a column
+    or a diagonal), zero-size boxes, and boxes as large as the page mixed with tiny ones."""
+    n = draw(st.integers(2, max_words))
+    shape = draw(st.sampled_from(["copies", "row", "column", "diagonal", "giants"]))
+    if shape == "copies":
+        pool = draw(st.lists(st.tuples(st.integers(0, 30), st.integers(0, 30), st.integers(0, 8),
+                                       st.integers(0, 8)), min_size=1, max_size=4))
+        cells = [pool[draw(st.integers(0, len(pool) - 1))] for _ in range(n)]
+    else:
+        steps = draw(st.lists(st.integers(0, 3), min_size=n, max_size=n))
+        sizes = draw(st.lists(st.tuples(st.integers(0, 6), st.integers(0, 3)), min_size=n,
+                              max_size=n))
+        along = np.cumsum(steps)
+        cells = [{"row": (a, 5, w, h), "column": (5, a, h, w), "diagonal": (a, a, w, w),
+                  "giants": (a % 30, (3 * a) % 30, w, h)}[shape] for a, (w, h) in zip(along, sizes)]
+        if shape == "giants":
+            giants = min(draw(st.integers(1, 3)), n)
+            cells[:giants] = [(0, 0, 60, 60), (10, 0, 45, 2), (0, 10, 2, 45)][:giants]
+    boxes = [(x, y, x + w, y + h) for x, y, w, h in cells]
+    ids = draw(st.permutations(range(n)))
+    return make_page(boxes, word_ids=ids, width=150, height=150)
 
 
 def edge_set(edges) -> set[tuple[int, int, str]]:
@@ -198,6 +225,42 @@ def test_builders_match_oracles_on_tied_grid_pages(page):
         assert edge_set(make_graph_builder(name)(page)) == oracle(page), name
     assert edge_set(make_graph_builder("sector", max_distance=0.1)(page)) == oracle_sector(page, 0.1)
     assert edge_set(make_graph_builder("knn", k=2)(page)) == oracle_knn(page, 2)
+
+
+@settings(max_examples=40, deadline=None)
+@given(page=adversarial_pages())
+def test_window_searches_match_oracles_on_adversarial_pages(page):
+    # sector, kNN and line of sight search growing windows of grid cells; the oracles rank or
+    # test every pair, so any window that stops too early shows up as a missing edge
+    for name in ("sector", "knn", "line_of_sight"):
+        assert edge_set(make_graph_builder(name)(page)) == ORACLES[name](page), name
+    assert edge_set(make_graph_builder("knn", k=1)(page)) == oracle_knn(page, 1)
+    assert edge_set(make_graph_builder("knn", k=15)(page)) == oracle_knn(page, 15)
+    assert edge_set(make_graph_builder("sector", max_distance=0.05)(page)) == \
+        oracle_sector(page, 0.05)
+
+
+def dense_page(seed: int, aligned: bool) -> Page:
+    """A page of 1,000 words in lines, so each window sees a small part of the page; aligned
+    pages put every word of a line on the same baseline and flatten one word in twenty."""
+    page = text_page(1000, seed)
+    boxes = page.boxes.copy()
+    if aligned:
+        rng = np.random.default_rng(seed)
+        boxes[:, 1] = np.round(boxes[:, 1] / 14) * 14
+        boxes[:, 3] = boxes[:, 1] + np.where(rng.random(len(boxes)) < 0.05, 0, 10)
+    return make_page(boxes, word_ids=page.word_ids, width=page.width, height=page.height)
+
+
+@pytest.mark.parametrize("aligned", [False, True])
+@pytest.mark.parametrize("seed", range(2))
+def test_window_searches_match_brute_force_on_dense_pages(seed, aligned):
+    # the reference builders rank or test every pair (benchmarks/reference_builders.py)
+    page = dense_page(seed, aligned)
+    for name, options in (("sector", {}), ("sector", {"max_distance": 0.01}), ("knn", {"k": 1}),
+                          ("knn", {"k": 8}), ("line_of_sight", {})):
+        assert edge_set(make_graph_builder(name, **options)(page)) == \
+            edge_set(REFERENCE_BUILDERS[name](page, **options)), (name, options)
 
 
 @pytest.mark.parametrize("seed", range(5))

@@ -1,0 +1,22 @@
+"""`make bench` in smoke mode: every figure is computed on small inputs, correctness is judged.
+
+No timing verdicts here (a shared CI machine); the smoke run must still build every figure,
+find the new builders' edges identical to the brute-force reference builders, and write the
+table with one row per figure.
+"""
+
+from __future__ import annotations
+
+from benchmarks.run import main
+
+
+def test_smoke_bench_writes_every_figure(tmp_path):
+    out = tmp_path / "benchmarks.md"
+    assert main(["--smoke", "--out", str(out)]) == 0
+    rows = [line for line in out.read_text(encoding="utf-8").splitlines()
+            if line.startswith("| ") and not line.startswith("| figure")]
+    assert len(rows) == 21
+    identical = [r for r in rows if "edges identical" in r]
+    assert len(identical) == 3 and all("| yes |" in r and r.endswith("| met |") for r in identical)
+    timed = [r for r in rows if "≤" in r or "≥" in r]
+    assert all(r.endswith("| not judged (smoke) |") for r in timed if "identical" not in r)
