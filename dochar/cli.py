@@ -7,6 +7,7 @@
     dochar report [--experiment NAME]    static HTML page of an experiment's runs
     dochar gate [--update] [key=value]   reference run vs the committed baseline (CI)
     dochar import SRC... --out TABLE     PDF, hOCR, ALTO, page images, form JSON -> word table
+    dochar predict --model RUN --input SRC... --out DIR   a trained model labels new documents
 """
 
 from __future__ import annotations
@@ -214,6 +215,9 @@ def main(argv: list[str] | None = None) -> int:
     if argv and argv[0] == "import":
         from dochar.data.import_command import main as import_main
         return import_main(argv[1:])
+    if argv and argv[0] == "predict":
+        from dochar.predict import main as predict_main
+        return predict_main(argv[1:])
     if argv and argv[0] == "gate":
         from dochar.gate.command import main as gate_main
 

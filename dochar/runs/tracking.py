@@ -22,6 +22,7 @@ DEFAULT_STORE = "mlflow.db"
 DEFAULT_ARTIFACTS = "mlartifacts"
 SWEEP_PARENT_ENV = "DOCHAR_SWEEP_PARENT"
 SWEEP_ID_ENV = "DOCHAR_SWEEP_ID"
+MODEL_DIR = "model"   # the run folder's saved model and the run's MLflow model share the name
 
 
 def resolve_uri(configured: str | None = None) -> str:
@@ -66,7 +67,8 @@ def git_commit() -> str:
 
 def log_run(bundle: RunBundle, folder: Path, *, uri: str, experiment: str,
             extra_tags: Mapping[str, str] | None = None) -> str:
-    """Log params, metrics, tags and the bundle folder (artifacts); return the run id."""
+    """Log params, metrics, tags, the bundle folder (artifacts) and its saved model (an MLflow
+    model); return the run id."""
     experiment_id = ensure_experiment(uri, experiment)
     mlflow.set_tracking_uri(uri)
     bundle.tags.update({**(extra_tags or {}), "git_commit": git_commit()})
@@ -81,5 +83,39 @@ def log_run(bundle: RunBundle, folder: Path, *, uri: str, experiment: str,
                                                                   bundle.cost.items()}}.items()})
         bundle.run_id = run.info.run_id
         bundle.save(folder)
-        mlflow.log_artifacts(str(folder))
+        for entry in sorted(folder.iterdir()):
+            if entry.name == MODEL_DIR:
+                continue
+            if entry.is_dir():
+                mlflow.log_artifacts(str(entry), artifact_path=entry.name)
+            else:
+                mlflow.log_artifact(str(entry))
+        if (folder / MODEL_DIR).is_dir():
+            log_model(folder / MODEL_DIR)
     return bundle.run_id
+
+
+def pip_requirements() -> list[str]:
+    """dochar's own install requirements (no extras): what loading the MLflow model needs."""
+    from importlib import metadata
+
+    try:
+        requires = metadata.requires("dochar") or []
+        version = metadata.version("dochar")
+    except metadata.PackageNotFoundError:
+        return []
+    return [f"dochar=={version}", *(r for r in requires if "extra ==" not in r)]
+
+
+def log_model(unit: Path) -> None:
+    """Log a saved dochar unit as the run's MLflow model ``model`` (pyfunc flavour).
+
+    The run folder's ``model/`` is logged only this way (as the model's artifact), not twice.
+    No environment is created: the requirements are written down, not installed.
+    """
+    from dochar.runs import pyfunc_model
+
+    os.environ.setdefault("MLFLOW_ENABLE_ARTIFACTS_PROGRESS_BAR", "false")
+    mlflow.pyfunc.log_model(name=MODEL_DIR, python_model=pyfunc_model.__file__,
+                            artifacts={pyfunc_model.UNIT_ARTIFACT: str(unit)},
+                            pip_requirements=pip_requirements())
