@@ -94,15 +94,12 @@ def resolve_model(reference: str, tracking_uri: str | None, workdir: Path) -> Pa
                               "give more of the run id" if runs else
                               f"--model {reference}: no run with this id in {uri}")
     run_id = runs[0].info.run_id
-    previous = mlflow.get_tracking_uri()
-    mlflow.set_tracking_uri(uri)   # a runs:/ URI names a logged model, found in this store
     try:
         return Path(mlflow.artifacts.download_artifacts(
-            artifact_uri=f"runs:/{run_id}/{MODEL_DIR}", dst_path=str(workdir)))
-    except Exception as error:   # MLflow raises its own exception types for a missing model
-        raise SavedModelError(f"run {run_id} in {uri}: no model logged ({error})") from None
-    finally:
-        mlflow.set_tracking_uri(previous)
+            run_id=run_id, artifact_path=MODEL_DIR, dst_path=str(workdir), tracking_uri=uri))
+    except Exception as error:   # MLflow raises its own exception types for a missing path
+        raise SavedModelError(f"run {run_id} in {uri}: no model/ among its artifacts ({error})"
+                              ) from None
 
 
 def read_inputs(args: argparse.Namespace) -> pd.DataFrame:

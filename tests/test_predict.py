@@ -92,7 +92,7 @@ def test_a_run_id_prefix_is_found_in_the_store(trained, tmp_path, capsys):
 
 def test_mlflow_loads_and_applies_the_logged_model(trained):
     mlflow.set_tracking_uri(trained["uri"])
-    model = mlflow.pyfunc.load_model(f"runs:/{trained['run_id']}/model")
+    model = mlflow.pyfunc.load_model(f"runs:/{trained['run_id']}/word_labeller")
     words = by_word(model.predict(pd.read_csv(trained["table"], keep_default_na=False)))
     recorded = by_word(trained["test_words"])
     assert (words["predicted"] == recorded["predicted"]).all()

@@ -4,7 +4,7 @@ MLflow loads this file as "model code" (``mlflow.pyfunc.log_model(python_model=<
 instead of unpickling a Python object, and the model itself is read from the logged dochar unit
 with dochar's safe loader (:func:`dochar.models.saved.load_model`).
 
-    model = mlflow.pyfunc.load_model("runs:/<run id>/model")
+    model = mlflow.pyfunc.load_model("runs:/<run id>/word_labeller")
     words = model.predict(word_table)    # doc_id, page, word_id, ..., predicted, probability,
                                          # top2, top2_probability, top3, top3_probability
 """

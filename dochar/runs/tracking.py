@@ -22,7 +22,8 @@ DEFAULT_STORE = "mlflow.db"
 DEFAULT_ARTIFACTS = "mlartifacts"
 SWEEP_PARENT_ENV = "DOCHAR_SWEEP_PARENT"
 SWEEP_ID_ENV = "DOCHAR_SWEEP_ID"
-MODEL_DIR = "model"   # the run folder's saved model and the run's MLflow model share the name
+MODEL_DIR = "model"             # the run folder's saved model (a dochar unit), logged as is
+MLFLOW_MODEL = "word_labeller"  # the same unit wrapped as an MLflow model (pyfunc flavour)
 
 
 def resolve_uri(configured: str | None = None) -> str:
@@ -83,13 +84,7 @@ def log_run(bundle: RunBundle, folder: Path, *, uri: str, experiment: str,
                                                                   bundle.cost.items()}}.items()})
         bundle.run_id = run.info.run_id
         bundle.save(folder)
-        for entry in sorted(folder.iterdir()):
-            if entry.name == MODEL_DIR:
-                continue
-            if entry.is_dir():
-                mlflow.log_artifacts(str(entry), artifact_path=entry.name)
-            else:
-                mlflow.log_artifact(str(entry))
+        mlflow.log_artifacts(str(folder))
         if (folder / MODEL_DIR).is_dir():
             log_model(folder / MODEL_DIR)
     return bundle.run_id
@@ -108,14 +103,15 @@ def pip_requirements() -> list[str]:
 
 
 def log_model(unit: Path) -> None:
-    """Log a saved dochar unit as the run's MLflow model ``model`` (pyfunc flavour).
+    """Log a saved dochar unit as the run's MLflow model ``word_labeller`` (pyfunc flavour).
 
-    The run folder's ``model/`` is logged only this way (as the model's artifact), not twice.
-    No environment is created: the requirements are written down, not installed.
+    The unit is then stored twice (in the run folder's artifacts, which ``dochar predict`` and
+    the gate read like any run folder, and inside the MLflow model, which MLflow's loaders and
+    serving read). No environment is created: the requirements are written down, not installed.
     """
     from dochar.runs import pyfunc_model
 
     os.environ.setdefault("MLFLOW_ENABLE_ARTIFACTS_PROGRESS_BAR", "false")
-    mlflow.pyfunc.log_model(name=MODEL_DIR, python_model=pyfunc_model.__file__,
+    mlflow.pyfunc.log_model(name=MLFLOW_MODEL, python_model=pyfunc_model.__file__,
                             artifacts={pyfunc_model.UNIT_ARTIFACT: str(unit)},
                             pip_requirements=pip_requirements())
