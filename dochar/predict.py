@@ -8,7 +8,8 @@ Writes, into DIR:
     words.csv|parquet   one row per word: box, predicted label and probability, next two labels
     fields.json         per document, the grouped fields: runs of consecutive words in reading
                         order with one predicted label (the entity rule of
-                        dochar.metrics.entities), with their text, page, box and word ids
+                        dochar.metrics.entities), with their text, page, box (the union of
+                        the words' boxes), least word probability and word ids
     fields.csv          the same fields, one row each
 
 When the input has a ``label`` column, prints word accuracy and macro-F1 over the words whose
@@ -141,9 +142,9 @@ def fields(words: pd.DataFrame, ignore: Sequence[str]) -> pd.DataFrame:
         part = ordered.iloc[run.start:run.end + 1]
         rows.append({"doc_id": part["doc_id"].iloc[0], "page": int(part["page"].iloc[0]),
                      "label": run.label, "text": " ".join(part["text"]),
-                     "x0": part["x0"].min(), "y0": part["y0"].min(),
-                     "x1": part["x1"].max(), "y1": part["y1"].max(),
-                     "probability": float(part["probability"].min()),
+                     "x0": round(part["x0"].min(), 2), "y0": round(part["y0"].min(), 2),
+                     "x1": round(part["x1"].max(), 2), "y1": round(part["y1"].max(), 2),
+                     "probability": round(float(part["probability"].min()), 4),
                      "word_ids": " ".join(map(str, part["word_id"]))})
     return pd.DataFrame(rows, columns=["doc_id", "page", "label", "text", "x0", "y0", "x1", "y1",
                                        "probability", "word_ids"])
@@ -183,6 +184,7 @@ def score(words: pd.DataFrame, saved: SavedModel) -> list[str]:
 def run(args: argparse.Namespace) -> int:
     with tempfile.TemporaryDirectory(prefix="dochar-predict-") as workdir:
         saved = load_model(resolve_model(args.model, args.tracking_uri, Path(workdir)))
+        saved.folder = Path(args.model)   # messages name the model as given, not a download
         saved.expect(task=args.task,
                      labels=[x.strip() for x in args.labels.split(",")] if args.labels else None)
     print(f"model: {saved.manifest.get('name') or saved.kind} ({saved.kind}, task "

@@ -319,9 +319,11 @@ def _load_weights(path: Path) -> dict[str, torch.Tensor]:
     try:
         state = torch.load(path, map_location="cpu", weights_only=True)
     except Exception as error:   # the safe unpickler refuses anything but tensors and containers
-        first = str(error).strip().splitlines()[0] if str(error).strip() else type(error).__name__
+        lines = [line.strip() for line in str(error).splitlines() if line.strip()]
+        reason = next((line for line in lines if "GLOBAL" in line or "Unpickler" in line),
+                      lines[0] if lines else type(error).__name__)
         raise SavedModelError(f"{path}: refused, not a plain tensor file; torch's weights-only "
-                              f"loader stopped at: {first}") from None
+                              f"loader stopped at: {reason}") from None
     if not isinstance(state, dict) or not all(isinstance(v, torch.Tensor)
                                               for v in state.values()):
         raise SavedModelError(f"{path}: refused, expected a mapping of names to tensors")
