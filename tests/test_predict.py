@@ -90,8 +90,10 @@ def test_a_run_id_prefix_is_found_in_the_store(trained, tmp_path, capsys):
     assert code == 2 and "no run with this id" in out
 
 
-def test_mlflow_loads_and_applies_the_logged_model(trained):
-    mlflow.set_tracking_uri(trained["uri"])
+def test_mlflow_loads_and_applies_the_logged_model(trained, monkeypatch):
+    # runs:/ URIs are read from the current store; the variable (unlike mlflow.set_tracking_uri,
+    # which also exports it) is restored after the test, so later subprocesses do not inherit it
+    monkeypatch.setenv("MLFLOW_TRACKING_URI", trained["uri"])
     model = mlflow.pyfunc.load_model(f"runs:/{trained['run_id']}/word_labeller")
     words = by_word(model.predict(pd.read_csv(trained["table"], keep_default_na=False)))
     recorded = by_word(trained["test_words"])
