@@ -3,8 +3,10 @@ PYTHON ?= $(shell command -v python3.11 || command -v python3)
 VENV := .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
-# The CPU build of torch goes in first, so the dependency resolver never pulls a GPU build.
+# The CPU build of torch goes in first, so the dependency resolver never pulls a GPU build:
+# from PyTorch's own CPU wheel index when it can be reached, else from the default index.
 TORCH_SPEC ?= torch==2.13.0
+TORCH_INDEX ?= https://download.pytorch.org/whl/cpu
 DEMO_EXPERIMENT ?= dochar-demo
 
 .PHONY: install demo test test-all bench bench-smoke gate clean
@@ -14,7 +16,9 @@ install: $(STAMP)
 $(STAMP): pyproject.toml
 	$(PYTHON) -m venv $(VENV)
 	$(BIN)/pip install --quiet --upgrade pip
-	$(BIN)/pip install --quiet "$(TORCH_SPEC)"
+	$(BIN)/pip install --quiet --timeout 10 --retries 0 --index-url $(TORCH_INDEX) "$(TORCH_SPEC)" \
+	  || { echo "note: $(TORCH_INDEX) could not be reached; installing $(TORCH_SPEC) from the default index"; \
+	       $(BIN)/pip install --quiet "$(TORCH_SPEC)"; }
 	$(BIN)/pip install --quiet -e '.[test,embed]' "$(TORCH_SPEC)"   # torch named: kept
 	touch $(STAMP)
 

@@ -9,11 +9,13 @@
     dochar gate [--update] [key=value]   reference run vs the committed baseline (CI)
     dochar import SRC... --out TABLE     PDF, hOCR, ALTO, page images, form JSON -> word table
     dochar tracking-server [--db-uri ..] shared MLflow server on PostgreSQL, loopback by default
+    dochar predict --model RUN --input SRC... --out DIR   a trained model labels new documents
 """
 
 from __future__ import annotations
 
 import argparse
+import importlib
 import logging
 import os
 import sys
@@ -247,25 +249,18 @@ def _parser() -> argparse.ArgumentParser:
     return parser
 
 
+HYDRA_JOBS = {"run": _run_job, "curve": _curve_job, "graph-stats": _graph_stats_job}
+# commands with their own argument parser: name -> module holding main(argv)
+OWN_PARSERS = {"import": "dochar.data.import_command", "predict": "dochar.predict",
+               "gate": "dochar.gate.command", "tracking-server": "dochar.runs.server"}
+
+
 def main(argv: list[str] | None = None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
-    if argv and argv[0] == "run":
-        return _hydra_command(_run_job, argv)
-    if argv and argv[0] == "curve":
-        return _hydra_command(_curve_job, argv)
-    if argv and argv[0] == "graph-stats":
-        return _hydra_command(_graph_stats_job, argv)
-    if argv and argv[0] == "import":
-        from dochar.data.import_command import main as import_main
-
-        return import_main(argv[1:])
-    if argv and argv[0] == "tracking-server":
-        from dochar.runs.server import main as server_main
-        return server_main(argv[1:])
-    if argv and argv[0] == "gate":
-        from dochar.gate.command import main as gate_main
-
-        return gate_main(argv[1:])
+    if argv and argv[0] in HYDRA_JOBS:
+        return _hydra_command(HYDRA_JOBS[argv[0]], argv)
+    if argv and argv[0] in OWN_PARSERS:
+        return importlib.import_module(OWN_PARSERS[argv[0]]).main(argv[1:])
     args = _parser().parse_args(argv)
     handlers = {"compare": _compare, "report": _report, "runs": _runs}
     from dochar.errors import DocharError

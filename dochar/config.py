@@ -1,7 +1,9 @@
 """Where the Hydra config groups live.
 
-``configs/`` sits at the top of the repository (and ships beside the package in a wheel);
-``DOCHAR_CONFIG_DIR`` points elsewhere, e.g. to a team's own copy.
+``configs/`` sits at the top of the repository; a wheel carries the same folder inside the package
+as ``dochar/configs`` (mapped by setup.py), which is looked for first. ``DOCHAR_CONFIG_DIR`` points
+elsewhere, e.g. to a team's own copy. Paths *inside* configs (data files, the gate's
+``reports/baseline/reference.yaml``) stay relative to the working directory.
 """
 
 from __future__ import annotations

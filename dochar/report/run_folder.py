@@ -1,6 +1,7 @@
 """A finished run's folder: the bundle, its figures, and the fitted model.
 
-Logged to MLflow as the run's artifacts; the same folder stays in the job's output directory.
+Logged to MLflow as the run's artifacts (``model/`` as an MLflow model); the same folder stays in
+the job's output directory.
 """
 
 from __future__ import annotations
@@ -9,10 +10,9 @@ import base64
 from pathlib import Path
 from typing import Any
 
-import joblib
-import torch
-
+from dochar.features import WordFeaturizer
 from dochar.metrics.words import row_normalise
+from dochar.models.saved import save_model
 from dochar.report import write_report
 from dochar.report.plots import calibration_plot, confusion_panels
 from dochar.report.summaries import reliability
@@ -23,9 +23,10 @@ def _png(data_uri: str, path: Path) -> None:
     path.write_bytes(base64.b64decode(data_uri.split(",", 1)[1]))
 
 
-def write_run_files(folder: Path, bundle: RunBundle, model: Any) -> Path:
-    """Figures and the model (a GNN as state dict, a baseline with joblib); the bundle itself is
-    saved by the caller once tracking has given it a run id."""
+def write_run_files(folder: Path, bundle: RunBundle, model: Any,
+                    featurizer: WordFeaturizer | None = None) -> Path:
+    """Figures and the model as one loadable unit in ``model/`` (:mod:`dochar.models.saved`);
+    the bundle itself is saved by the caller once tracking has given it a run id."""
     folder.mkdir(parents=True, exist_ok=True)
     confusion = bundle.tables["confusion"]
     labels = list(confusion.index)
@@ -38,11 +39,5 @@ def write_run_files(folder: Path, bundle: RunBundle, model: Any) -> Path:
     write_report([bundle], folder / "run_report.html", title=f"dochar run {bundle.name}",
                  overlay_pages=len(bundle.edges[["doc_id", "page"]].drop_duplicates())
                  if bundle.edges is not None else 0)
-    model_dir = folder / "model"
-    model_dir.mkdir(exist_ok=True)
-    if isinstance(model, torch.nn.Module):
-        torch.save(model.state_dict(), model_dir / "state_dict.pt")
-        (model_dir / "architecture.txt").write_text(str(model))
-    else:
-        joblib.dump(model, model_dir / "estimator.joblib")
+    save_model(folder / "model", model, bundle.config, featurizer, name=bundle.name)
     return folder

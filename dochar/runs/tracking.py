@@ -65,6 +65,8 @@ def masked(value: Any) -> Any:
     if isinstance(value, (list, tuple)):
         return type(value)(masked(item) for item in value)
     return value
+MODEL_DIR = "model"             # the run folder's saved model (a dochar unit), logged as is
+MLFLOW_MODEL = "word_labeller"  # the same unit wrapped as an MLflow model (pyfunc flavour)
 
 
 def resolve_uri(configured: str | None = None) -> str:
@@ -196,7 +198,8 @@ def seal(bundle: RunBundle) -> RunBundle:
 
 def log_run(bundle: RunBundle, folder: Path, *, uri: str, experiment: str,
             extra_tags: Mapping[str, str] | None = None) -> str:
-    """Log params, metrics, tags and the bundle folder (artifacts); return the run id."""
+    """Log params, metrics, tags, the bundle folder (artifacts) and its saved model (an MLflow
+    model); return the run id."""
     seal(bundle)
     experiment_id = ensure_experiment(uri, experiment)
     with _tracking_uri(uri):
@@ -233,6 +236,10 @@ def _log(bundle: RunBundle, folder: Path, uri: str, experiment_id: str,
         log_dataset(bundle)
         bundle.save(folder)
         mlflow.log_artifacts(str(folder))
+        if (folder / MODEL_DIR).is_dir():
+            log_model(folder / MODEL_DIR)
+        if (folder / MODEL_DIR).is_dir():
+            log_model(folder / MODEL_DIR)
     return bundle.run_id
 
 
@@ -271,3 +278,30 @@ def finished_run(uri: str, experiment: str, hash_value: str,
         return None
     fingerprint = data_fingerprint()
     return next((run for run in runs if run.data.tags.get(FINGERPRINT_TAG) == fingerprint), None)
+
+
+def pip_requirements() -> list[str]:
+    """dochar's own install requirements (no extras): what loading the MLflow model needs."""
+    from importlib import metadata
+
+    try:
+        requires = metadata.requires("dochar") or []
+        version = metadata.version("dochar")
+    except metadata.PackageNotFoundError:
+        return []
+    return [f"dochar=={version}", *(r for r in requires if "extra ==" not in r)]
+
+
+def log_model(unit: Path) -> None:
+    """Log a saved dochar unit as the run's MLflow model ``word_labeller`` (pyfunc flavour).
+
+    The unit is then stored twice (in the run folder's artifacts, which ``dochar predict`` and
+    the gate read like any run folder, and inside the MLflow model, which MLflow's loaders and
+    serving read). No environment is created: the requirements are written down, not installed.
+    """
+    from dochar.runs import pyfunc_model
+
+    os.environ.setdefault("MLFLOW_ENABLE_ARTIFACTS_PROGRESS_BAR", "false")
+    mlflow.pyfunc.log_model(name=MLFLOW_MODEL, python_model=pyfunc_model.__file__,
+                            artifacts={pyfunc_model.UNIT_ARTIFACT: str(unit)},
+                            pip_requirements=pip_requirements())
