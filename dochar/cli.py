@@ -7,6 +7,10 @@
     dochar report [--experiment NAME]    static HTML page of an experiment's runs
     dochar gate [--update] [key=value]   reference run vs the committed baseline (CI)
     dochar import SRC... --out TABLE     PDF, hOCR, ALTO, page images, form JSON -> word table
+
+Input and config problems (``DocharError``, and Hydra's or OmegaConf's config errors) end a
+command with one located message on stderr and exit code 2; any other exception is a bug and
+shows its traceback. ``DOCHAR_TRACEBACK=1`` shows the traceback of input errors too.
 """
 
 from __future__ import annotations
@@ -17,7 +21,8 @@ import os
 import sys
 from pathlib import Path
 
-from dochar.config import CONFIG_DIR
+from dochar.config import CONFIG_DIR, check_config, config_error_message
+from dochar.errors import DocharError
 
 log = logging.getLogger("dochar")
 _SUBCOMMAND = ["run"]  # the Hydra-driven subcommand being run, for the recorded command line
@@ -92,19 +97,32 @@ def _graph_stats_job(cfg) -> None:
     print(format_stats(stats))
 
 
+def _tracebacks() -> bool:
+    return os.environ.get("DOCHAR_TRACEBACK") == "1"
+
+
+def _report_error(command: str, error: DocharError) -> int:
+    """One located message on stderr, exit code 2 (``DOCHAR_TRACEBACK=1``: the traceback)."""
+    if _tracebacks():
+        raise error
+    print(f"dochar {command}: error: {error}", file=sys.stderr)
+    return 2
+
+
 def _reported(task):
-    """Input and config problems end the job with one located message and exit code 2, not a
-    traceback (``DOCHAR_TRACEBACK=1`` shows it)."""
+    """Check the composed config against its schemas, then run the job; input and config
+    problems end it with one located message and exit code 2."""
     from omegaconf.errors import OmegaConfBaseException
 
     def job(cfg):
         try:
-            return task(cfg)
-        except (ValueError, FileNotFoundError, OmegaConfBaseException) as error:
-            if os.environ.get("DOCHAR_TRACEBACK") == "1":
-                raise
-            print(f"dochar {_SUBCOMMAND[0]}: error: {error}", file=sys.stderr)
-            raise SystemExit(2) from None
+            check_config(cfg)
+            try:
+                return task(cfg)
+            except OmegaConfBaseException as error:   # e.g. a mandatory value left as ???
+                raise DocharError(config_error_message(error)) from error
+        except DocharError as error:
+            raise SystemExit(_report_error(_SUBCOMMAND[0], error)) from None
 
     job.__name__ = task.__name__
     job.__module__ = task.__module__
@@ -112,12 +130,26 @@ def _reported(task):
 
 
 def _hydra_command(task, argv: list[str]) -> int:
+    """Run a Hydra app; composition errors (a wrong type, an unknown key or option) come back
+    here instead of Hydra's own report, so they get the same one line and exit code 2."""
+    from hydra.errors import HydraException
+    from omegaconf.errors import OmegaConfBaseException
+
     _SUBCOMMAND[0] = argv[0]
     sys.argv = [f"dochar {argv[0]}", *argv[1:]]
+    previous = os.environ.get("HYDRA_FULL_ERROR")
+    os.environ["HYDRA_FULL_ERROR"] = "1"    # Hydra re-raises instead of printing and exiting 1
     try:
         _hydra_main(_reported(task))()
     except SystemExit as stop:
         return int(stop.code or 0)
+    except (HydraException, OmegaConfBaseException) as error:
+        return _report_error(argv[0], DocharError(config_error_message(error)))
+    finally:
+        if previous is None:
+            os.environ.pop("HYDRA_FULL_ERROR", None)
+        else:
+            os.environ["HYDRA_FULL_ERROR"] = previous
     return 0
 
 
@@ -127,7 +159,7 @@ def _load(uri: str, experiment: str, run_ids: list[str] | None):
 
     bundles = load_bundles_from_mlflow(uri, experiment, run_ids)
     if not bundles:
-        raise SystemExit(f"dochar: no finished dochar runs in experiment {experiment!r} at {uri}")
+        raise DocharError(f"no finished dochar runs in experiment {experiment!r} at {uri}")
     return bundles
 
 
@@ -140,16 +172,19 @@ def _compare(args: argparse.Namespace) -> int:
         """A run id or its first characters, as the run tables print them."""
         matches = [b for b in bundles if (b.run_id or "").startswith(prefix)]
         if len(matches) != 1:
-            raise SystemExit(f"dochar compare: {prefix!r} matches {len(matches)} runs of "
-                             f"experiment {args.experiment!r}; give more of the run id")
+            shown = ", ".join((b.run_id or "")[:8] for b in bundles[:10])
+            raise DocharError(f"{prefix!r} matches {len(matches)} runs of experiment "
+                              f"{args.experiment!r}; give more of the run id (runs: {shown})")
         return matches[0]
 
     run_a, run_b = find(args.run_a), find(args.run_b)
     try:
         result = compare_runs(run_a, run_b, score=args.score, method=args.method,
                               resamples=args.resamples, seed=args.seed)
-    except ValueError as error:
-        raise SystemExit(f"dochar compare: {error}") from None
+    except DocharError:
+        raise
+    except ValueError as error:   # dochar.runs.compare names the unusable --score or label set
+        raise DocharError(str(error)) from error
     print(format_comparison(run_a, run_b, result, args.score))
     return 0
 
@@ -163,8 +198,8 @@ def _report(args: argparse.Namespace) -> int:
         wanted = sweeps[-1] if args.sweep == "latest" and sweeps else args.sweep
         bundles = [b for b in bundles if b.tags.get("sweep_id") == wanted]
         if not bundles:
-            raise SystemExit(f"dochar report: no runs of sweep {args.sweep!r} "
-                             f"(sweeps here: {sweeps or 'none'})")
+            raise DocharError(f"no runs of sweep {args.sweep!r} (sweeps here: "
+                              f"{sweeps or 'none'})")
     out = Path(args.out or Path("reports") / f"{args.experiment}.html")
     path = write_report(bundles, out, title=f"dochar — {args.experiment}", score=args.score,
                         reference=args.reference)
@@ -213,14 +248,20 @@ def main(argv: list[str] | None = None) -> int:
         return _hydra_command(_graph_stats_job, argv)
     if argv and argv[0] == "import":
         from dochar.data.import_command import main as import_main
-        return import_main(argv[1:])
+        try:
+            return import_main(argv[1:])
+        except DocharError as error:
+            return _report_error("import", error)
     if argv and argv[0] == "gate":
         from dochar.gate.command import main as gate_main
 
         return gate_main(argv[1:])
     args = _parser().parse_args(argv)
     handlers = {"compare": _compare, "report": _report}
-    return handlers[args.command](args)
+    try:
+        return handlers[args.command](args)
+    except DocharError as error:
+        return _report_error(args.command, error)
 
 
 if __name__ == "__main__":

@@ -79,7 +79,9 @@ def load_data(data_cfg: Mapping[str, Any], *, strict: bool = False,
               progress: bool = False) -> LoadedData:
     """Load and validate; every skipped document is reported with its reason, never dropped silently."""
     frame, notes = _load_raw(data_cfg, progress)
-    report = validate_word_table(frame, list(data_cfg["labels"]), strict=strict)
+    report = validate_word_table(frame, list(data_cfg["labels"]), strict=strict,
+                                 repair=data_cfg.get("repair"),
+                                 clip_tolerance=float(data_cfg.get("clip_tolerance", 0.01)))
     log.info("word table: %s", report.summary())
     for problem in report.problems[:20]:
         log.warning("skipped: %s", problem)
@@ -89,5 +91,6 @@ def load_data(data_cfg: Mapping[str, Any], *, strict: bool = False,
         raise WordTableError(f"{frame.attrs.get('source', 'data')}: no valid documents "
                              f"({report.summary()})")
     notes.update({"documents_in": report.documents_in, "documents_used": report.documents_used,
-                  "documents_reported": report.documents_reported})
+                  "documents_reported": report.documents_reported,
+                  "boxes_clipped": report.repairs.get("boxes clipped to the page", 0)})
     return LoadedData(report, notes)
