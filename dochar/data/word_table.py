@@ -188,8 +188,8 @@ def validate_word_table(frame: pd.DataFrame, labels: Sequence[str] | None = None
     for column in (*COORDINATE_COLUMNS, "page", "word_id"):
         values = pd.to_numeric(frame[column], errors="coerce").to_numpy(dtype=float)
         raw = frame[column].to_numpy()
-        flag(~np.isfinite(values), column,
-             lambda i, raw=raw: f"{raw[i]!r} is not a finite number")
+        flag(~np.isfinite(values), column, lambda i, raw=raw: (
+            f"{raw[i]!r}" if isinstance(raw[i], str) else f"{raw[i]}") + " is not a finite number")
         numbers[column] = values
     for column in ("page", "word_id"):
         fractional, negative, large = _integers(numbers[column])
@@ -199,9 +199,10 @@ def validate_word_table(frame: pd.DataFrame, labels: Sequence[str] | None = None
         flag(large & ~negative, column, f"larger than {MAX_ID:.0e}")
     x0, y0, x1, y1 = (numbers[c] for c in ("x0", "y0", "x1", "y1"))
     width, height = numbers["page_width"], numbers["page_height"]
+    readable = ~bad_rows.copy()     # later rules only judge rows whose numbers read
     with np.errstate(invalid="ignore"):
-        flag(x1 < x0, "x1", lambda i: f"x1 {x1[i]:g} is left of x0 {x0[i]:g}")
-        flag(y1 < y0, "y1", lambda i: f"y1 {y1[i]:g} is above y0 {y0[i]:g}")
+        flag((x1 < x0) & readable, "x1", lambda i: f"x1 {x1[i]:g} is left of x0 {x0[i]:g}")
+        flag((y1 < y0) & readable, "y1", lambda i: f"y1 {y1[i]:g} is above y0 {y0[i]:g}")
         for column, size in (("page_width", width), ("page_height", height)):
             flag(~(size > 0), column, "page size must be positive")
             flag(size > MAX_PAGE_SIZE, column,
