@@ -35,6 +35,30 @@ def _hydra_main(task):
                       version_base="1.3")(task)
 
 
+def _check_tracking(cfg) -> None:
+    """Fail fast, before any data loads, when the tracking store cannot be reached: a run whose
+    results cannot be recorded is better not started. ``tracking.enabled=false`` runs without
+    one (the run folder under outputs/ still holds everything)."""
+    if not cfg.tracking.enabled:
+        return
+    from dochar.runs.tracking import resolve_uri
+
+    uri = resolve_uri(cfg.tracking.uri)
+    if not uri.startswith(("http://", "https://")):
+        return      # a local store (SQLite, files) is created on first use
+    os.environ.setdefault("MLFLOW_HTTP_REQUEST_TIMEOUT", "10")
+    os.environ.setdefault("MLFLOW_HTTP_REQUEST_MAX_RETRIES", "2")
+    from mlflow import MlflowClient
+
+    try:
+        MlflowClient(tracking_uri=uri).search_experiments(max_results=1)
+    except Exception as error:  # MLflow wraps connection failures in several types
+        reason = " ".join(str(error).split())[:200]
+        raise DocharError(f"tracking server {uri} cannot be reached ({type(error).__name__}: "
+                          f"{reason}); start it, point tracking.uri or MLFLOW_TRACKING_URI "
+                          f"elsewhere, or run with tracking.enabled=false") from error
+
+
 def _finish(cfg, bundle, model) -> float:
     """Write the run folder, log it, print its line: the same for every kind of job."""
     from hydra.core.hydra_config import HydraConfig
@@ -48,8 +72,14 @@ def _finish(cfg, bundle, model) -> float:
     folder = Path(hydra_cfg.runtime.output_dir) / "run"
     write_run_files(folder, bundle, model)
     if cfg.tracking.enabled:
-        log_run(bundle, folder, uri=resolve_uri(cfg.tracking.uri),
-                experiment=str(cfg.tracking.experiment))
+        uri = resolve_uri(cfg.tracking.uri)
+        try:
+            log_run(bundle, folder, uri=uri, experiment=str(cfg.tracking.experiment))
+        except Exception as error:  # the store went away during the run: say so, keep the folder
+            bundle.save(folder)
+            raise DocharError(f"tracking server {uri} failed while logging the run "
+                              f"({type(error).__name__}); the finished run is kept in "
+                              f"{folder}") from error
     else:
         bundle.save(folder)
     console.print(ranking_table([bundle], title=f"run {bundle.name}"))
@@ -59,6 +89,7 @@ def _finish(cfg, bundle, model) -> float:
 def _run_job(cfg) -> float:
     from dochar.experiment import run_experiment
 
+    _check_tracking(cfg)
     bundle, model = run_experiment(cfg)
     return _finish(cfg, bundle, model)
 
@@ -67,6 +98,7 @@ def _curve_job(cfg) -> float:
     """Learning curve of one system; logged as its full-data run plus curve/<n>/<score>."""
     from dochar.curve import curve_metrics, run_learning_curve
 
+    _check_tracking(cfg)
     full: list = []
 
     def keep_full(bundle, model, point) -> None:
