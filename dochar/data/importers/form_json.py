@@ -131,7 +131,8 @@ def read_form_file(path: Path, report: FormImportReport, *, split: str = "",
             report.boxes_reordered += 1
             x0, x1 = sorted((x0, x1))
             y0, y1 = sorted((y0, y1))
-        clipped = (max(0.0, x0), max(0.0, y0), min(width, x1), min(height, y1))
+        clipped = (min(max(x0, 0.0), width), min(max(y0, 0.0), height),
+                   min(max(x1, 0.0), width), min(max(y1, 0.0), height))
         if clipped != (x0, y0, x1, y1):
             report.boxes_clipped += 1
         rows.append({"doc_id": path.stem, "page": 1, "word_id": len(rows), "text": text,
