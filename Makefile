@@ -31,8 +31,13 @@ demo: $(STAMP)
 	@echo "  $(BIN)/mlflow ui --backend-store-uri sqlite:///$(CURDIR)/mlflow.db --port 5000"
 	@echo "then open http://127.0.0.1:5000 and pick the experiment '$(DEMO_EXPERIMENT)'."
 
+# Slow tests whose results the README cites run in `make test` (and so in CI) too.
+CITED := "tests/test_determinism.py::test_fresh_processes_with_other_hash_seeds_agree_bit_for_bit" \
+         "tests/gate/test_gate.py::test_committed_reference[planted_regression]"
+
 test: $(STAMP)
 	$(BIN)/python -m pytest -m "not slow" -q
+	$(BIN)/python -m pytest -q $(CITED)
 
 test-all: $(STAMP)
 	$(BIN)/python -m pytest -q

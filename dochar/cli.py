@@ -10,6 +10,10 @@
     dochar import SRC... --out TABLE     PDF, hOCR, ALTO, page images, form JSON -> word table
     dochar tracking-server [--db-uri ..] shared MLflow server on PostgreSQL, loopback by default
     dochar predict --model RUN --input SRC... --out DIR   a trained model labels new documents
+
+Input and config problems (``DocharError``, and Hydra's or OmegaConf's config errors) end a
+command with one located message on stderr and exit code 2; any other exception is a bug and
+shows its traceback. ``DOCHAR_TRACEBACK=1`` shows the traceback of input errors too.
 """
 
 from __future__ import annotations
@@ -21,7 +25,8 @@ import os
 import sys
 from pathlib import Path
 
-from dochar.config import CONFIG_DIR
+from dochar.config import CONFIG_DIR, check_config, config_error_message
+from dochar.errors import DocharError
 
 log = logging.getLogger("dochar")
 _SUBCOMMAND = ["run"]  # the Hydra-driven subcommand being run, for the recorded command line
@@ -32,6 +37,30 @@ def _hydra_main(task):
 
     return hydra.main(config_path=str(CONFIG_DIR), config_name="config",
                       version_base="1.3")(task)
+
+
+def _check_tracking(cfg) -> None:
+    """Fail fast, before any data loads, when the tracking store cannot be reached: a run whose
+    results cannot be recorded is better not started. ``tracking.enabled=false`` runs without
+    one (the run folder under outputs/ still holds everything)."""
+    if not cfg.tracking.enabled:
+        return
+    from dochar.runs.tracking import resolve_uri
+
+    uri = resolve_uri(cfg.tracking.uri)
+    if not uri.startswith(("http://", "https://")):
+        return      # a local store (SQLite, files) is created on first use
+    os.environ.setdefault("MLFLOW_HTTP_REQUEST_TIMEOUT", "10")
+    os.environ.setdefault("MLFLOW_HTTP_REQUEST_MAX_RETRIES", "2")
+    from mlflow import MlflowClient
+
+    try:
+        MlflowClient(tracking_uri=uri).search_experiments(max_results=1)
+    except Exception as error:  # MLflow wraps connection failures in several types
+        reason = " ".join(str(error).split())[:200]
+        raise DocharError(f"tracking server {uri} cannot be reached ({type(error).__name__}: "
+                          f"{reason}); start it, point tracking.uri or MLFLOW_TRACKING_URI "
+                          f"elsewhere, or run with tracking.enabled=false") from error
 
 
 def _finish(cfg, bundle, model) -> float:
@@ -50,7 +79,13 @@ def _finish(cfg, bundle, model) -> float:
     write_run_files(folder, bundle, model)
     uri = resolve_uri(cfg.tracking.uri)
     if cfg.tracking.enabled:
-        log_run(bundle, folder, uri=uri, experiment=str(cfg.tracking.experiment))
+        try:
+            log_run(bundle, folder, uri=uri, experiment=str(cfg.tracking.experiment))
+        except Exception as error:  # the store went away during the run: say so, keep the folder
+            bundle.save(folder)
+            raise DocharError(f"tracking server {uri} failed while logging the run "
+                              f"({type(error).__name__}); the finished run is kept in "
+                              f"{folder}") from error
     else:
         bundle.save(folder)
     console.print(ranking_table([bundle], title=f"run {bundle.name}"))
@@ -67,6 +102,7 @@ def _run_job(cfg) -> float:
     from dochar.experiment import run_experiment
     from dochar.runs.sweep import skip_if_finished
 
+    _check_tracking(cfg)
     done = skip_if_finished(cfg, lambda: table_fingerprint(
         load_data(cfg.data, strict=bool(cfg.strict)).table))
     if done is not None:
@@ -79,6 +115,7 @@ def _curve_job(cfg) -> float:
     """Learning curve of one system; logged as its full-data run plus curve/<n>/<score>."""
     from dochar.curve import curve_metrics, run_learning_curve
 
+    _check_tracking(cfg)
     full: list = []
 
     axis = str(cfg.curve.get("axis") or "train_documents")
@@ -127,19 +164,32 @@ def _graph_stats_job(cfg) -> None:
                   f"  {key:<28} {value}")
 
 
+def _tracebacks() -> bool:
+    return os.environ.get("DOCHAR_TRACEBACK") == "1"
+
+
+def _report_error(command: str, error: DocharError) -> int:
+    """One located message on stderr, exit code 2 (``DOCHAR_TRACEBACK=1``: the traceback)."""
+    if _tracebacks():
+        raise error
+    print(f"dochar {command}: error: {error}", file=sys.stderr)
+    return 2
+
+
 def _reported(task):
-    """Input and config problems end the job with one located message and exit code 2, not a
-    traceback (``DOCHAR_TRACEBACK=1`` shows it)."""
+    """Check the composed config against its schemas, then run the job; input and config
+    problems end it with one located message and exit code 2."""
     from omegaconf.errors import OmegaConfBaseException
 
     def job(cfg):
         try:
-            return task(cfg)
-        except (ValueError, FileNotFoundError, OmegaConfBaseException) as error:
-            if os.environ.get("DOCHAR_TRACEBACK") == "1":
-                raise
-            print(f"dochar {_SUBCOMMAND[0]}: error: {error}", file=sys.stderr)
-            raise SystemExit(2) from None
+            check_config(cfg)
+            try:
+                return task(cfg)
+            except OmegaConfBaseException as error:   # e.g. a mandatory value left as ???
+                raise DocharError(config_error_message(error)) from error
+        except DocharError as error:
+            raise SystemExit(_report_error(_SUBCOMMAND[0], error)) from None
 
     job.__name__ = task.__name__
     job.__module__ = task.__module__
@@ -147,14 +197,28 @@ def _reported(task):
 
 
 def _hydra_command(task, argv: list[str]) -> int:
+    """Run a Hydra app; composition errors (a wrong type, an unknown key or option) come back
+    here instead of Hydra's own report, so they get the same one line and exit code 2."""
+    from hydra.errors import HydraException
+    from omegaconf.errors import OmegaConfBaseException
+
     from dochar.runs.sweep import exit_code, guard_job
 
     _SUBCOMMAND[0] = argv[0]
     sys.argv = [f"dochar {argv[0]}", *argv[1:]]
+    previous = os.environ.get("HYDRA_FULL_ERROR")
+    os.environ["HYDRA_FULL_ERROR"] = "1"    # Hydra re-raises instead of printing and exiting 1
     try:
         _hydra_main(_reported(guard_job(task)))()
     except SystemExit as stop:
         return int(stop.code or 0)
+    except (HydraException, OmegaConfBaseException) as error:
+        return _report_error(argv[0], DocharError(config_error_message(error)))
+    finally:
+        if previous is None:
+            os.environ.pop("HYDRA_FULL_ERROR", None)
+        else:
+            os.environ["HYDRA_FULL_ERROR"] = previous
     return exit_code()
 
 
@@ -170,8 +234,13 @@ def _compare(args: argparse.Namespace) -> int:
     from dochar.runs.store import find_run
 
     run_a, run_b = (find_run(reference, args.tracking_uri) for reference in (args.run_a, args.run_b))
-    result = compare_runs(run_a, run_b, score=args.score, method=args.method,
-                          resamples=args.resamples, seed=args.seed)
+    try:
+        result = compare_runs(run_a, run_b, score=args.score, method=args.method,
+                              resamples=args.resamples, seed=args.seed)
+    except DocharError:
+        raise
+    except ValueError as error:   # dochar.runs.compare names the unusable --score or label set
+        raise DocharError(str(error)) from error
     print(format_comparison(run_a, run_b, result, args.score))
     return 0
 
@@ -259,19 +328,14 @@ def main(argv: list[str] | None = None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
     if argv and argv[0] in HYDRA_JOBS:
         return _hydra_command(HYDRA_JOBS[argv[0]], argv)
-    if argv and argv[0] in OWN_PARSERS:
-        return importlib.import_module(OWN_PARSERS[argv[0]]).main(argv[1:])
-    args = _parser().parse_args(argv)
-    handlers = {"compare": _compare, "report": _report, "runs": _runs}
-    from dochar.errors import DocharError
-
     try:
+        if argv and argv[0] in OWN_PARSERS:
+            return importlib.import_module(OWN_PARSERS[argv[0]]).main(argv[1:])
+        args = _parser().parse_args(argv)
+        handlers = {"compare": _compare, "report": _report, "runs": _runs}
         return handlers[args.command](args)
     except DocharError as error:
-        if os.environ.get("DOCHAR_TRACEBACK") == "1":
-            raise
-        print(f"dochar {args.command}: error: {error}", file=sys.stderr)
-        return 2
+        return _report_error(argv[0] if argv else "", error)
 
 
 if __name__ == "__main__":

@@ -6,6 +6,7 @@ from pathlib import Path
 
 import pytest
 
+import dochar.config  # noqa: F401  (registers the config schemas that configs/ start from)
 from tests.helpers import require_dataset
 
 

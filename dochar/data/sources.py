@@ -95,7 +95,9 @@ def load_data(data_cfg: Mapping[str, Any], *, strict: bool = False,
               progress: bool = False) -> LoadedData:
     """Load and validate; every skipped document is reported with its reason, never dropped silently."""
     frame, notes, raw_links = _load_raw(data_cfg, progress)
-    report = validate_word_table(frame, list(data_cfg["labels"]), strict=strict)
+    report = validate_word_table(frame, list(data_cfg["labels"]), strict=strict,
+                                 repair=data_cfg.get("repair"),
+                                 clip_tolerance=float(data_cfg.get("clip_tolerance", 0.01)))
     log.info("word table: %s", report.summary())
     for problem in report.problems[:20]:
         log.warning("skipped: %s", problem)
@@ -105,7 +107,8 @@ def load_data(data_cfg: Mapping[str, Any], *, strict: bool = False,
         raise WordTableError(f"{frame.attrs.get('source', 'data')}: no valid documents "
                              f"({report.summary()})")
     notes.update({"documents_in": report.documents_in, "documents_used": report.documents_used,
-                  "documents_reported": report.documents_reported})
+                  "documents_reported": report.documents_reported,
+                  "boxes_clipped": report.repairs.get("boxes clipped to the page", 0)})
     links = validate_links_table(raw_links, report.table, strict=strict)
     if links.links_in:
         log.info("links table: %s", links.summary())

@@ -6,7 +6,9 @@ it, so the rules here are the single contract between sources and the rest of th
 
 from __future__ import annotations
 
+import csv
 import hashlib
+from collections import Counter
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -26,6 +28,8 @@ COORDINATE_COLUMNS: tuple[str, ...] = ("x0", "y0", "x1", "y1", "page_width", "pa
 BOX_TOLERANCE = 0.5  # page units a box may overhang the page edge (scanner rounding)
 LINE_OVERLAP = 0.5   # share of the smaller height two words must overlap by to share a line
 PAIR_CELLS = 2_000_000  # word x word cells compared at once when grouping lines
+MAX_PAGE_SIZE = 1e6  # page units; beyond this a size is a unit mix-up, not a page
+MAX_ID = 1e9         # largest page number or word id (keeps int64 casts exact)
 
 
 class WordTableError(DocharError):
@@ -60,53 +64,111 @@ class ValidationReport:
     problems: list[Problem] = field(default_factory=list)
     documents_in: int = 0
     documents_used: int = 0
+    repairs: Counter = field(default_factory=Counter)
 
     @property
     def documents_reported(self) -> int:
         return self.documents_in - self.documents_used
 
     def summary(self) -> str:
+        repaired = "".join(f"; repaired: {n} {kind}" for kind, n in sorted(self.repairs.items()))
         return (f"{self.documents_in} documents in, {self.documents_used} used, "
-                f"{self.documents_reported} reported ({len(self.problems)} problems)")
+                f"{self.documents_reported} reported ({len(self.problems)} problems){repaired}")
+
+
+def _check_header(path: Path, header: Sequence[str]) -> None:
+    repeated = sorted({c for c in header if list(header).count(c) > 1})
+    if repeated:
+        raise WordTableError(f"{path}: column(s) {repeated} appear more than once in the header; "
+                             f"each column must be named once")
 
 
 def read_word_table(path: str | Path) -> pd.DataFrame:
-    """Read a CSV or Parquet word table with text-like columns kept as strings."""
+    """Read a CSV or Parquet word table with text-like columns kept as strings.
+
+    A file that cannot be read at all (missing, unreadable, malformed, truncated, repeated
+    column names) is a WordTableError naming the file; a row that reads but breaks a rule is
+    left to the validator, which names its row and column."""
     path = Path(path)
     if not path.exists():
         raise WordTableError(f"{path}: no such word table")
     suffix = path.suffix.lower()
-    if suffix == ".parquet":
-        frame = pd.read_parquet(path)
-    elif suffix in {".csv", ".tsv"}:
-        text_columns = {c: "string" for c in ("doc_id", "text", "label", "entity_id",
-                                               "layout_id", "split")}
-        frame = pd.read_csv(path, sep="\t" if suffix == ".tsv" else ",", dtype=text_columns,
-                            keep_default_na=False, na_values={"x0": [""], "y0": [""]})
-    else:
+    if suffix not in {".parquet", ".csv", ".tsv"}:
         raise WordTableError(f"{path}: unknown word table format '{suffix}' (use .csv or .parquet)")
+    try:
+        if suffix == ".parquet":
+            import pyarrow.parquet as pq
+
+            parquet = pq.read_table(path)
+            _check_header(path, parquet.column_names)
+            frame = parquet.to_pandas()
+        else:
+            sep = "\t" if suffix == ".tsv" else ","
+            with path.open(encoding="utf-8", newline="") as handle:
+                header = next(csv.reader(handle, delimiter=sep), [])
+            _check_header(path, header)
+            text_columns = {c: "string" for c in ("doc_id", "text", "label", "entity_id",
+                                                   "layout_id", "split")}
+            frame = pd.read_csv(path, sep=sep, dtype=text_columns, keep_default_na=False,
+                                na_values={c: [""] for c in COORDINATE_COLUMNS})
+    except WordTableError:
+        raise
+    except UnicodeDecodeError as error:
+        raise WordTableError(f"{path}: not UTF-8 text (byte {error.start}: {error.reason})") \
+            from None
+    except pd.errors.ParserError as error:
+        raise WordTableError(f"{path}: malformed CSV ({' '.join(str(error).split())})") from None
+    except pd.errors.EmptyDataError:
+        raise WordTableError(f"{path}: empty file (no header row)") from None
+    except OSError as error:
+        raise WordTableError(f"{path}: cannot read the file ({error.strerror or error})") \
+            from None
+    except Exception as error:  # pyarrow raises its own types for a damaged Parquet file
+        if type(error).__module__.startswith("pyarrow"):
+            raise WordTableError(f"{path}: not a readable Parquet file ({error})") from None
+        raise
     frame.attrs["source"] = str(path)
     return frame
 
 
 def write_word_table(frame: pd.DataFrame, path: str | Path) -> Path:
+    """Write then rename, so a reader never finds half a table under the final name."""
+    from dochar.data.files import atomic_write
+
     path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    if path.suffix.lower() == ".parquet":
-        frame.to_parquet(path, index=False)
-    else:
-        frame.to_csv(path, index=False)
+    with atomic_write(path) as scratch:
+        if path.suffix.lower() == ".parquet":
+            frame.to_parquet(scratch, index=False)
+        else:
+            frame.to_csv(scratch, index=False)
     return path
 
 
+def _integers(values: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(fractional, negative, too large) masks of finite values that must be whole numbers."""
+    with np.errstate(invalid="ignore"):
+        finite = np.isfinite(values)
+        return (finite & (values != np.floor(values)), finite & (values < 0),
+                finite & (np.abs(values) > MAX_ID))
+
+
 def validate_word_table(frame: pd.DataFrame, labels: Sequence[str] | None = None, *,
-                        source: str | None = None, strict: bool = False) -> ValidationReport:
+                        source: str | None = None, strict: bool = False,
+                        repair: str | None = None,
+                        clip_tolerance: float = 0.01) -> ValidationReport:
     """Check every rule of the format; set aside whole documents that break one.
 
     A document with any bad row is reported and skipped (never half-used), so downstream code
     can trust every page it sees. ``strict`` turns the first report into a WordTableError.
+    ``repair="clip"`` clips boxes that overhang their page by at most ``clip_tolerance`` of
+    its width (x) or height (y), counted in ``repairs``; boxes farther out are reported.
     """
     source = source or frame.attrs.get("source", "<word table>")
+    if repair not in (None, "clip"):
+        raise WordTableError(f"repair={repair!r}: expected None or 'clip'")
+    repeated = sorted({str(c) for c in frame.columns[frame.columns.duplicated()]})
+    if repeated:
+        raise WordTableError(f"{source}: column(s) {repeated} appear more than once")
     missing = [c for c in REQUIRED_COLUMNS if c not in frame.columns]
     if missing:
         raise WordTableError(f"{source}: missing required column(s) {missing}; "
@@ -115,54 +177,117 @@ def validate_word_table(frame: pd.DataFrame, labels: Sequence[str] | None = None
     frame["doc_id"] = frame["doc_id"].astype("string").fillna("")
     frame["text"] = frame["text"].astype("string").fillna("")
     problems: list[Problem] = []
+    repairs: Counter = Counter()
     bad_rows = np.zeros(len(frame), dtype=bool)
 
-    def flag(mask: np.ndarray, column: str | None, message: str) -> None:
+    def flag(mask: np.ndarray, column: str | None, message) -> None:
         for index in np.flatnonzero(mask):
+            text = message(index) if callable(message) else message
             problems.append(Problem(source, str(frame.at[index, "doc_id"]), int(index) + 1,
-                                    column, message))
+                                    column, text))
         bad_rows[mask] = True
 
-    flag((frame["doc_id"] == "").to_numpy(), "doc_id", "empty document id")
+    flag((frame["doc_id"].str.strip() == "").to_numpy(), "doc_id", "empty document id")
     numbers = {}
     for column in (*COORDINATE_COLUMNS, "page", "word_id"):
         values = pd.to_numeric(frame[column], errors="coerce").to_numpy(dtype=float)
-        flag(~np.isfinite(values), column, "not a finite number")
+        raw = frame[column].to_numpy()
+        flag(~np.isfinite(values), column, lambda i, raw=raw: (
+            f"{raw[i]!r}" if isinstance(raw[i], str) else f"{raw[i]}") + " is not a finite number")
         numbers[column] = values
+    for column in ("page", "word_id"):
+        fractional, negative, large = _integers(numbers[column])
+        values = numbers[column]
+        flag(fractional, column, lambda i, v=values: f"{v[i]:g} is not a whole number")
+        flag(negative & ~fractional, column, lambda i, v=values: f"{v[i]:g} is negative")
+        flag(large & ~negative, column, f"larger than {MAX_ID:.0e}")
     x0, y0, x1, y1 = (numbers[c] for c in ("x0", "y0", "x1", "y1"))
     width, height = numbers["page_width"], numbers["page_height"]
+    readable = ~bad_rows.copy()     # later rules only judge rows whose numbers read
     with np.errstate(invalid="ignore"):
-        flag(x1 < x0, "x1", "x1 is left of x0")
-        flag(y1 < y0, "y1", "y1 is above y0")
-        flag(~(width > 0), "page_width", "page width must be positive")
-        flag(~(height > 0), "page_height", "page height must be positive")
-        outside = ((x0 < -BOX_TOLERANCE) | (y0 < -BOX_TOLERANCE)
-                   | (x1 > width + BOX_TOLERANCE) | (y1 > height + BOX_TOLERANCE))
-        flag(outside & ~bad_rows, "x0", "box lies outside the page")
-    duplicated = frame.duplicated(subset=["doc_id", "page", "word_id"], keep="first").to_numpy()
-    flag(duplicated, "word_id", "duplicate word_id on this page")
+        flag((x1 < x0) & readable, "x1", lambda i: f"x1 {x1[i]:g} is left of x0 {x0[i]:g}")
+        flag((y1 < y0) & readable, "y1", lambda i: f"y1 {y1[i]:g} is above y0 {y0[i]:g}")
+        for column, size in (("page_width", width), ("page_height", height)):
+            flag(~(size > 0), column, "page size must be positive")
+            flag(size > MAX_PAGE_SIZE, column,
+                 lambda i, s=size: f"{s[i]:g} is larger than {MAX_PAGE_SIZE:.0e} page units")
+        _check_page_sizes(frame, numbers, flag)
+        if repair == "clip":
+            _clip_boxes(frame, numbers, bad_rows, clip_tolerance, repairs)
+            x0, y0, x1, y1 = (numbers[c] for c in ("x0", "y0", "x1", "y1"))
+        ok = ~bad_rows
+        sides = (("x0", x0 < -BOX_TOLERANCE, "left of the page (x < 0)"),
+                 ("y0", y0 < -BOX_TOLERANCE, "above the page (y < 0)"),
+                 ("x1", x1 > width + BOX_TOLERANCE, "right of the page (x > page_width)"),
+                 ("y1", y1 > height + BOX_TOLERANCE, "below the page (y > page_height)"))
+        hint = "" if repair else (f" (data.repair=clip clips overhangs of up to "
+                                  f"{clip_tolerance:g} of the page)")
+        outside = np.zeros(len(frame), dtype=bool)
+        for column, mask, where in sides:
+            flag(mask & ok & ~outside, column, lambda i, c=column, w=where: (
+                f"box lies outside the page: {c} {numbers[c][i]:g} is {w}{hint}"))
+            outside |= mask & ok
+    keys = pd.DataFrame({"doc_id": frame["doc_id"], "page": numbers["page"],
+                         "word_id": numbers["word_id"]})
+    duplicated = keys.duplicated(keep="first").to_numpy() & ~bad_rows
+    flag(duplicated, "word_id", lambda i: f"duplicate word_id {numbers['word_id'][i]:g} on "
+                                          f"page {numbers['page'][i]:g}")
     if labels is not None and "label" in frame.columns:
         allowed = set(labels)
         label_values = frame["label"].astype("string").fillna("")
         flag(~label_values.isin(allowed).to_numpy(), "label",
-             f"label outside the configured set {sorted(allowed)}")
+             lambda i: f"label {label_values[i]!r} outside the configured set {sorted(allowed)}")
 
     bad_docs = set(frame.loc[bad_rows, "doc_id"])
     documents_in = frame["doc_id"].nunique()
     if strict and problems:
         shown = "\n  ".join(str(p) for p in problems[:20])
         raise WordTableError(f"{len(problems)} problem(s) in {source} (strict mode):\n  {shown}")
-    kept = frame.loc[~frame["doc_id"].isin(bad_docs)].copy()
+    keep = ~frame["doc_id"].isin(bad_docs).to_numpy()
+    kept = frame.loc[keep].copy()
     for column in COORDINATE_COLUMNS:
-        kept[column] = pd.to_numeric(kept[column]).astype(float)
-    kept["page"] = pd.to_numeric(kept["page"]).astype(int)
-    kept["word_id"] = pd.to_numeric(kept["word_id"]).astype(int)
+        kept[column] = numbers[column][keep]
+    kept["page"] = numbers["page"][keep].astype(np.int64)
+    kept["word_id"] = numbers["word_id"][keep].astype(np.int64)
     for column in OPTIONAL_COLUMNS:
         if column in kept.columns:
             kept[column] = kept[column].astype("string").fillna("")
     kept.attrs["source"] = source
     return ValidationReport(kept.reset_index(drop=True), problems, documents_in,
-                            kept["doc_id"].nunique())
+                            kept["doc_id"].nunique(), repairs)
+
+
+def _check_page_sizes(frame: pd.DataFrame, numbers: dict[str, np.ndarray], flag) -> None:
+    """Every row of a page must give the same page size (the page's first row sets it)."""
+    for column in ("page_width", "page_height"):
+        values = pd.Series(numbers[column])
+        first = values.groupby([frame["doc_id"], pd.Series(numbers["page"])],
+                               dropna=False).transform("first").to_numpy()
+        with np.errstate(invalid="ignore"):
+            differs = np.isfinite(first) & np.isfinite(values.to_numpy()) & \
+                (values.to_numpy() != first)
+        flag(differs, column, lambda i, v=values, f=first: (
+            f"{column} {v[i]:g} differs from {f[i]:g} on an earlier row of this page"))
+
+
+def _clip_boxes(frame: pd.DataFrame, numbers: dict[str, np.ndarray], bad_rows: np.ndarray,
+                tolerance: float, repairs: Counter) -> None:
+    """Clip boxes that overhang the page by no more than ``tolerance`` of its size (counted)."""
+    x0, y0, x1, y1 = (numbers[c].copy() for c in ("x0", "y0", "x1", "y1"))
+    width, height = numbers["page_width"], numbers["page_height"]
+    reach_x, reach_y = tolerance * width, tolerance * height
+    overhang = (x0 < 0) | (y0 < 0) | (x1 > width) | (y1 > height)
+    within = ((x0 >= -reach_x) & (y0 >= -reach_y) & (x1 <= width + reach_x)
+              & (y1 <= height + reach_y))
+    clipped = [np.clip(x0, 0, width), np.clip(y0, 0, height), np.clip(x1, 0, width),
+               np.clip(y1, 0, height)]
+    keeps_area = (clipped[2] > clipped[0]) | (x1 == x0)
+    keeps_area &= (clipped[3] > clipped[1]) | (y1 == y0)
+    chosen = overhang & within & keeps_area & ~bad_rows
+    for column, values in zip(("x0", "y0", "x1", "y1"), clipped):
+        numbers[column] = np.where(chosen, values, numbers[column])
+    if chosen.any():
+        repairs["boxes clipped to the page"] += int(chosen.sum())
 
 
 @dataclass

@@ -24,6 +24,8 @@ from dochar.metrics.words import f1_from_confusion
 from dochar.runs.bundle import RunBundle
 
 FORMAT = 1
+END_LINE = "# end of baseline"   # last line: a file cut short anywhere lacks it
+LIBRARIES = ("torch", "torch_geometric", "sklearn", "numpy")
 HEADER = ("# dochar gate baseline: written by `dochar gate --update`, read by `dochar gate`.\n"
           "# Review changes to this file like code: each one moves the bar a model must clear.\n")
 # Config keys that say how a run was watched, not what it computed.
@@ -80,6 +82,27 @@ def flat_config(config: Mapping[str, Any], prefix: str = "") -> dict[str, Any]:
     return flat
 
 
+def library_versions() -> dict[str, str]:
+    """Versions of the libraries whose arithmetic the scores depend on."""
+    import importlib
+
+    versions = {}
+    for name in LIBRARIES:
+        try:
+            versions[name] = str(importlib.import_module(name).__version__)
+        except ImportError:
+            versions[name] = "absent"
+    return versions
+
+
+def version_differences(old: Mapping[str, str], new: Mapping[str, str]) -> list[str]:
+    """``torch 2.13.0 -> 2.14.0`` for each library whose version moved (none if unrecorded)."""
+    if not old:
+        return []
+    return [f"{name} {old.get(name, '(absent)')} -> {new.get(name, '(absent)')}"
+            for name in sorted(set(old) | set(new)) if old.get(name) != new.get(name)]
+
+
 def config_differences(old: Mapping[str, Any], new: Mapping[str, Any]) -> list[str]:
     keys = sorted(set(old) | set(new))
     missing = object()
@@ -96,33 +119,36 @@ class Baseline:
     overrides: list[str] = field(default_factory=list)
     source: str = ""
     git_commit: str = "unknown"
+    git_dirty: bool | None = None      # True: uncommitted changes when the baseline was written
     dochar_version: str = __version__
+    libraries: dict[str, str] = field(default_factory=dict)
     created: str = ""
 
     @classmethod
     def from_run(cls, name: str, bundle: RunBundle, *, overrides: Sequence[str], source: str,
-                 git_commit: str) -> Baseline:
+                 git_commit: str, git_dirty: bool | None = None) -> Baseline:
         return cls(name=name, scores=run_scores(bundle),
                    data_fingerprint=str(bundle.tags.get("data_fingerprint", "")),
                    experiment_config=flat_config(bundle.config), overrides=list(overrides),
-                   source=source, git_commit=git_commit,
+                   source=source, git_commit=git_commit, git_dirty=git_dirty,
+                   libraries=library_versions(),
                    created=dt.datetime.now(dt.timezone.utc).replace(microsecond=0).isoformat())
 
     def to_dict(self) -> dict[str, Any]:
         return {"format": FORMAT, "name": self.name, "created": self.created,
-                "git_commit": self.git_commit, "dochar_version": self.dochar_version,
+                "git_commit": self.git_commit, "git_dirty": self.git_dirty,
+                "dochar_version": self.dochar_version, "libraries": dict(self.libraries),
                 "source": self.source, "data_fingerprint": self.data_fingerprint,
                 "overrides": list(self.overrides),
                 "metrics": {m: s.to_dict() for m, s in self.scores.items()},
                 "experiment_config": dict(self.experiment_config)}
 
     def write(self, path: str | Path) -> Path:
-        path = Path(path)
-        path.parent.mkdir(parents=True, exist_ok=True)
+        from dochar.data.files import write_text_atomic
+
         text = yaml.safe_dump(self.to_dict(), sort_keys=True, allow_unicode=True,
                               default_flow_style=None, width=100)
-        path.write_text(HEADER + text, encoding="utf-8")
-        return path
+        return write_text_atomic(path, HEADER + text + END_LINE + "\n")
 
     @classmethod
     def read(cls, path: str | Path) -> Baseline:
@@ -130,11 +156,16 @@ class Baseline:
         if not path.is_file():
             raise FileNotFoundError(f"no baseline at {path}; create it with `dochar gate --update`")
         try:
-            data = yaml.safe_load(path.read_text(encoding="utf-8"))
-        except yaml.YAMLError as error:
+            text = path.read_text(encoding="utf-8")
+            data = yaml.safe_load(text)
+        except (yaml.YAMLError, UnicodeDecodeError) as error:
             raise GateConfigError(f"{path}: not valid YAML ({error})") from None
         if not isinstance(data, Mapping) or not isinstance(data.get("metrics"), Mapping):
             raise GateConfigError(f"{path}: not a dochar gate baseline (no 'metrics' mapping)")
+        if "libraries" in data and text.rstrip().splitlines()[-1] != END_LINE:
+            raise GateConfigError(f"{path}: cut short (its last line is not {END_LINE!r}); "
+                                  f"restore it from version control or rerun `dochar gate "
+                                  f"--update`")
         if data.get("format") != FORMAT:
             raise GateConfigError(f"{path}: baseline format {data.get('format')!r}, this dochar "
                                   f"reads format {FORMAT}")
@@ -145,7 +176,9 @@ class Baseline:
                    experiment_config=dict(data.get("experiment_config") or {}),
                    overrides=[str(o) for o in data.get("overrides") or []],
                    source=str(data.get("source", "")), git_commit=str(data.get("git_commit", "")),
+                   git_dirty=data.get("git_dirty"),
                    dochar_version=str(data.get("dochar_version", "")),
+                   libraries={str(k): str(v) for k, v in (data.get("libraries") or {}).items()},
                    created=str(data.get("created", "")))
 
 
@@ -173,4 +206,7 @@ def describe_update(old: Baseline | None, new: Baseline) -> list[str]:
                                                               new.experiment_config)]
     if old.git_commit != new.git_commit:
         lines.append(f"git commit: {old.git_commit[:12]} -> {new.git_commit[:12]}")
+    if new.git_dirty:
+        lines.append("warning: the working tree has uncommitted changes (git_dirty: true)")
+    lines += [f"library {line}" for line in version_differences(old.libraries, new.libraries)]
     return lines

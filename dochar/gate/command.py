@@ -43,7 +43,9 @@ from dochar.gate.baseline import (
     config_differences,
     describe_update,
     flat_config,
+    library_versions,
     run_scores,
+    version_differences,
 )
 from dochar.gate.outputs import (
     COULD_NOT_RUN,
@@ -196,6 +198,12 @@ def notes_for(outcome: GateOutcome, baseline: Baseline, bundle: RunBundle) -> li
     if better:
         notes.append(f"{len(better)} metric(s) above the baseline ({', '.join(better)}); "
                      f"`dochar gate --update` would raise the bar")
+    if not baseline.libraries:
+        notes.append("the baseline records no library versions; `dochar gate --update` adds them")
+    moved = version_differences(baseline.libraries, library_versions())
+    if moved:
+        notes.append("library versions differ from the baseline's (scores may move by more than "
+                     "noise): " + "; ".join(moved))
     differences = config_differences(baseline.experiment_config, flat_config(bundle.config))
     if differences:
         shown = differences[:_MAX_CONFIG_NOTES]
@@ -261,13 +269,21 @@ def _obtain_run(args: argparse.Namespace, settings: GateSettings,
 
 def _update(settings: GateSettings, bundle: RunBundle, source: str,
             overrides: list[str]) -> int:
+    import subprocess
+
     from dochar.runs.tracking import git_commit
 
+    try:
+        status = subprocess.run(["git", "status", "--porcelain", "--untracked-files=no"],
+                                capture_output=True, text=True, check=True).stdout
+        dirty: bool | None = bool(status.strip())
+    except (OSError, subprocess.CalledProcessError):
+        dirty = None
     old = None
     if settings.baseline.is_file():
         old = Baseline.read(settings.baseline)
     new = Baseline.from_run(settings.name, bundle, overrides=overrides, source=source,
-                            git_commit=git_commit())
+                            git_commit=git_commit(), git_dirty=dirty)
     lines = describe_update(old, new)
     new.write(settings.baseline)
     print(f"dochar gate {settings.name}: baseline {settings.baseline} "

@@ -44,7 +44,7 @@ def test_clean_table_passes_untouched():
     ({"y1": math.inf}, "y1", "not a finite number"),
     ({"x0": 30, "x1": 20}, "x1", "left of x0"),
     ({"y0": 30, "y1": 20}, "y1", "above y0"),
-    ({"x1": 150}, "x0", "outside the page"),
+    ({"x1": 150}, "x1", "outside the page"),
     ({"label": "price"}, "label", "outside the configured set"),
 ])
 def test_each_rule_is_located_and_its_document_skipped(bad, column, fragment):

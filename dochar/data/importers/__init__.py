@@ -38,7 +38,8 @@ def _read_form_json(path: Path, doc_id: str, summary: ImportSummary, ocr: bool,
     frame, report = import_form_json([path])
     summary.files += report.files
     summary.pages += report.files
-    summary.words_read += report.words + report.empty_text_dropped
+    summary.words_read += report.words + report.empty_text_dropped + report.words_unreadable
+    summary.dropped["words with an unreadable box"] += report.words_unreadable
     summary.words_kept += report.words
     summary.dropped["words without text"] += report.empty_text_dropped
     summary.repairs["boxes with swapped corners put in order"] += report.boxes_reordered

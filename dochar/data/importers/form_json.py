@@ -21,6 +21,7 @@ question to its answer); two entities of equal rank, or ``other``, keep the orde
 from __future__ import annotations
 
 import json
+import math
 import struct
 from collections.abc import Iterable
 from dataclasses import dataclass, field
@@ -43,6 +44,7 @@ class FormImportReport:
     empty_text_kept: int = 0
     boxes_reordered: int = 0
     boxes_clipped: int = 0
+    words_unreadable: int = 0
     problems: list[str] = field(default_factory=list)
     links: list[dict] = field(default_factory=list)      # rows of the links table
 
@@ -56,8 +58,8 @@ class FormImportReport:
     def summary(self) -> str:
         return (f"{self.files} forms, {self.words} words imported; empty-text words dropped "
                 f"{self.empty_text_dropped}, kept {self.empty_text_kept}; boxes reordered "
-                f"{self.boxes_reordered}, clipped {self.boxes_clipped}; files reported "
-                f"{len(self.problems)}")
+                f"{self.boxes_reordered}, clipped {self.boxes_clipped}; words with an unreadable "
+                f"box skipped {self.words_unreadable}; problems reported {len(self.problems)}")
 
 
 def png_size(path: Path) -> tuple[int, int]:
@@ -70,47 +72,90 @@ def png_size(path: Path) -> tuple[int, int]:
     return int(width), int(height)
 
 
-def _page_size(annotation: Path, form: list[dict]) -> tuple[float, float]:
+def _box(word: object) -> tuple[float, float, float, float] | None:
+    """Four finite numbers from a word's ``box``, or None."""
+    box = word.get("box") if isinstance(word, dict) else None
+    if not isinstance(box, (list, tuple)) or len(box) != 4:
+        return None
+    try:
+        values = tuple(float(v) for v in box)
+    except (TypeError, ValueError):
+        return None
+    return values if all(math.isfinite(v) for v in values) else None  # type: ignore[return-value]
+
+
+def _page_size(annotation: Path, boxes: list[tuple[float, ...]],
+               report: FormImportReport) -> tuple[float, float]:
     image = annotation.parent.parent / "images" / f"{annotation.stem}.png"
     if image.exists():
-        return png_size(image)
-    boxes = [w["box"] for entity in form for w in entity.get("words", [])]
+        try:
+            return png_size(image)
+        except (WordTableError, OSError) as error:
+            report.problems.append(f"{image}: page size not readable ({error}); the words' "
+                                   f"extent is used")
     if not boxes:
         return 1.0, 1.0
-    return float(max(b[2] for b in boxes)), float(max(b[3] for b in boxes))
+    return max(1.0, max(b[2] for b in boxes)), max(1.0, max(b[3] for b in boxes))
+
+
+def _words(path: Path, form: list, report: FormImportReport) -> list[tuple[int, dict, dict, tuple]]:
+    """(entity index, entity, word, box) of every readable word; the rest located and counted."""
+    found = []
+    for index, entity in enumerate(form):
+        words = entity.get("words", []) if isinstance(entity, dict) else None
+        if not isinstance(words, list):
+            report.problems.append(f"{path}: form[{index}]: expected an entity object with a "
+                                   f"'words' list; entity skipped")
+            continue
+        for position, word in enumerate(words):
+            box = _box(word)
+            if box is None:
+                shown = word.get("box", "(missing)") if isinstance(word, dict) else word
+                report.problems.append(f"{path}: form[{index}].words[{position}]: 'box' must "
+                                       f"be four finite numbers [x0, y0, x1, y1], got "
+                                       f"{shown!r}; word skipped")
+                report.words_unreadable += 1
+                continue
+            found.append((index, entity, word, box))
+    return found
 
 
 def read_form_file(path: Path, report: FormImportReport, *, split: str = "",
                    empty_text: str = "drop") -> list[dict]:
     try:
         form = json.loads(path.read_text(encoding="utf-8"))["form"]
-    except (json.JSONDecodeError, KeyError, TypeError) as error:
-        report.problems.append(f"{path}: not a form-annotation file ({error})")
+        if not isinstance(form, list):
+            raise TypeError(f"'form' is a {type(form).__name__}, expected a list")
+    except (json.JSONDecodeError, KeyError, TypeError, UnicodeDecodeError) as error:
+        report.problems.append(f"{path}: not a form-annotation file ({error}); file skipped")
         return []
-    width, height = _page_size(path, form)
+    except OSError as error:
+        report.problems.append(f"{path}: cannot read the file ({error}); file skipped")
+        return []
+    words = _words(path, form, report)
+    width, height = _page_size(path, [box for *_, box in words], report)
     rows: list[dict] = []
-    for index, entity in enumerate(form):
-        for word in entity.get("words", []):
-            text = str(word.get("text", "")).strip()
-            if not text:
-                if empty_text == "drop":
-                    report.empty_text_dropped += 1
-                    continue
-                report.empty_text_kept += 1
-            x0, y0, x1, y1 = (float(v) for v in word["box"])
-            if x1 < x0 or y1 < y0:
-                report.boxes_reordered += 1
-                x0, x1 = sorted((x0, x1))
-                y0, y1 = sorted((y0, y1))
-            clipped = (max(0.0, x0), max(0.0, y0), min(width, x1), min(height, y1))
-            if clipped != (x0, y0, x1, y1):
-                report.boxes_clipped += 1
-            rows.append({"doc_id": path.stem, "page": 1, "word_id": len(rows), "text": text,
-                         "x0": clipped[0], "y0": clipped[1], "x1": clipped[2],
-                         "y1": clipped[3], "page_width": float(width),
-                         "page_height": float(height), "label": str(entity.get("label", "")),
-                         "entity_id": f"e{entity.get('id', index)}", "layout_id": "",
-                         "split": split})
+    for index, entity, word, (x0, y0, x1, y1) in words:
+        text = str(word.get("text", "")).strip()
+        if not text:
+            if empty_text == "drop":
+                report.empty_text_dropped += 1
+                continue
+            report.empty_text_kept += 1
+        if x1 < x0 or y1 < y0:
+            report.boxes_reordered += 1
+            x0, x1 = sorted((x0, x1))
+            y0, y1 = sorted((y0, y1))
+        clipped = (min(max(x0, 0.0), width), min(max(y0, 0.0), height),
+                   min(max(x1, 0.0), width), min(max(y1, 0.0), height))
+        if clipped != (x0, y0, x1, y1):
+            report.boxes_clipped += 1
+        rows.append({"doc_id": path.stem, "page": 1, "word_id": len(rows), "text": text,
+                     "x0": clipped[0], "y0": clipped[1], "x1": clipped[2],
+                     "y1": clipped[3], "page_width": float(width),
+                     "page_height": float(height), "label": str(entity.get("label", "")),
+                     "entity_id": f"e{entity.get('id', index)}", "layout_id": "",
+                     "split": split})
     report.files += 1
     report.words += len(rows)
     report.links += form_links(form, path.stem)

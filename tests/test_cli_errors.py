@@ -1,0 +1,116 @@
+"""The command line's contract for errors: input and config problems give one located line on
+stderr and exit code 2, before any data loads; anything else is a bug and keeps its traceback.
+
+Each case is one the issue met as a new user; the expected key, value and type are read off the
+schemas in dochar/config.py and the command line typed here.
+"""
+
+from __future__ import annotations
+
+import pytest
+
+from dochar import cli
+from dochar.errors import DocharError
+
+
+def run(capsys, monkeypatch, tmp_path, *argv: str) -> tuple[int, str]:
+    monkeypatch.chdir(tmp_path)
+    monkeypatch.delenv("DOCHAR_TRACEBACK", raising=False)
+    code = cli.main(list(argv))
+    return code, capsys.readouterr().err
+
+
+@pytest.mark.parametrize("override, expected", [
+    ("data.noise.box_jitter=abc",
+     "config key data.noise.box_jitter='abc': Value 'abc' of type 'str' could not be converted "
+     "to Float"),
+    ("data.documents=abc", "config key data.documents='abc'"),
+    ("train.optimizer=sgd", "config key train.optimizer"),            # removed: nothing read it
+    ("+train.optimizer=sgd", "config key train.optimizer: unknown; TrainSchema has"),
+    ("+data.colour=red", "config key data.colour: unknown"),
+    ("model.hidden_dim=wide", "config key model.hidden_dim='wide'"),
+    ("graph.self_loops=maybe", "config key graph.self_loops='maybe'"),
+    ("model=no_such_model", "Could not find 'model/no_such_model'"),
+    ("model.kind=baseline", "config key model.kind='baseline': this model file is a 'gnn'"),
+    ("data.repair=cut", "config key data.repair='cut': expected null or 'clip'"),
+])
+def test_config_errors_are_one_line_with_exit_2(capsys, monkeypatch, tmp_path, override,
+                                                expected):
+    code, err = run(capsys, monkeypatch, tmp_path, "run", override, "tracking.enabled=false")
+    assert code == 2
+    lines = err.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("dochar run: error: "), err
+    assert expected in lines[0]
+    assert not (tmp_path / "outputs").exists() or not any((tmp_path / "outputs").rglob("run"))
+
+
+def test_missing_mandatory_value_names_the_key(capsys, monkeypatch, tmp_path):
+    code, err = run(capsys, monkeypatch, tmp_path, "graph-stats", "data=word_table",
+                    "data.labels=[a]")
+    assert code == 2 and "config key data.path: Missing mandatory value" in err
+
+
+def test_word_table_error_is_located(capsys, monkeypatch, tmp_path):
+    (tmp_path / "w.csv").write_text("doc_id,page\nd,1\n", encoding="utf-8")
+    code, err = run(capsys, monkeypatch, tmp_path, "graph-stats", "data=word_table",
+                    "data.path=w.csv", "data.labels=[a]")
+    assert code == 2
+    assert err.startswith("dochar graph-stats: error: w.csv: missing required column(s)")
+
+
+def test_unknown_experiment_and_bad_run_id(capsys, monkeypatch, tmp_path):
+    uri = f"sqlite:///{tmp_path}/m.db"
+    code, err = run(capsys, monkeypatch, tmp_path, "report", "--experiment", "nosuch",
+                    "--tracking-uri", uri)
+    assert code == 2 and "no experiment named 'nosuch'" in err and "Traceback" not in err
+    code, err = run(capsys, monkeypatch, tmp_path, "compare", "abc", "def", "--experiment",
+                    "Default", "--tracking-uri", uri)
+    assert code == 2 and err.startswith("dochar compare: error: ")
+    assert "run 'abc': give at least 6 characters of the run id" in err
+
+
+def test_import_error_is_one_line(capsys, monkeypatch, tmp_path):
+    code, err = run(capsys, monkeypatch, tmp_path, "import", "missing.pdf", "--out", "t.csv")
+    assert code == 2 and "no words imported" in err and "Traceback" not in err
+
+
+def test_traceback_variable_shows_the_traceback(capsys, monkeypatch, tmp_path):
+    monkeypatch.chdir(tmp_path)
+    monkeypatch.setenv("DOCHAR_TRACEBACK", "1")
+    with pytest.raises(DocharError, match="no experiment named"):
+        cli.main(["report", "--experiment", "nosuch", "--tracking-uri",
+                  f"sqlite:///{tmp_path}/m.db"])
+
+
+def test_a_bug_is_not_dressed_as_an_input_error():
+    """Only DocharError becomes a one-line message; any other exception propagates."""
+    def broken_job(cfg):
+        raise KeyError("a bug")
+
+    from hydra import compose, initialize_config_dir
+
+    from dochar.config import CONFIG_DIR
+
+    with initialize_config_dir(config_dir=str(CONFIG_DIR), version_base="1.3"):
+        cfg = compose("config", overrides=["tracking.enabled=false"])
+    with pytest.raises(KeyError, match="a bug"):
+        cli._reported(broken_job)(cfg)
+
+    def input_problem(cfg):
+        raise DocharError("w.csv, row 3: bad")
+
+    with pytest.raises(SystemExit) as stop:
+        cli._reported(input_problem)(cfg)
+    assert stop.value.code == 2
+
+
+def test_unreachable_tracking_server_fails_fast_naming_it(capsys, monkeypatch, tmp_path):
+    """Port 9 (discard) on the loopback: nothing listens, the connection is refused at once."""
+    monkeypatch.setenv("MLFLOW_HTTP_REQUEST_MAX_RETRIES", "0")
+    monkeypatch.setenv("MLFLOW_HTTP_REQUEST_TIMEOUT", "2")
+    monkeypatch.setenv("MLFLOW_TRACKING_URI", "http://127.0.0.1:9")
+    code, err = run(capsys, monkeypatch, tmp_path, "run", "data.documents=4")
+    assert code == 2
+    assert "tracking server http://127.0.0.1:9 cannot be reached" in err
+    assert "tracking.enabled=false" in err
+    assert not list(tmp_path.rglob("summary.json"))     # failed before the run, not after
