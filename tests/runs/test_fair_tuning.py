@@ -9,7 +9,7 @@ import pytest
 import yaml
 
 from dochar.report import write_report
-from dochar.report.sources import load_bundles_from_mlflow
+from dochar.runs.store import RunStore
 from tests.helpers.cli import TINY, dochar, job_runs, runs_frame
 from tests.helpers.report_runs import table_cells
 
@@ -57,7 +57,7 @@ def test_trials_are_chosen_by_validation_score_only(tuned):
 
 def test_the_report_says_which_budget_each_system_had(tuned, tmp_path):
     cwd, _ = tuned
-    bundles = load_bundles_from_mlflow(f"sqlite:///{cwd / 'mlflow.db'}", "tuning")
+    bundles = RunStore(f"sqlite:///{cwd / 'mlflow.db'}").bundles("tuning")
     assert len(bundles) == 2 * BUDGET
     html = write_report(bundles, tmp_path / "report.html", title="tuning").read_text()
     headers, rows = table_cells(html, "leaderboard-table")
