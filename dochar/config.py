@@ -204,6 +204,7 @@ class EvaluationSchema:
     bootstrap_resamples: int = 1000
     confidence: float = 0.95
     entity_ignore: List[str] = field(default_factory=lambda: ["other"])
+    calibration_bins: int = 15
 
 
 @dataclass

@@ -21,15 +21,14 @@ from dochar.gate.rules import CLASS_PREFIX, GateConfigError, Score
 from dochar.metrics.intervals import bootstrap_scores
 from dochar.metrics.scorers import WordF1
 from dochar.metrics.words import f1_from_confusion
+from dochar.runs import tracking
 from dochar.runs.bundle import RunBundle
 
 FORMAT = 1
 END_LINE = "# end of baseline"   # last line: a file cut short anywhere lacks it
-LIBRARIES = ("torch", "torch_geometric", "sklearn", "numpy")
+LIBRARIES = ("torch", "torch-geometric", "scikit-learn", "numpy")   # distribution names
 HEADER = ("# dochar gate baseline: written by `dochar gate --update`, read by `dochar gate`.\n"
           "# Review changes to this file like code: each one moves the bar a model must clear.\n")
-# Config keys that say how a run was watched, not what it computed.
-_VOLATILE = ("tracking.", "train.progress", "run_name", "hydra.")
 
 
 class ClassF1(WordF1):
@@ -68,31 +67,9 @@ def run_scores(bundle: RunBundle) -> dict[str, Score]:
     return scores
 
 
-def flat_config(config: Mapping[str, Any], prefix: str = "") -> dict[str, Any]:
-    """Dotted keys -> values of a resolved run config, without the keys that change nothing."""
-    flat: dict[str, Any] = {}
-    for key, value in config.items():
-        name = f"{prefix}{key}"
-        if name.startswith(_VOLATILE) or name in {v.rstrip(".") for v in _VOLATILE}:
-            continue
-        if isinstance(value, Mapping) and value:
-            flat.update(flat_config(value, f"{name}."))
-        else:
-            flat[name] = value
-    return flat
-
-
 def library_versions() -> dict[str, str]:
     """Versions of the libraries whose arithmetic the scores depend on."""
-    import importlib
-
-    versions = {}
-    for name in LIBRARIES:
-        try:
-            versions[name] = str(importlib.import_module(name).__version__)
-        except ImportError:
-            versions[name] = "absent"
-    return versions
+    return tracking.library_versions(LIBRARIES)
 
 
 def version_differences(old: Mapping[str, str], new: Mapping[str, str]) -> list[str]:
@@ -129,7 +106,7 @@ class Baseline:
                  git_commit: str, git_dirty: bool | None = None) -> Baseline:
         return cls(name=name, scores=run_scores(bundle),
                    data_fingerprint=str(bundle.tags.get("data_fingerprint", "")),
-                   experiment_config=flat_config(bundle.config), overrides=list(overrides),
+                   experiment_config=tracking.computed_config(bundle.config), overrides=list(overrides),
                    source=source, git_commit=git_commit, git_dirty=git_dirty,
                    libraries=library_versions(),
                    created=dt.datetime.now(dt.timezone.utc).replace(microsecond=0).isoformat())

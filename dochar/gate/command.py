@@ -42,7 +42,6 @@ from dochar.gate.baseline import (
     Baseline,
     config_differences,
     describe_update,
-    flat_config,
     library_versions,
     run_scores,
     version_differences,
@@ -58,6 +57,7 @@ from dochar.gate.outputs import (
 )
 from dochar.gate.rules import CLASS_PREFIX, GateConfigError, Tolerances, compare
 from dochar.runs.bundle import RunBundle
+from dochar.runs.tracking import computed_config
 
 GATE_KEYS = ("name", "baseline", "overrides", "tolerance", "data_check")
 DATA_CHECKS = ("error", "warn")
@@ -204,7 +204,7 @@ def notes_for(outcome: GateOutcome, baseline: Baseline, bundle: RunBundle) -> li
     if moved:
         notes.append("library versions differ from the baseline's (scores may move by more than "
                      "noise): " + "; ".join(moved))
-    differences = config_differences(baseline.experiment_config, flat_config(bundle.config))
+    differences = config_differences(baseline.experiment_config, computed_config(bundle.config))
     if differences:
         shown = differences[:_MAX_CONFIG_NOTES]
         more = len(differences) - len(shown)

@@ -14,6 +14,7 @@ from rich.markup import escape
 from rich.table import Table
 
 from dochar.gate.rules import Check
+from dochar.runs.numbers import number
 
 PASS, REGRESSION, COULD_NOT_RUN = 0, 1, 2
 OUTCOMES = {PASS: "PASS", REGRESSION: "FAIL", COULD_NOT_RUN: "COULD NOT RUN"}
@@ -39,17 +40,13 @@ class GateOutcome:
         return [c for c in self.checks if c.failed]
 
 
-def _num(value: float | None, digits: int = 4) -> str:
-    return "–" if value is None else f"{value:.{digits}f}"
-
-
 def _baseline_cell(check: Check) -> str:
     b = check.baseline
     if b is None:
         return "–"
     if b.low is None or b.high is None:
-        return _num(b.value)
-    return f"{_num(b.value)} [{_num(b.low)}, {_num(b.high)}]"
+        return number(b.value, 4)
+    return f"{number(b.value, 4)} [{number(b.low, 4)}, {number(b.high, 4)}]"
 
 
 def _change(check: Check) -> str:
@@ -57,8 +54,8 @@ def _change(check: Check) -> str:
 
 
 def rows(outcome: GateOutcome) -> list[tuple[str, ...]]:
-    return [(c.metric, _baseline_cell(c), _num(c.now.value if c.now else None), _change(c),
-             _num(c.tolerance, 3), _num(c.threshold), c.verdict) for c in outcome.checks]
+    return [(c.metric, _baseline_cell(c), number(c.now.value if c.now else None, 4), _change(c),
+             number(c.tolerance, 3), number(c.threshold, 4), c.verdict) for c in outcome.checks]
 
 
 COLUMNS = ("metric", "baseline [interval]", "now", "change", "tolerance", "fails below",
@@ -145,8 +142,8 @@ def junit_xml(outcome: GateOutcome) -> ET.ElementTree:
             failure.text = " | ".join(f"{c}: {v}" for c, v in zip(COLUMNS, row))
         else:
             ET.SubElement(case, "system-out").text = (
-                f"{check.verdict}: now {_num(check.now.value if check.now else None)}, "
-                f"baseline {_baseline_cell(check)}, fails below {_num(check.threshold)}")
+                f"{check.verdict}: now {number(check.now.value if check.now else None, 4)}, "
+                f"baseline {_baseline_cell(check)}, fails below {number(check.threshold, 4)}")
     if outcome.notes:
         ET.SubElement(suite, "system-out").text = "\n".join(outcome.notes)
     return ET.ElementTree(root)

@@ -90,8 +90,8 @@ def evaluate(predictions: pd.DataFrame, labels: Sequence[str], cfg: Mapping[str,
                                                               entities=has_entities),
                                 cfg, seed=seed))
     correct = (predictions["label"] == predictions["predicted"]).to_numpy()
-    metrics["ece"] = float(expected_calibration_error(predictions["confidence"].to_numpy(),
-                                                      correct))
+    metrics["ece"] = float(expected_calibration_error(
+        predictions["confidence"].to_numpy(), correct, n_bins=int(cfg["calibration_bins"])))
     if (predictions["layout_id"] != "").any():
         per_layout = per_group_scores(predictions, labels, "layout_id")
         tables["per_layout"] = per_layout

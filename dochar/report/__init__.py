@@ -19,9 +19,10 @@ from dochar.report.leaderboard import (default_paired, leaderboard, pair_with_re
 from dochar.report.overlay import OVERLAY_STYLE, class_style, overlays
 from dochar.report.page import (Html, contents, details, document, facts, image, note, number,
                                 paragraph, preformatted, section, table)
-from dochar.report.summaries import (ReportInputError, check_bundle, class_order,
-                                     confusion_rows, display_names, has_layouts, layout_scores,
-                                     learning_curve, metric, ranking, reliability, score_words)
+from dochar.report.summaries import (ReportInputError, calibration_bins, check_bundle,
+                                     class_order, confusion_rows, display_names, has_layouts,
+                                     layout_scores, learning_curve, metric, ranking, reliability,
+                                     score_words)
 from dochar.report.verdict import provenance, verdict
 from dochar.report.seen_unseen import seen_unseen_sections
 from dochar.runs.bundle import RunBundle
@@ -149,7 +150,9 @@ def _calibration(bundles, names, order) -> list[Html]:
     return [image(plots.calibration_plot(curves), "reliability curves"),
             table(["run", "expected calibration error", "words"], rows, numeric=[1, 2],
                   nowrap=[0], table_id="calibration-table"),
-            note("Confidence is the probability of the predicted class, in ten equal-width bins.")]
+            note("Confidence is the probability of the predicted class, in "
+                 + ", ".join(sorted({f"{calibration_bins(bundles[i])}" for i in order}))
+                 + " equal-width bins, as the runs logged their ECE.")]
 
 
 def _provenance(bundles, names, order) -> list[Html]:

@@ -12,6 +12,8 @@ import math
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
 
+from dochar.runs.numbers import interval, number  # noqa: F401 - the report writes numbers so
+
 
 @dataclass(frozen=True)
 class Html:
@@ -25,16 +27,6 @@ class Html:
 
 def esc(value: object) -> str:
     return html.escape(str(value), quote=True)
-
-
-def number(value: float | None, digits: int = 3) -> str:
-    """Fixed-decimal text; a missing or non-finite value shows as an en dash."""
-    if value is None:
-        return "–"
-    value = float(value)
-    if not math.isfinite(value):
-        return "–"
-    return f"{value:.{digits}f}"
 
 
 def amount(value: float | None) -> str:
@@ -53,12 +45,6 @@ def count(value: float | None) -> str:
     if value is None or not math.isfinite(float(value)):
         return "–"
     return f"{int(round(float(value))):,}"
-
-
-def interval(low: float | None, high: float | None) -> str:
-    if low is None or high is None:
-        return ""
-    return f"[{number(low)}, {number(high)}]"
 
 
 def _cell(value: object) -> str:

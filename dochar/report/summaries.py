@@ -155,9 +155,18 @@ class Reliability:
     expected_calibration_error: float   # Guo et al., ICML 2017, eq. 3, on the same bins
 
 
-def reliability(bundle: RunBundle, bins: int = 10) -> Reliability:
-    """Reliability curve of the top-class confidence (checked by check_bundle); empty bins
-    are left out."""
+CALIBRATION_BINS = 15   # runs that do not record evaluation.calibration_bins
+
+
+def calibration_bins(bundle: RunBundle) -> int:
+    """The bins the run's logged ECE used, so the report's curve and figure agree with it."""
+    return int((bundle.config.get("evaluation") or {}).get("calibration_bins", CALIBRATION_BINS))
+
+
+def reliability(bundle: RunBundle) -> Reliability:
+    """Reliability curve of the top-class confidence (checked by check_bundle) on the run's own
+    calibration bins; empty bins are left out."""
+    bins = calibration_bins(bundle)
     truth, predicted = truth_and_prediction(bundle)
     confidence = bundle.predictions["confidence"].to_numpy(dtype=float)
     curve = reliability_curve(confidence, truth == predicted, n_bins=bins)

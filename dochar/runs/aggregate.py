@@ -9,7 +9,6 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 
-import numpy as np
 import pandas as pd
 
 from dochar.errors import DocharError
@@ -54,12 +53,3 @@ def aggregate_runs(frame: pd.DataFrame, by: Sequence[str], metrics: Sequence[str
         if (counts != result["n"]).any():
             result[f"{metric}_n"] = counts
     return result.reset_index()
-
-
-def mean_std_text(mean: float, std: float, digits: int = 3) -> str:
-    """``0.612 ± 0.014``; a single run (NaN std) shows the mean alone."""
-    if not np.isfinite(mean):
-        return "n/a"
-    if not np.isfinite(std):
-        return f"{mean:.{digits}f}"
-    return f"{mean:.{digits}f} ± {std:.{digits}f}"

@@ -2,29 +2,22 @@
 
 from __future__ import annotations
 
-import math
 from collections.abc import Sequence
 
 import pandas as pd
 from rich.console import Console
 from rich.table import Table
 
-from dochar.runs.aggregate import mean_std_text
 from dochar.runs.bundle import RunBundle
+from dochar.runs.numbers import interval, mean_std, number
 
 console = Console(width=160)
 
 
-def _fmt(value: float | None, digits: int = 3) -> str:
-    if value is None or (isinstance(value, float) and math.isnan(value)):
-        return "–"
-    return f"{value:.{digits}f}"
-
-
 def _interval(metrics: dict[str, float], key: str) -> str:
-    low, high = metrics.get(f"{key}_low"), metrics.get(f"{key}_high")
-    text = _fmt(metrics.get(key))
-    return f"{text} [{_fmt(low)}, {_fmt(high)}]" if low is not None else text
+    text = number(metrics.get(key))
+    band = interval(metrics.get(f"{key}_low"), metrics.get(f"{key}_high"))
+    return f"{text} {band}" if band else text
 
 
 def ranking_table(bundles: Sequence[RunBundle], title: str = "runs ranked by macro-F1") -> Table:
@@ -39,11 +32,11 @@ def ranking_table(bundles: Sequence[RunBundle], title: str = "runs ranked by mac
     ranked = sorted(bundles, key=lambda b: -b.metrics.get(score, float("-inf")))
     for rank, bundle in enumerate(ranked, start=1):
         m = bundle.metrics
-        cells = [_interval(m, "macro_f1"), _fmt(m.get("micro_f1")), _interval(m, "entity_f1")]
+        cells = [_interval(m, "macro_f1"), number(m.get("micro_f1")), _interval(m, "entity_f1")]
         if links:
-            cells[:0] = [_interval(m, "link_f1"), _fmt(m.get("link_precision")),
-                         _fmt(m.get("link_recall"))]
-        table.add_row(str(rank), bundle.name, *cells, _fmt(bundle.cost.get("train_seconds"), 1),
+            cells[:0] = [_interval(m, "link_f1"), number(m.get("link_precision")),
+                         number(m.get("link_recall"))]
+        table.add_row(str(rank), bundle.name, *cells, number(bundle.cost.get("train_seconds"), 1),
                       f"{int(bundle.cost.get('parameters', 0)):,}", (bundle.run_id or "")[:12])
     return table
 
@@ -57,8 +50,8 @@ def per_class_table(bundles: Sequence[RunBundle]) -> Table:
         table.add_column(bundle.name, justify="right")
     labels = list(dict.fromkeys(label for b in ranked for label in b.labels))
     for label in labels:
-        table.add_row(label, *(_fmt(b.metrics.get(f"f1/{label}")) for b in ranked))
-    table.add_row("macro-F1", *(_fmt(b.metrics.get("macro_f1")) for b in ranked), style="bold")
+        table.add_row(label, *(number(b.metrics.get(f"f1/{label}")) for b in ranked))
+    table.add_row("macro-F1", *(number(b.metrics.get("macro_f1")) for b in ranked), style="bold")
     return table
 
 
@@ -79,10 +72,10 @@ def seen_unseen_table(bundles: Sequence[RunBundle]) -> Table:
         m = bundle.metrics
         seen, unseen = m.get("seen/macro_f1"), m.get("unseen/macro_f1")
         gap = seen - unseen if seen is not None and unseen is not None else None
-        table.add_row(bundle.name, _fmt(m.get("seen/test_documents"), 0),
+        table.add_row(bundle.name, number(m.get("seen/test_documents"), 0),
                       _interval(m, "seen/macro_f1"), _interval(m, "seen/entity_f1"),
-                      _fmt(m.get("unseen/test_documents"), 0), _interval(m, "unseen/macro_f1"),
-                      _interval(m, "unseen/entity_f1"), _fmt(gap))
+                      number(m.get("unseen/test_documents"), 0), _interval(m, "unseen/macro_f1"),
+                      _interval(m, "unseen/entity_f1"), number(gap))
     return table
 
 
@@ -107,7 +100,7 @@ def aggregate_table(repeats: pd.DataFrame) -> Table:
 
         def cell(metric: str, digits: int = 3) -> str:
             mean = values.get(f"{metric}_mean")
-            return "–" if mean is None else mean_std_text(mean, values[f"{metric}_std"], digits)
+            return "–" if mean is None else mean_std(mean, values[f"{metric}_std"], digits)
         cells = [cell("macro_f1"), cell("micro_f1"), cell("entity_f1")]
         if links:
             cells.insert(0, cell("link_f1"))
@@ -121,5 +114,5 @@ def runs_table(frame: pd.DataFrame) -> None:
     for column in frame.columns:
         table.add_column(column, justify="right" if column.endswith("_f1") else "left")
     for row in frame.itertuples(index=False):
-        table.add_row(*[_fmt(v) if isinstance(v, float) or v is None else str(v) for v in row])
+        table.add_row(*[number(v) if isinstance(v, float) or v is None else str(v) for v in row])
     console.print(table)

@@ -18,7 +18,7 @@ import json
 import os
 import re
 import subprocess
-from collections.abc import Callable, Iterator, Mapping
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -130,16 +130,16 @@ def ui_hint(uri: str, experiment: str) -> str:
             f"{LOCAL_UI.rsplit(':', 1)[1]}`, then open {address}")
 
 
-def library_versions() -> dict[str, str]:
-    """Versions of the libraries behind a run's numbers, as tags ``version/<distribution>``."""
+def library_versions(libraries: Sequence[str] = LIBRARIES) -> dict[str, str]:
+    """Installed versions of the libraries behind a run's numbers (distribution names)."""
     from importlib.metadata import PackageNotFoundError, version
 
     found = {}
-    for name in LIBRARIES:
+    for name in libraries:
         try:
-            found[f"version/{name}"] = version(name)
+            found[name] = version(name)
         except PackageNotFoundError:
-            continue
+            found[name] = "absent"
     return found
 
 
@@ -156,22 +156,28 @@ def log_dataset(bundle: RunBundle) -> None:
                                                for part in ("train", "val", "test")))
 
 
-def flatten(config: Mapping[str, Any], prefix: str = "") -> dict[str, str]:
-    flat: dict[str, str] = {}
+def flatten(config: Mapping[str, Any], prefix: str = "") -> dict[str, Any]:
+    """Dotted keys -> values of a nested config (an empty mapping stays one value)."""
+    flat: dict[str, Any] = {}
     for key, value in config.items():
         name = f"{prefix}{key}"
         if isinstance(value, Mapping) and value:
             flat.update(flatten(value, f"{name}."))
         else:
-            flat[name] = str(value)[:6000]
+            flat[name] = value
     return flat
 
 
-def config_hash(config: Mapping[str, Any]) -> str:
-    """Hash of the resolved config without the keys in UNHASHED: equal hashes, same computation."""
-    kept = {key: value for key, value in flatten(config).items()
+def computed_config(config: Mapping[str, Any]) -> dict[str, Any]:
+    """The flattened config without the keys in UNHASHED: what decides a run's numbers."""
+    return {key: value for key, value in flatten(config).items()
             if not any(key == k or key.startswith(f"{k}.") for k in UNHASHED)}
-    return hashlib.sha256(json.dumps(kept, sort_keys=True).encode()).hexdigest()[:20]
+
+
+def config_hash(config: Mapping[str, Any]) -> str:
+    """Hash of the computed config: equal hashes, same computation."""
+    return hashlib.sha256(json.dumps(computed_config(config), sort_keys=True,
+                                     default=str).encode()).hexdigest()[:20]
 
 
 def git_commit() -> str:
@@ -221,7 +227,7 @@ def _tracking_uri(uri: str) -> Iterator[None]:
 def _log(bundle: RunBundle, folder: Path, uri: str, experiment_id: str,
          extra_tags: Mapping[str, str] | None) -> str:
     bundle.tags.update({**masked(dict(extra_tags or {})), "git_commit": git_commit(),
-                        **library_versions()})
+                        **{f"version/{name}": v for name, v in library_versions().items()}})
     if os.environ.get(SWEEP_ID_ENV):
         bundle.tags["sweep_id"] = os.environ[SWEEP_ID_ENV]
     tags = dict(bundle.tags)
@@ -229,7 +235,7 @@ def _log(bundle: RunBundle, folder: Path, uri: str, experiment_id: str,
         tags["mlflow.parentRunId"] = os.environ[SWEEP_PARENT_ENV]
     with store_writes(uri), mlflow.start_run(experiment_id=experiment_id, run_name=bundle.name,
                                              tags=tags) as run:
-        mlflow.log_params(flatten(bundle.config))
+        mlflow.log_params({key: str(value)[:6000] for key, value in flatten(bundle.config).items()})
         mlflow.log_metrics({k: v for k, v in {**bundle.metrics, **{f"cost/{k}": v for k, v in
                                                                   bundle.cost.items()}}.items()})
         bundle.run_id = run.info.run_id

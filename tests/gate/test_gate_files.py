@@ -21,7 +21,7 @@ def test_round_trip_keeps_versions_and_commit_state(tmp_path):
     back = Baseline.read(path)
     assert back.scores == baseline().scores
     assert back.git_dirty is False and back.libraries == library_versions()
-    assert set(back.libraries) == {"torch", "torch_geometric", "sklearn", "numpy"}
+    assert set(back.libraries) == {"torch", "torch-geometric", "scikit-learn", "numpy"}
     assert [p.name for p in tmp_path.iterdir()] == ["b.yaml"]     # no scratch file left
 
 
@@ -51,7 +51,7 @@ def test_a_write_that_dies_midway_leaves_the_old_file(tmp_path):
 
 
 def test_version_changes_are_named():
-    old = {"torch": "2.13.0", "numpy": "2.4.6", "sklearn": "1.9.1", "torch_geometric": "2.8.1"}
+    old = {"torch": "2.13.0", "numpy": "2.4.6", "scikit-learn": "1.9.1", "torch-geometric": "2.8.1"}
     new = {**old, "torch": "2.14.0"}
     assert version_differences(old, new) == ["torch 2.13.0 -> 2.14.0"]
     assert version_differences({}, new) == []

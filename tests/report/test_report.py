@@ -271,9 +271,11 @@ def test_reliability_matches_scikit_learn_calibration_curve(runs):
     for run in runs:
         curve = reliability(run)
         correct = (run.predictions["label"] == run.predictions["predicted"]).astype(int)
-        # sklearn.calibration.calibration_curve, strategy="uniform", 10 bins.
+        # sklearn.calibration.calibration_curve, strategy="uniform", on the bins the run logged
+        # its ECE with (evaluation.calibration_bins, 15 when the run does not say)
+        bins = int(run.config.get("evaluation", {}).get("calibration_bins", 15))
         accuracy, confidence = calibration_curve(correct, run.predictions["confidence"],
-                                                 n_bins=10, strategy="uniform")
+                                                 n_bins=bins, strategy="uniform")
         np.testing.assert_allclose(curve.accuracy, accuracy)
         np.testing.assert_allclose(curve.confidence, confidence)
         assert curve.counts.sum() == len(run.predictions)

@@ -14,7 +14,8 @@ from sklearn.metrics import adjusted_rand_score
 
 import data_synth
 from dochar.data.importers.form_json import import_form_json
-from dochar.runs.aggregate import AggregateError, aggregate_runs, mean_std_text
+from dochar.runs.aggregate import AggregateError, aggregate_runs
+from dochar.runs.numbers import mean_std
 from dochar.splits.layout_families import LayoutFamilyError, assign_inferred_layouts
 from dochar.splits.protocols import documents_of, make_splits
 from tests.helpers import CONFIGS, split_documents
@@ -190,8 +191,8 @@ def test_aggregate_runs_by_hand():
     assert table.loc["gnn", "entity_f1_n"] == 2 and table.loc["gnn", "n"] == 3
     assert table.loc["forest", "entity_f1_std"] == 0.0
     assert "macro_f1_n" not in table.columns
-    assert mean_std_text(0.6, 0.1) == "0.600 ± 0.100"
-    assert mean_std_text(0.6, np.nan) == "0.600"
+    assert mean_std(0.6, 0.1) == "0.600 ± 0.100"
+    assert mean_std(0.6, np.nan) == "0.600"
     with pytest.raises(AggregateError, match=r"no column\(s\) \['seed'\]"):
         aggregate_runs(runs, ["seed"], ["macro_f1"])
 
