@@ -172,7 +172,7 @@ class SplitSchema:
     train_documents: Optional[int] = None
     infer_layouts: bool = False
     signature: SignatureSchema = field(default_factory=SignatureSchema)
-    family_threshold: float = 0.3
+    family_threshold: Optional[float] = 0.3
     leakage_threshold: Optional[float] = 0.25
     pages_per_layout: Optional[int] = None
     seen_test_fraction: Optional[float] = None

@@ -35,7 +35,8 @@ def check_names(cfg: DictConfig) -> None:
     from dochar.models.baselines import BASELINES, TEMPLATE_BASELINES
     from dochar.models.layers import LAYERS
 
-    tasks.from_config(cfg.get("task"))
+    if cfg.task.name != "links":   # links options are read by dochar.link_experiment
+        tasks.from_config(cfg.get("task"))
     if cfg.model.kind not in {"gnn", "baseline", "template"}:
         raise graphs.GraphBuilderError(f"model.kind must be 'gnn', 'baseline' or 'template', "
                                        f"got {cfg.model.kind!r}")

@@ -17,7 +17,7 @@ import numpy as np
 import yaml
 
 from dochar import __version__
-from dochar.gate.rules import CLASS_PREFIX, GateConfigError, Score
+from dochar.gate.rules import CLASS_PREFIX, DEFAULT_HEADLINE, GateConfigError, Score
 from dochar.metrics.intervals import bootstrap_scores
 from dochar.metrics.scorers import WordF1
 from dochar.metrics.words import f1_from_confusion
@@ -48,12 +48,13 @@ def class_intervals(bundle: RunBundle, *, resamples: int, confidence: float,
     return {label: (float(lo), float(hi)) for label, lo, hi in zip(bundle.labels, low, high)}
 
 
-def run_scores(bundle: RunBundle) -> dict[str, Score]:
-    """The gated scores of a run: headline values with their intervals, and every class with
-    test support, with a per-class interval drawn the way the run drew its headline ones."""
+def run_scores(bundle: RunBundle,
+               headline: Sequence[str] = DEFAULT_HEADLINE) -> dict[str, Score]:
+    """The gated scores of a run: the ``headline`` values with their intervals, and every class
+    with test support, with a per-class interval drawn the way the run drew its headline ones."""
     metrics = bundle.metrics
     scores = {name: Score(metrics[name], metrics.get(f"{name}_low"), metrics.get(f"{name}_high"))
-              for name in ("macro_f1", "entity_f1") if name in metrics}
+              for name in headline if name in metrics}
     evaluation = bundle.config.get("evaluation", {})
     intervals = class_intervals(bundle, resamples=int(evaluation.get("bootstrap_resamples", 1000)),
                                 confidence=float(evaluation.get("confidence", 0.95)),
@@ -103,10 +104,12 @@ class Baseline:
 
     @classmethod
     def from_run(cls, name: str, bundle: RunBundle, *, overrides: Sequence[str], source: str,
-                 git_commit: str, git_dirty: bool | None = None) -> Baseline:
-        return cls(name=name, scores=run_scores(bundle),
+                 git_commit: str, git_dirty: bool | None = None,
+                 headline: Sequence[str] = DEFAULT_HEADLINE) -> Baseline:
+        return cls(name=name, scores=run_scores(bundle, headline),
                    data_fingerprint=str(bundle.tags.get("data_fingerprint", "")),
-                   experiment_config=tracking.computed_config(bundle.config), overrides=list(overrides),
+                   experiment_config=tracking.computed_config(bundle.config),
+                   overrides=list(overrides),
                    source=source, git_commit=git_commit, git_dirty=git_dirty,
                    libraries=library_versions(),
                    created=dt.datetime.now(dt.timezone.utc).replace(microsecond=0).isoformat())

@@ -225,7 +225,9 @@ def gate(settings: GateSettings, bundle: RunBundle, baseline: Baseline) -> GateO
         if settings.data_check == "error":
             raise GateError(message)
         outcome.notes.append("warning: " + message)
-    outcome.checks = compare(baseline.scores, run_scores(bundle), settings.tolerances)
+    outcome.checks = compare(baseline.scores,
+                             run_scores(bundle, list(settings.tolerances.headline)),
+                             settings.tolerances)
     outcome.code = REGRESSION if outcome.failures else PASS
     outcome.notes += notes_for(outcome, baseline, bundle)
     outcome.properties = {"data_fingerprint": fingerprint, "run": bundle.name,
@@ -283,7 +285,8 @@ def _update(settings: GateSettings, bundle: RunBundle, source: str,
     if settings.baseline.is_file():
         old = Baseline.read(settings.baseline)
     new = Baseline.from_run(settings.name, bundle, overrides=overrides, source=source,
-                            git_commit=git_commit(), git_dirty=dirty)
+                            git_commit=git_commit(), git_dirty=dirty,
+                            headline=list(settings.tolerances.headline))
     lines = describe_update(old, new)
     new.write(settings.baseline)
     print(f"dochar gate {settings.name}: baseline {settings.baseline} "

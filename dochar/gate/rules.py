@@ -1,7 +1,9 @@
 """When a score counts as fallen: tolerances per metric kind and the comparison itself.
 
-Gated metrics are word macro-F1 (``macro_f1``), entity-level F1 (``entity_f1``) and every
-class's word F1 (``f1/<class>``). Two modes:
+Gated metrics are the headline scores named in the gate's tolerances (any score a run carries
+with an interval: ``macro_f1``, ``entity_f1``, ``link_f1`` ..., see
+:func:`dochar.metrics.evaluate.headline_names`) and every class's word F1 (``f1/<class>``). A new
+headline score is gated by its scorer plus one tolerance line. Two modes:
 
 * ``absolute``: a metric fails when ``now < baseline - tolerance``.
 * ``interval``: a metric fails when ``now < baseline_low - tolerance``, where ``baseline_low``
@@ -17,13 +19,13 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any
 
 from dochar.errors import DocharError
 
 MODES = ("interval", "absolute")
-HEADLINE = ("macro_f1", "entity_f1")
+DEFAULT_HEADLINE = ("macro_f1", "entity_f1")   # gated when the tolerances name none
 CLASS_PREFIX = "f1/"
 # Scores equal up to float round-off are equal (a rerun must not fail on the last bit).
 _SLACK = 1e-12
@@ -64,15 +66,6 @@ class Score:
         return cls(**values)
 
 
-def metric_kind(metric: str) -> str:
-    if metric in HEADLINE:
-        return metric
-    if metric.startswith(CLASS_PREFIX):
-        return "class_f1"
-    raise GateConfigError(f"metric {metric!r} is not gated (gated: {list(HEADLINE)} and "
-                          f"'{CLASS_PREFIX}<class>')")
-
-
 def _tolerance(value: Any, where: str) -> float:
     try:
         number = float(value)
@@ -83,21 +76,25 @@ def _tolerance(value: Any, where: str) -> float:
     return number
 
 
-@dataclass(frozen=True)
 class Tolerances:
-    """Allowed drop per metric kind; ``classes`` overrides ``class_f1`` for named classes."""
+    """Allowed drop per gated metric: one per headline score, by the scorer's name
+    (``macro_f1=0.02``), ``class_f1`` for every class and ``classes`` for named ones."""
 
-    mode: str = "interval"
-    macro_f1: float = 0.0
-    entity_f1: float = 0.0
-    class_f1: float = 0.0
-    classes: Mapping[str, float] = field(default_factory=dict)
+    def __init__(self, mode: str = "interval", class_f1: float = 0.0,
+                 classes: Mapping[str, float] | None = None, **headline: float) -> None:
+        self.mode = mode
+        self.class_f1 = float(class_f1)
+        self.classes = dict(classes or {})
+        self.headline = {name: float(value) for name, value in headline.items()} or \
+            dict.fromkeys(DEFAULT_HEADLINE, 0.0)
 
     @classmethod
     def from_config(cls, data: Mapping[str, Any], where: str = "tolerance") -> Tolerances:
+        from dochar.metrics.evaluate import headline_names
+
         if not isinstance(data, Mapping):
             raise GateConfigError(f"{where}: expected a mapping, got {data!r}")
-        known = {"mode", "macro_f1", "entity_f1", "class_f1", "classes"}
+        known = {"mode", "class_f1", "classes", *headline_names()}
         unknown = sorted(set(data) - known)
         if unknown:
             raise GateConfigError(f"{where}: unknown key(s) {unknown}; known keys: {sorted(known)}")
@@ -108,21 +105,32 @@ class Tolerances:
         if not isinstance(classes, Mapping):
             raise GateConfigError(f"{where}.classes: expected a mapping class -> tolerance, "
                                   f"got {classes!r}")
-        return cls(mode=mode,
-                   **{k: _tolerance(data.get(k, 0.0), f"{where}.{k}")
-                      for k in ("macro_f1", "entity_f1", "class_f1")},
+        headline = {k: _tolerance(v, f"{where}.{k}") for k, v in data.items()
+                    if k not in {"mode", "class_f1", "classes"}}
+        return cls(mode=mode, class_f1=_tolerance(data.get("class_f1", 0.0), f"{where}.class_f1"),
                    classes={str(k): _tolerance(v, f"{where}.classes.{k}")
-                            for k, v in classes.items()})
+                            for k, v in classes.items()}, **headline)
 
     def for_metric(self, metric: str) -> float:
-        kind = metric_kind(metric)
-        if kind == "class_f1":
+        if metric in self.headline:
+            return self.headline[metric]
+        if metric.startswith(CLASS_PREFIX):
             return self.classes.get(metric[len(CLASS_PREFIX):], self.class_f1)
-        return getattr(self, kind)
+        raise GateConfigError(f"metric {metric!r} is not gated (gated: {list(self.headline)} "
+                              f"and '{CLASS_PREFIX}<class>')")
+
+    def order(self, metric: str) -> tuple[int, str]:
+        """Headline scores first, in the order the scorers are listed, then classes by name."""
+        from dochar.metrics.evaluate import headline_names
+
+        canonical = headline_names()
+        if metric in self.headline:
+            return (canonical.index(metric) if metric in canonical else len(canonical), metric)
+        return (len(canonical) + 1, metric)
 
     def to_dict(self) -> dict[str, Any]:
-        return {"mode": self.mode, "macro_f1": self.macro_f1, "entity_f1": self.entity_f1,
-                "class_f1": self.class_f1, "classes": dict(self.classes)}
+        return {"mode": self.mode, **self.headline, "class_f1": self.class_f1,
+                "classes": dict(self.classes)}
 
 
 @dataclass(frozen=True)
@@ -167,14 +175,10 @@ def check_metric(metric: str, baseline: Score, now: Score | None, rules: Toleran
     return Check(metric, baseline, now, tolerance, threshold, verdict, note)
 
 
-def _order(metric: str) -> tuple[int, str]:
-    return (HEADLINE.index(metric), "") if metric in HEADLINE else (len(HEADLINE), metric)
-
-
 def compare(baseline: Mapping[str, Score], now: Mapping[str, Score],
             rules: Tolerances) -> list[Check]:
     """One check per baseline metric (headline first, then classes), then metrics new in ``now``."""
-    checks = [check_metric(m, baseline[m], now.get(m), rules) for m in sorted(baseline, key=_order)]
+    checks = [check_metric(m, baseline[m], now.get(m), rules) for m in sorted(baseline, key=rules.order)]
     checks += [Check(m, None, now[m], rules.for_metric(m), None, "new", "not in the baseline")
-               for m in sorted(set(now) - set(baseline), key=_order)]
+               for m in sorted(set(now) - set(baseline), key=rules.order)]
     return checks

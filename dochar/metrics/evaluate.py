@@ -24,7 +24,7 @@ from dochar.metrics.scorers import EntityF1, WordF1
 from dochar.metrics.seen_unseen import side_metrics
 from dochar.metrics.tags import TagEntityF1, tag_entity_scores
 from dochar.metrics.words import per_group_scores, score_words
-from dochar.tasks import Task, WordLabels
+from dochar.tasks import EntityTags, Task, WordLabels
 
 
 def headline_scorers(labels: Sequence[str], ignore: Sequence[str] = ("other",), *,
@@ -38,6 +38,17 @@ def headline_scorers(labels: Sequence[str], ignore: Sequence[str] = ("other",), 
     elif task.name == "word_labels" and entities:
         scorers["entity_f1"] = EntityF1(labels, ignore=ignore)
     return scorers
+
+
+def headline_names() -> tuple[str, ...]:
+    """Every score a run can carry with an interval, whatever its task: what the gate may watch."""
+    from dochar.metrics.links import link_scorers
+
+    names: dict[str, None] = {}
+    for task in (WordLabels(), EntityTags()):
+        names.update(dict.fromkeys(headline_scorers(["_"], task=task)))
+    names.update(dict.fromkeys(link_scorers("same_entity")))
+    return tuple(names)
 
 
 @dataclass

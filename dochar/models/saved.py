@@ -51,6 +51,8 @@ MANIFEST = "manifest.json"
 WEIGHTS = "weights.pt"
 ESTIMATOR = "estimator.skops"
 DEFAULT_TASK = "word_labels"
+SAVED_TASKS = ("word_labels", "entity_tags")   # tasks whose nodes are the words predict reads
+SAVED_KINDS = ("gnn", "baseline")
 # Types beyond skops' defaults that the baselines hold: the fitted trees of a random forest and
 # of histogram gradient boosting (found with skops.io.get_untrusted_types on each baseline).
 TRUSTED_ESTIMATOR_TYPES: tuple[str, ...] = (
@@ -136,14 +138,16 @@ def _sha256(path: Path) -> str:
 
 
 def save_model(destination: str | Path, model: Any, config: Mapping[str, Any],
-               featurizer: WordFeaturizer | None = None, *, name: str = "") -> Path:
+               featurizer: WordFeaturizer | None = None, *, name: str = "",
+               labels: Sequence[str] | None = None) -> Path:
     """Write the unit for a fitted model and the resolved run config it was trained with.
 
     ``featurizer`` is the fitted one when the caller has it; otherwise it is rebuilt from the
     config, which is exact because a featurizer made from a config learns nothing at fit time.
+    ``labels`` are the classes the model predicts (a task's tags; default: the data's labels).
     """
     destination = Path(destination)
-    labels = [str(label) for label in config["data"]["labels"]]
+    labels = [str(label) for label in (labels or config["data"]["labels"])]
     if featurizer is None:
         featurizer = WordFeaturizer.from_config(config["features"], config["data"]).fit([])
     builder = graphs.from_config(config["graph"])

@@ -112,7 +112,11 @@ def confusion_rows(bundle: RunBundle) -> tuple[list[str], np.ndarray]:
     truth, predicted = truth_and_prediction(bundle)
     labels = list(bundle.labels)
     labels += sorted(set(truth) - set(labels)) + sorted(set(predicted) - set(truth) - set(labels))
-    counts = confusion_matrix(truth, predicted, labels=labels).astype(float)
+    logged = bundle.tables.get("confusion")
+    if logged is not None and list(logged.index) == labels == list(logged.columns):
+        counts = logged.to_numpy(dtype=float)   # the run's own table, as scored
+    else:   # a bundle without one, or with labels its table does not list
+        counts = confusion_matrix(truth, predicted, labels=labels).astype(float)
     totals = counts.sum(axis=1, keepdims=True)
     with np.errstate(invalid="ignore", divide="ignore"):
         return labels, np.where(totals > 0, counts / totals, np.nan)
