@@ -149,7 +149,7 @@ def _graph_stats_job(cfg) -> None:
     data = load_data(cfg.data, strict=bool(cfg.strict))
     builder = graphs.from_config(cfg.graph)
     pages = list(iter_pages(data.table))
-    stats = graph_stats(pages, builder)
+    stats = graph_stats(pages, builder, list(cfg.data.table_labels))
     print(f"graph builder {cfg.graph.name} on {cfg.data.name}:")
     print(format_stats(stats))
     candidates = cfg.task.get("candidates") or {}

@@ -42,6 +42,7 @@ class DataSchema:
     name: str = MISSING
     labels: List[str] = MISSING
     lexicons: Dict[str, List[str]] = field(default_factory=dict)
+    table_labels: List[str] = field(default_factory=list)   # classes of table cells (graph-stats)
     repair: Optional[str] = None          # null | clip (boxes a little past the page edge)
     clip_tolerance: float = 0.01          # clip: fraction of the page width/height allowed
 

@@ -114,7 +114,8 @@ def run_experiment(cfg: DictConfig) -> tuple[RunBundle, Any]:
     scores = evaluate(predictions, labels, cfg.evaluation, seed=int(cfg.seed), task=task,
                       words=words, word_labels=word_labels)
     metrics = scores.metrics
-    stats = graph_stats(sets["test"].pages, builder, edges=sets["test"].edges).to_dict()
+    stats = graph_stats(sets["test"].pages, builder, list(cfg.data.table_labels),
+                        edges=sets["test"].edges).to_dict()
     metrics.update({f"graph/{k}": float(v) for k, v in stats.items()
                     if isinstance(v, (int, float)) and np.isfinite(v)})
     metrics.update({f"data/{k}": float(v) for k, v in data.notes.items()})

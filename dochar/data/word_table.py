@@ -290,6 +290,15 @@ def _clip_boxes(frame: pd.DataFrame, numbers: dict[str, np.ndarray], bad_rows: n
         repairs["boxes clipped to the page"] += int(chosen.sum())
 
 
+def unusable_boxes(boxes: np.ndarray) -> np.ndarray:
+    """Rows no stage can use: a non-finite coordinate, or x1 < x0 / y1 < y0. The validator
+    reports each such row by column; later stages refuse pages built around it."""
+    boxes = np.asarray(boxes, dtype=np.float64)
+    with np.errstate(invalid="ignore"):
+        return (~np.isfinite(boxes).all(axis=1) | (boxes[:, 2] < boxes[:, 0])
+                | (boxes[:, 3] < boxes[:, 1]))
+
+
 @dataclass
 class Page:
     """One page of one document, as arrays in reading-independent word_id order."""

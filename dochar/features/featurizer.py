@@ -18,7 +18,7 @@ from collections.abc import Mapping, Sequence
 
 import numpy as np
 
-from dochar.data.word_table import Page
+from dochar.data.word_table import Page, unusable_boxes
 from dochar.features.chars import char_ids
 from dochar.features.context import (
     LINE_CONTEXT_NAMES,
@@ -53,9 +53,7 @@ def check_page(page: Page) -> None:
     if boxes.shape != (n, 4):
         raise ValueError(f"{where}: boxes have shape {boxes.shape}, expected ({n}, 4) "
                          f"for {n} texts")
-    with np.errstate(invalid="ignore"):
-        bad = (~np.isfinite(boxes).all(axis=1) | (boxes[:, 2] < boxes[:, 0])
-               | (boxes[:, 3] < boxes[:, 1]))
+    bad = unusable_boxes(boxes)
     if bad.any():
         index = int(np.flatnonzero(bad)[0])
         word = page.word_ids[index] if len(page.word_ids) == n else index

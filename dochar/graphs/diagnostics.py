@@ -28,8 +28,6 @@ from dochar.graphs.base import GraphBuilder, TypedEdges
 from dochar.graphs.candidates import CandidateOptions, candidate_pairs, missed_links
 from dochar.tasks.links import link_pages
 
-TABLE_LABELS: tuple[str, ...] = ("analyte", "method", "result", "unit", "limit", "verdict",
-                                 "column_header")
 SAME_BAND = 0.5   # overlap, as a share of the smaller extent, for two cells to share a row/column
 
 
@@ -102,7 +100,7 @@ def _reach(adjacency, pairs: tuple[np.ndarray, np.ndarray]) -> tuple[int, int]:
 
 
 def graph_stats(pages: Iterable[Page], builder: GraphBuilder,
-                table_labels: Sequence[str] = TABLE_LABELS, *,
+                table_labels: Sequence[str] = (), *,
                 edges: Sequence[TypedEdges] | None = None) -> GraphStats:
     """Diagnostics of ``builder`` on ``pages``; pass ``edges`` (one per page, in order) when
     the graphs are already built, so they are not built twice."""

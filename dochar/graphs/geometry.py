@@ -12,7 +12,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from dochar.data.word_table import Page
+from dochar.data.word_table import Page, unusable_boxes
 from dochar.graphs.base import GraphBuilderError
 
 PAIR_BUDGET = 2_000_000  # target x source cells held at once when ranking neighbours
@@ -64,8 +64,7 @@ def page_geometry(page: Page, builder: str) -> PageGeometry:
     word_ids = np.asarray(page.word_ids)
     if word_ids.shape != (n,):
         raise GraphBuilderError(f"{where}: {word_ids.shape} word ids for {n} words")
-    bad = ~np.isfinite(boxes).all(axis=1)
-    bad |= (boxes[:, 2] < boxes[:, 0]) | (boxes[:, 3] < boxes[:, 1])
+    bad = unusable_boxes(boxes)
     if bad.any():
         first = int(np.flatnonzero(bad)[0])
         raise GraphBuilderError(f"{where}: word_id {word_ids[first]} has box {boxes[first]} "

@@ -16,6 +16,8 @@ from dochar.graphs import BUILDERS, make_graph_builder
 from dochar.graphs.diagnostics import format_stats, graph_stats
 
 
+TABLE_CELLS = ("analyte", "result", "unit")   # the classes these pages treat as table cells
+
 def page_of(boxes, labels=None, doc="doc") -> Page:
     boxes = np.asarray(boxes, dtype=np.float64).reshape(-1, 4)
     n = len(boxes)
@@ -97,7 +99,8 @@ def test_table_row_and_column_reachability_on_a_2x2_table():
     # Same-column pairs (r0c0, r1c0) via r0c1 and (r0c1, r1c1) via r1c0: 0/2 in 1 hop, 2/2 in 2.
     boxes = [(10, 5, 40, 15), (10, 30, 40, 40), (60, 30, 90, 40), (10, 50, 40, 60), (60, 50, 90, 60)]
     labels = ["key", "analyte", "result", "analyte", "result"]
-    stats = graph_stats([page_of(boxes, labels)], make_graph_builder("reading_order")).to_dict()
+    stats = graph_stats([page_of(boxes, labels)], make_graph_builder("reading_order"),
+                        TABLE_CELLS).to_dict()
     assert stats["same_row_pairs"] == 2 and stats["same_column_pairs"] == 2
     assert (stats["same_row_1hop"], stats["same_row_2hop"]) == (1.0, 1.0)
     assert (stats["same_column_1hop"], stats["same_column_2hop"]) == (0.0, 1.0)
@@ -107,7 +110,8 @@ def test_same_row_needs_half_the_smaller_height():
     # heights 10 and 20; overlaps 5 (= half of 10: same row) and 4 (not)
     for shift, pairs in ((5, 1), (6, 0)):
         page = page_of([(0, 0, 10, 10), (50, shift, 60, shift + 20)], ["result", "unit"])
-        assert graph_stats([page], make_graph_builder("knn")).to_dict()["same_row_pairs"] == pairs
+        assert graph_stats([page], make_graph_builder("knn"),
+                           TABLE_CELLS).to_dict()["same_row_pairs"] == pairs
 
 
 def test_format_stats_prints_every_scalar_and_the_notes():
