@@ -26,10 +26,7 @@ demo: $(STAMP)
 	$(BIN)/dochar run -m model=relational,random_forest,layout_template split=seen_and_unseen_layouts \
 		tracking.experiment=$(DEMO_EXPERIMENT)
 	$(BIN)/dochar report --experiment $(DEMO_EXPERIMENT) --sweep latest
-	@echo
-	@echo "Browse every run in the MLflow UI (embedded SQLite store, no server to set up):"
-	@echo "  $(BIN)/mlflow ui --backend-store-uri sqlite:///$(CURDIR)/mlflow.db --port 5000"
-	@echo "then open http://127.0.0.1:5000 and pick the experiment '$(DEMO_EXPERIMENT)'."
+	@echo "The sweep's last line above is the address of its runs in MLflow's UI."
 
 # Slow tests whose results the README cites run in `make test` (and so in CI) too.
 CITED := "tests/test_determinism.py::test_fresh_processes_with_other_hash_seeds_agree_bit_for_bit" \
