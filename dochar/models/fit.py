@@ -71,7 +71,7 @@ def fit_gnn(cfg: DictConfig, sets: dict[str, PageSet], featurizer: WordFeaturize
             "best_epoch": float(history.best_epoch), "epochs_run": float(history.epochs_run),
             "best_val_macro_f1": history.best_val_macro_f1,
             "val_macro_f1": history.best_val_macro_f1 if graphs["val"] else float("nan")}
-    return FittedModel(model, probabilities, cost)
+    return FittedModel(model, probabilities, cost, tables={"training_curve": history.curve()})
 
 
 def _checkpoint(cfg: DictConfig, graphs: dict[str, list]) -> EpochCheckpoint | None:

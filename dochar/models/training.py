@@ -10,6 +10,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
+import pandas as pd
 import torch
 from sklearn.metrics import f1_score
 from threadpoolctl import threadpool_limits
@@ -72,6 +73,18 @@ class TrainHistory:
     epochs_run: int = 0
     losses: list[float] = field(default_factory=list)
     val_scores: list[float] = field(default_factory=list)
+    learning_rates: list[float] = field(default_factory=list)
+
+    def curve(self) -> pd.DataFrame:
+        """One row per epoch: mean training loss, validation macro-F1 (when there is a
+        validation set), learning rate, and whether it is the epoch whose weights were kept."""
+        epochs = np.arange(1, len(self.losses) + 1)
+        frame = pd.DataFrame({"epoch": epochs, "train_loss": self.losses,
+                              "learning_rate": self.learning_rates[:len(epochs)]})
+        if self.val_scores:
+            frame["val_macro_f1"] = self.val_scores[:len(epochs)]
+        frame["kept"] = frame["epoch"] == self.best_epoch
+        return frame.set_index("epoch")
 
 
 def train(model: torch.nn.Module, train_graphs: Sequence[Data], val_graphs: Sequence[Data],
@@ -104,6 +117,7 @@ def train(model: torch.nn.Module, train_graphs: Sequence[Data], val_graphs: Sequ
             optimizer.step()
             total += loss.item() * batch.num_graphs
         history.losses.append(total / len(train_graphs))
+        history.learning_rates.append(float(optimizer.param_groups[0]["lr"]))
         if val_batch is None:  # no validation documents: train the full budget, keep the last
             best_state, history.best_epoch, history.epochs_run = model.state_dict(), epoch, epoch
             if checkpoint is not None:

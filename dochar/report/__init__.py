@@ -30,6 +30,8 @@ from dochar.runs.bundle import RunBundle
 __all__ = ["write_report", "ReportInputError"]
 
 
+TRAINING_CURVES = 3   # runs whose training curves the report draws, best first
+
 def write_report(bundles: Sequence[RunBundle], out_path: str | Path, *,
                  title: str = "dochar report", score: str = "macro_f1",
                  reference: str | None = None, overlay_pages: int = 3,
@@ -78,6 +80,13 @@ def write_report(bundles: Sequence[RunBundle], out_path: str | Path, *,
         heading = f"{words[0].upper()}{words[1:]} against training documents"
         chapters.append(("learning-curves", heading,
                          [image(plots.learning_plot(curves, words), "learning curves")]))
+    trained = [(names[i], bundles[i].tables["training_curve"]) for i in order[:TRAINING_CURVES]
+               if "training_curve" in bundles[i].tables]
+    if trained:
+        chapters.append(("training", "How the top runs trained, epoch by epoch",
+                         [image(plots.training_plot(trained), "training curves"),
+                          note("Rings mark the epoch whose weights were kept (the best "
+                               "validation macro-F1; early stopping).")]))
     best = bundles[order[0]]
     page_labels = _with_unlisted(best, labels)
     if overlay_pages > 0:

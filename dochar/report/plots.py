@@ -17,6 +17,7 @@ import io
 from collections.abc import Sequence
 
 import numpy as np
+import pandas as pd
 from matplotlib import colormaps, rc_context
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
@@ -146,6 +147,29 @@ def calibration_plot(curves: Sequence[tuple[str, Reliability]]) -> str:
         axes.set_ylabel("share of words correct")
         axes.grid(alpha=0.6)
         axes.legend(fontsize=8, loc="upper left", bbox_to_anchor=(1.02, 1.0), frameon=False)
+        return to_data_uri(figure)
+
+
+def training_plot(curves: Sequence[tuple[str, pd.DataFrame]]) -> str:
+    """Validation macro-F1 (left) and training loss (right) per epoch; a ring marks the epoch
+    whose weights early stopping kept."""
+    with rc_context(FIGURE_STYLE):
+        figure = Figure(figsize=(8.6, 3.6))
+        score_axes, loss_axes = figure.subplots(1, 2)
+        for style, (name, curve) in zip(_series_styles(len(curves)), curves):
+            style = {**style, "marker": None}
+            kept = curve[curve["kept"].astype(bool)]
+            if "val_macro_f1" in curve:
+                score_axes.plot(curve.index, curve["val_macro_f1"], **style, label=plain(name))
+                score_axes.plot(kept.index, kept["val_macro_f1"], "o", markersize=8,
+                                fillstyle="none", color=style.get("color"))
+            loss_axes.plot(curve.index, curve["train_loss"], **style, label=plain(name))
+        score_axes.set_ylabel("validation word macro-F1")
+        loss_axes.set_ylabel("training loss")
+        for axes in (score_axes, loss_axes):
+            axes.set_xlabel("epoch")
+            axes.grid(alpha=0.6)
+        loss_axes.legend(fontsize=8, loc="upper left", bbox_to_anchor=(1.02, 1.0), frameon=False)
         return to_data_uri(figure)
 
 

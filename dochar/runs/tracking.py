@@ -15,9 +15,11 @@ from __future__ import annotations
 import contextlib
 import hashlib
 import json
+import math
 import os
 import re
 import subprocess
+import time
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from pathlib import Path
 from typing import Any
@@ -143,6 +145,25 @@ def library_versions(libraries: Sequence[str] = LIBRARIES) -> dict[str, str]:
     return found
 
 
+CURVE_METRICS = {"train_loss": "train/loss", "val_macro_f1": "val/macro_f1",
+                 "learning_rate": "train/learning_rate"}
+
+
+def log_curve(run_id: str, curve: Any) -> None:
+    """Per-epoch training loss, validation macro-F1 and learning rate, with ``step=epoch``; the
+    epoch whose weights were kept is the metric ``cost/best_epoch``."""
+    from mlflow.entities import Metric
+
+    if curve is None or curve.empty:
+        return
+    now = int(time.time() * 1000)
+    metrics = [Metric(name, float(value), now, int(epoch))
+               for column, name in CURVE_METRICS.items() if column in curve
+               for epoch, value in curve[column].items() if math.isfinite(float(value))]
+    for start in range(0, len(metrics), 1000):   # MLflow takes at most 1000 metrics a batch
+        MlflowClient().log_batch(run_id, metrics=metrics[start:start + 1000])
+
+
 def log_dataset(bundle: RunBundle) -> None:
     """The run's documents as an MLflow dataset input: runs on the same data group together."""
     documents = bundle.tables.get("documents")
@@ -240,6 +261,7 @@ def _log(bundle: RunBundle, folder: Path, uri: str, experiment_id: str,
                                                                   bundle.cost.items()}}.items()})
         bundle.run_id = run.info.run_id
         log_dataset(bundle)
+        log_curve(run.info.run_id, bundle.tables.get("training_curve"))
         bundle.save(folder)
         mlflow.log_artifacts(str(folder))
         if (folder / MODEL_DIR).is_dir():
