@@ -96,7 +96,7 @@ def test_the_printed_address_lists_the_sweep_in_the_mlflow_ui(swept):
             browser = p.chromium.launch(executable_path=str(chromium), args=LAUNCH_ARGS)
             try:
                 page = browser.new_page(viewport={"width": 1400, "height": 900})
-                page.goto(address, wait_until="networkidle")
+                page.goto(address, wait_until="load")   # the UI keeps polling: never idle
                 page.wait_for_selector("text=matching runs", timeout=90_000)
                 title = page.locator("h2, h1").all_inner_texts()
                 # the sweep is one parent row; its expander shows the runs it launched
