@@ -265,7 +265,7 @@ def _report(args: argparse.Namespace) -> int:
                                  + f" at {args.tracking_uri}")
     out = Path(args.out or Path("reports") / f"{name}.html")
     path = write_report(bundles, out, title=f"dochar — {name}", score=args.score,
-                        reference=args.reference)
+                        reference=args.reference, reference_model=args.reference_model)
     print(f"report written: {path.resolve()}")
     return 0
 
@@ -309,6 +309,9 @@ def _parser() -> argparse.ArgumentParser:
                         "experiment (default: every finished run of --experiment)")
     report.add_argument("--sweep", help="only the runs of one sweep: its id, or 'latest'")
     report.add_argument("--reference", help="run name to compare every run against")
+    report.add_argument("--reference-model", default="random_forest",
+                        help="without --reference: the first run of this layer or estimator "
+                             "(default random_forest)")
     report.add_argument("--out", help="output HTML path (default reports/<experiment>.html)")
     tracked(report)
     runs = commands.add_parser("runs", help="list the store's runs, newest last")

@@ -14,8 +14,8 @@ import numpy as np
 import yaml
 
 from dochar.report import plots
-from dochar.report.leaderboard import (default_paired, leaderboard, pair_with_reference,
-                                       resolve_reference)
+from dochar.report.leaderboard import (REFERENCE_MODEL, default_paired, leaderboard,
+                                       pair_with_reference, resolve_reference)
 from dochar.report.overlay import OVERLAY_STYLE, class_style, overlays
 from dochar.report.page import (Html, contents, details, document, facts, image, note, number,
                                 paragraph, preformatted, section, table)
@@ -34,7 +34,8 @@ TRAINING_CURVES = 3   # runs whose training curves the report draws, best first
 
 def write_report(bundles: Sequence[RunBundle], out_path: str | Path, *,
                  title: str = "dochar report", score: str = "macro_f1",
-                 reference: str | None = None, overlay_pages: int = 3,
+                 reference: str | None = None, reference_model: str = REFERENCE_MODEL,
+                 overlay_pages: int = 3,
                  paired: Callable | None = None, written: dt.date | None = None) -> Path:
     """Write the report for ``bundles`` to ``out_path`` and return the path.
 
@@ -53,7 +54,7 @@ def write_report(bundles: Sequence[RunBundle], out_path: str | Path, *,
         raise ReportInputError(f"no run has the score '{score}'; top-level metrics are {known}")
     names = display_names(bundles)
     order = ranking(bundles, score)
-    reference_index = resolve_reference(bundles, names, reference)
+    reference_index = resolve_reference(bundles, names, reference, reference_model)
     if paired is None:
         paired, paired_note = default_paired(bundles)
         measure = score_words("macro_f1")

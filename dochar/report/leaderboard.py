@@ -11,20 +11,22 @@ from dochar.report.summaries import ReportInputError, class_order, metric, score
 from dochar.runs.bundle import RunBundle
 
 PairedFn = Callable[[Any, Any], Any]
-REFERENCE_MODEL = "random_forest"
+REFERENCE_MODEL = "random_forest"   # default of `dochar report --reference-model`
 TUNING_BUDGET = "tuning_budget"
 
 
 def resolve_reference(bundles: Sequence[RunBundle], names: Sequence[str],
-                      reference: str | None) -> int | None:
-    """Index of the reference run: the named one, else the first random-forest run, else None."""
+                      reference: str | None,
+                      reference_model: str = REFERENCE_MODEL) -> int | None:
+    """Index of the reference run: the named one, else the first run of ``reference_model``
+    (the tag ``model``: a layer or an estimator), else None."""
     if reference is not None:
         for i, (bundle, name) in enumerate(zip(bundles, names)):
             if reference in (name, bundle.name, bundle.run_id):
                 return i
         raise ReportInputError(f"reference run '{reference}' is not among the runs {list(names)}")
     for i, bundle in enumerate(bundles):
-        if bundle.tags.get("model") == REFERENCE_MODEL:
+        if bundle.tags.get("model") == reference_model:
             return i
     return None
 

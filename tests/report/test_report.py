@@ -185,6 +185,19 @@ def test_default_reference_is_the_random_forest_with_the_project_comparison(runs
     assert "No paired difference for partial: " in html
 
 
+def test_the_reference_model_is_a_setting(runs, tmp_path):
+    # --reference-model names the system every run is compared with: here the decision trees,
+    # so the forest's cell is its own difference from the first tree run (worked from metrics)
+    html = write_report(runs, tmp_path / "trees.html", reference_model="decision_tree").read_text()
+    header, rows = table_cells(html, "leaderboard-table")
+    column = header.index("vs reference")
+    tree = next(r for r in runs if r.tags["model"] == "decision_tree")
+    cells = {row[1]: row[column] for row in rows}
+    assert cells[tree.name] == "reference"
+    forest = next(r for r in runs if r.tags["model"] == "random_forest")
+    assert cells[forest.name] == f"{forest.metrics['macro_f1'] - tree.metrics['macro_f1']:+.3f}"
+
+
 def test_verdict_opens_the_page_and_agrees_with_the_leaderboard(runs, report):
     # Default report: the forest is the reference and ranks first, so the verdict compares
     # the runner-up with it; the project's paired bootstrap supplies interval and p-value.
