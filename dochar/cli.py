@@ -223,7 +223,6 @@ def _hydra_command(task, argv: list[str]) -> int:
 
 
 def _store(uri: str):
-    os.environ.setdefault("MLFLOW_ENABLE_ARTIFACTS_PROGRESS_BAR", "false")
     from dochar.runs.store import RunStore
 
     return RunStore(uri)

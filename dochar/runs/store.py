@@ -8,6 +8,7 @@ the first characters of it (the tables print 12), or by the path of their folder
 
 from __future__ import annotations
 
+import os
 import tempfile
 from collections.abc import Mapping, Sequence
 from datetime import datetime, timezone
@@ -53,6 +54,7 @@ class RunStore:
     """One tracking store, read through MLflow's client."""
 
     def __init__(self, uri: str) -> None:
+        os.environ.setdefault("MLFLOW_ENABLE_ARTIFACTS_PROGRESS_BAR", "false")
         from mlflow import MlflowClient
 
         self.uri = uri
