@@ -102,7 +102,7 @@ def evaluate(predictions: pd.DataFrame, labels: Sequence[str], cfg: Mapping[str,
                                 cfg, seed=seed))
     correct = (predictions["label"] == predictions["predicted"]).to_numpy()
     metrics["ece"] = float(expected_calibration_error(
-        predictions["confidence"].to_numpy(), correct, n_bins=int(cfg["calibration_bins"])))
+        predictions["confidence"].to_numpy(), correct, n_bins=int(cfg.get("calibration_bins", 15))))
     if (predictions["layout_id"] != "").any():
         per_layout = per_group_scores(predictions, labels, "layout_id")
         tables["per_layout"] = per_layout

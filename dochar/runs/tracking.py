@@ -189,6 +189,11 @@ def flatten(config: Mapping[str, Any], prefix: str = "") -> dict[str, Any]:
     return flat
 
 
+def params(config: Mapping[str, Any]) -> dict[str, str]:
+    """The run config as MLflow params: dotted keys, values as text (MLflow's length limit)."""
+    return {key: str(value)[:6000] for key, value in flatten(config).items()}
+
+
 def computed_config(config: Mapping[str, Any]) -> dict[str, Any]:
     """The flattened config without the keys in UNHASHED: what decides a run's numbers."""
     return {key: value for key, value in flatten(config).items()
@@ -256,7 +261,7 @@ def _log(bundle: RunBundle, folder: Path, uri: str, experiment_id: str,
         tags["mlflow.parentRunId"] = os.environ[SWEEP_PARENT_ENV]
     with store_writes(uri), mlflow.start_run(experiment_id=experiment_id, run_name=bundle.name,
                                              tags=tags) as run:
-        mlflow.log_params({key: str(value)[:6000] for key, value in flatten(bundle.config).items()})
+        mlflow.log_params(params(bundle.config))
         mlflow.log_metrics({k: v for k, v in {**bundle.metrics, **{f"cost/{k}": v for k, v in
                                                                   bundle.cost.items()}}.items()})
         bundle.run_id = run.info.run_id

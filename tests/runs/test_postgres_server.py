@@ -25,7 +25,7 @@ import mlflow
 import pytest
 import yaml
 
-from dochar.runs.tracking import flatten
+from dochar.runs.tracking import params
 from dochar.runs.server import DatabaseUnreachable, check_database
 from tests.helpers import REPO
 from tests.helpers.cli import TINY_FOREST, dochar, job_runs, runs_frame
@@ -105,7 +105,7 @@ def test_a_parallel_sweep_on_the_server_loses_nothing(server, tmp_path):
                             **{f"cost/{k}": v for k, v in summary["cost"].items()}}
         assert run.data.metrics == pytest.approx(expected_metrics, rel=0, abs=0)
         config = yaml.safe_load((folder / "config.yaml").read_text())
-        assert run.data.params == flatten(config)
+        assert run.data.params == params(config)
         local_files = sorted(p.relative_to(folder).as_posix() for p in folder.rglob("*")
                              if p.is_file())
         served = client.download_artifacts(summary["run_id"], "", str(tmp_path / "got" /
