@@ -23,6 +23,8 @@ from typing import Any
 import pandas as pd
 import yaml
 
+from dochar.data.files import atomic_write
+
 PREDICTION_COLUMNS: tuple[str, ...] = (
     "doc_id", "page", "word_id", "text", "x0", "y0", "x1", "y1", "page_width", "page_height",
     "layout_id", "entity_id", "label", "predicted", "confidence",
@@ -47,18 +49,25 @@ class RunBundle:
     tables: dict[str, pd.DataFrame] = field(default_factory=dict)
 
     def save(self, folder: str | Path) -> Path:
+        """Each file written whole (scratch file, then rename), ``summary.json`` last: a folder
+        a crash interrupted has no summary and is never read as a run."""
         folder = Path(folder)
         folder.mkdir(parents=True, exist_ok=True)
+        with atomic_write(folder / "config.yaml") as scratch:
+            scratch.write_text(yaml.safe_dump(self.config, sort_keys=False))
+        with atomic_write(folder / "predictions.parquet") as scratch:
+            self.predictions.to_parquet(scratch, index=False)
+        if self.edges is not None:
+            with atomic_write(folder / "edges.parquet") as scratch:
+                self.edges.to_parquet(scratch, index=False)
+        for name, table in self.tables.items():
+            with atomic_write(folder / f"{name}.csv") as scratch:
+                table.to_csv(scratch)
         summary = {"name": self.name, "labels": self.labels, "metrics": self.metrics,
                    "cost": self.cost, "tags": self.tags, "command": self.command,
                    "run_id": self.run_id, "tables": sorted(self.tables)}
-        (folder / "summary.json").write_text(json.dumps(summary, indent=2, sort_keys=True))
-        (folder / "config.yaml").write_text(yaml.safe_dump(self.config, sort_keys=False))
-        self.predictions.to_parquet(folder / "predictions.parquet", index=False)
-        if self.edges is not None:
-            self.edges.to_parquet(folder / "edges.parquet", index=False)
-        for name, table in self.tables.items():
-            table.to_csv(folder / f"{name}.csv")
+        with atomic_write(folder / "summary.json") as scratch:
+            scratch.write_text(json.dumps(summary, indent=2, sort_keys=True))
         return folder
 
     @classmethod
