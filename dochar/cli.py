@@ -70,7 +70,7 @@ def _finish(cfg, bundle, model) -> float:
     from dochar.report.run_folder import write_run_files
     from dochar.runs.console import console, has_sides, ranking_table, seen_unseen_table
     from dochar.runs.sweep import in_sweep, validation_score
-    from dochar.runs.tracking import log_run, resolve_uri, seal, ui_hint
+    from dochar.runs.tracking import log_run, mask_passwords, resolve_uri, seal, ui_hint
 
     hydra_cfg = HydraConfig.get()
     bundle.command = " ".join(["dochar", _SUBCOMMAND[0], *hydra_cfg.overrides.task])
@@ -83,9 +83,10 @@ def _finish(cfg, bundle, model) -> float:
             log_run(bundle, folder, uri=uri, experiment=str(cfg.tracking.experiment))
         except Exception as error:  # the store went away during the run: say so, keep the folder
             bundle.save(folder)
+            reason = " ".join(str(error).split())[:300]
             raise DocharError(f"tracking server {uri} failed while logging the run "
-                              f"({type(error).__name__}); the finished run is kept in "
-                              f"{folder}") from error
+                              f"({type(error).__name__}: {mask_passwords(reason)}); the "
+                              f"finished run is kept in {folder}") from error
     else:
         bundle.save(folder)
     console.print(ranking_table([bundle], title=f"run {bundle.name}"))

@@ -43,6 +43,7 @@ CONFIG_HASH_TAG = "config_hash"
 FINGERPRINT_TAG = "data_fingerprint"
 MASK = "***"
 SQLITE_LOCK_SECONDS = 600.0
+DATASET_ATTEMPTS = 4    # jobs logging one dataset at once: see log_dataset
 # Keys that change how a run is shown or logged, not what it computes: left out of the hash.
 UNHASHED = ("tracking", "run_name", "hydra", "train.progress", "train.checkpoint_dir")
 
@@ -173,8 +174,18 @@ def log_dataset(bundle: RunBundle) -> None:
                                       source=bundle.tags.get("data_source") or None,
                                       digest=bundle.tags.get("data_fingerprint"))
     counts = documents["part"].value_counts()
-    mlflow.log_input(dataset, context="/".join(f"{part} {counts.get(part, 0)}"
-                                               for part in ("train", "val", "test")))
+    context = "/".join(f"{part} {counts.get(part, 0)}" for part in ("train", "val", "test"))
+    for attempt in range(DATASET_ATTEMPTS):
+        try:
+            mlflow.log_input(dataset, context=context)
+            return
+        except mlflow.exceptions.MlflowException:
+            # The store's get-or-create of the dataset row is check-then-insert: when jobs of
+            # a sweep log the same documents at once, all but one insert are refused by the
+            # unique key. Asked again, the store finds the row the winner wrote.
+            if attempt == DATASET_ATTEMPTS - 1:
+                raise
+            time.sleep(0.2 * (attempt + 1))
 
 
 def flatten(config: Mapping[str, Any], prefix: str = "") -> dict[str, Any]:
@@ -269,8 +280,6 @@ def _log(bundle: RunBundle, folder: Path, uri: str, experiment_id: str,
         log_curve(run.info.run_id, bundle.tables.get("training_curve"))
         bundle.save(folder)
         mlflow.log_artifacts(str(folder))
-        if (folder / MODEL_DIR).is_dir():
-            log_model(folder / MODEL_DIR)
         if (folder / MODEL_DIR).is_dir():
             log_model(folder / MODEL_DIR)
     return bundle.run_id

@@ -15,6 +15,7 @@ import signal
 import socket
 import subprocess
 import sys
+import threading
 import time
 import urllib.request
 import uuid
@@ -22,10 +23,12 @@ from pathlib import Path
 from urllib.parse import urlsplit
 
 import mlflow
+import pandas as pd
 import pytest
 import yaml
 
-from dochar.runs.tracking import params
+from dochar.runs.bundle import RunBundle
+from dochar.runs.tracking import ensure_experiment, log_dataset, params
 from dochar.runs.server import DatabaseUnreachable, check_database
 from tests.helpers import REPO
 from tests.helpers.cli import TINY_FOREST, dochar, job_runs, runs_frame
@@ -114,6 +117,46 @@ def test_a_parallel_sweep_on_the_server_loses_nothing(server, tmp_path):
                               if p.is_file())
         assert served_files == local_files
         assert json.loads((Path(served) / "summary.json").read_text()) == summary
+
+
+def test_runs_logging_one_dataset_at_the_same_moment_all_record_it(server, monkeypatch):
+    """The jobs of a sweep log the same documents, often at once. The server's get-or-create of
+    the dataset row is check-then-insert, so two jobs can both insert and one is refused by the
+    unique (experiment, name, digest) key; every run must still end up with the dataset."""
+    address, _, _ = server
+    monkeypatch.setenv("MLFLOW_TRACKING_URI", address)
+    experiment_id = ensure_experiment(address, f"race-{uuid.uuid4().hex[:8]}")
+    documents = pd.DataFrame({"part": ["train"] * 6 + ["val"] * 2 + ["test"] * 2},
+                             index=pd.Index([f"coa-{i}" for i in range(10)], name="doc_id"))
+    tags = {"dataset": "certificates", "data_fingerprint": uuid.uuid4().hex[:16]}
+    runs = 8
+    start = threading.Barrier(runs)
+    failures: list[BaseException] = []
+    run_ids: list[str] = []
+
+    def one_job(number: int) -> None:
+        bundle = RunBundle(name=f"job {number}", labels=[], metrics={},
+                           predictions=pd.DataFrame(), tags=dict(tags),
+                           tables={"documents": documents})
+        try:
+            with mlflow.start_run(experiment_id=experiment_id) as run:
+                run_ids.append(run.info.run_id)
+                start.wait(timeout=60)
+                log_dataset(bundle)
+        except BaseException as error:  # collected: an assert in a thread would be lost
+            failures.append(error)
+
+    threads = [threading.Thread(target=one_job, args=(n,)) for n in range(runs)]
+    for thread in threads:
+        thread.start()
+    for thread in threads:
+        thread.join(timeout=120)
+    assert not failures, failures
+    client = mlflow.MlflowClient(tracking_uri=address)
+    for run_id in run_ids:
+        (logged,) = client.get_run(run_id).inputs.dataset_inputs
+        assert logged.dataset.digest == tags["data_fingerprint"]
+        assert logged.tags[0].value == "train 6/val 2/test 2"
 
 
 def test_a_run_logged_straight_to_postgres_masks_the_password(server, tmp_path):
