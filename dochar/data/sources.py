@@ -114,5 +114,7 @@ def load_data(data_cfg: Mapping[str, Any], *, strict: bool = False,
         log.info("links table: %s", links.summary())
         for problem in links.problems[:20]:
             log.warning("link dropped: %s", problem)
+        if len(links.problems) > 20:
+            log.warning("... and %d more links dropped", len(links.problems) - 20)
         notes.update(links.notes())
     return LoadedData(report, notes, links.links)

@@ -7,9 +7,10 @@ Two kinds (``task.link_kind``):
   order (a path through the entity, undirected): enough to recover every entity as a connected
   component, and what candidate recall counts. A word with an empty ``entity_id`` is an entity
   of its own.
-* ``key_value``: nodes are the given segments, the ``entity_id`` groups of a page (union box,
-  words' text joined by spaces in word_id order, the first word's label); the true links are the
-  links table's rows of that page, directed ``source -> target``. ``task.link_table_kinds``
+* ``key_value``: nodes are the given segments, the ``entity_id`` groups of a page, built as the
+  segment labelling task builds them (:func:`dochar.tasks.segment_labels.segment_page`: union
+  box, words' text joined in reading order; here with the label of the segment's first word);
+  the true links are the links table's rows of that page, directed ``source -> target``. ``task.link_table_kinds``
   chooses which of the table's kinds count (null: all).
 """
 
@@ -23,6 +24,7 @@ import pandas as pd
 
 from dochar.data.word_table import Page
 from dochar.errors import DocharError
+from dochar.tasks.segment_labels import segment_page
 
 LINK_KINDS: tuple[str, ...] = ("same_entity", "key_value")
 UNASSIGNED = "~w"   # prefix of the entity id a word without entity_id gets (its own entity)
@@ -52,28 +54,6 @@ def word_entities(page: Page) -> list[str]:
     return [e if e else f"{UNASSIGNED}{w}" for e, w in zip(ids, page.word_ids.tolist())]
 
 
-def segment_page(page: Page) -> Page:
-    """The page's entities as nodes: union box, joined text, first word's label, in order of
-    their first word (words are in word_id order, as :func:`~dochar.data.word_table.iter_pages`
-    gives them)."""
-    entities = word_entities(page)
-    order = list(dict.fromkeys(entities))
-    index = {entity: i for i, entity in enumerate(order)}
-    member = np.array([index[e] for e in entities], dtype=np.int64)
-    boxes = np.zeros((len(order), 4))
-    texts, labels = [], []
-    for i in range(len(order)):
-        words = np.flatnonzero(member == i)
-        box = page.boxes[words]
-        boxes[i] = (box[:, 0].min(), box[:, 1].min(), box[:, 2].max(), box[:, 3].max())
-        texts.append(" ".join(page.texts[w] for w in words))
-        labels.append(page.labels[words[0]] if page.labels is not None else "")
-    return Page(doc_id=page.doc_id, page=page.page, word_ids=np.arange(len(order)),
-                texts=texts, boxes=boxes, width=page.width, height=page.height,
-                labels=labels if page.labels is not None else None, entity_ids=order,
-                layout_id=page.layout_id, split=page.split)
-
-
 def _same_entity_page(page: Page) -> LinkPage:
     entities = word_entities(page)
     position: dict[str, int] = {}
@@ -88,7 +68,9 @@ def _same_entity_page(page: Page) -> LinkPage:
 
 
 def _key_value_page(page: Page, links: pd.DataFrame) -> LinkPage:
-    nodes = segment_page(page)
+    nodes = segment_page(page, word_entities(page), None)
+    if page.labels is not None:
+        nodes.labels = [page.labels[int(members[0])] for members in nodes.members]
     index = {entity: i for i, entity in enumerate(nodes.entity_ids)}
     pairs = [(index[s], index[t]) for s, t in zip(links["source"], links["target"])
              if s in index and t in index]

@@ -11,7 +11,8 @@ from dochar import graphs
 from dochar.data.word_table import Page
 from dochar.graphs.candidates import CandidateOptions, candidate_pairs, missed_links
 from dochar.graphs.diagnostics import candidate_recall
-from dochar.tasks.links import segment_page
+from dochar.tasks.links import word_entities
+from dochar.tasks.segment_labels import segment_page
 
 
 def _page(boxes, entities, labels=None) -> Page:
@@ -52,9 +53,11 @@ def test_candidate_recall_matches_a_brute_force_count():
     links = pd.DataFrame({"doc_id": "d", "page": 1, "source": [f"e{i}" for i in range(0, 9, 2)],
                           "target": [f"e{i}" for i in range(1, 10, 2)], "kind": "key_value"})
     segments = candidate_recall([page], builder, links)
-    seg = segment_page(page)
+    seg = segment_page(page, word_entities(page), None)
+    node = {entity: i for i, entity in enumerate(seg.entity_ids)}
     seg_edges = {frozenset((int(a), int(b))) for a, b in builder(seg).edge_index.T}
-    expected = sum(frozenset((2 * i, 2 * i + 1)) in seg_edges for i in range(5))
+    expected = sum(frozenset((node[f"e{2 * i}"], node[f"e{2 * i + 1}"])) in seg_edges
+                   for i in range(5))
     assert segments.true_links["key_value"] == 5
     assert segments.found["key_value"] == expected
 
