@@ -19,7 +19,7 @@ from data_synth.generator import iter_documents_with_links
 from data_synth.layouts import LAYOUT_IDS
 from data_synth.noise import NoiseConfig
 from data_synth.render import ScanNoise, render_documents
-from dochar.data.word_table import write_word_table
+from dochar.data.word_table import table_name_problem, write_word_table
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -58,10 +58,9 @@ def _parser() -> argparse.ArgumentParser:
 def main(argv: Sequence[str] | None = None) -> int:
     parser = _parser()
     args = parser.parse_args(argv)
-    if args.out.suffix.lower() not in {".parquet", ".csv"}:
-        parser.error(f"--out {args.out}: use a .parquet or .csv file name")
-    if args.links_out is not None and args.links_out.suffix.lower() not in {".parquet", ".csv"}:
-        parser.error(f"--links-out {args.links_out}: use a .parquet or .csv file name")
+    for option, path in (("--out", args.out), ("--links-out", args.links_out)):
+        if path is not None and (problem := table_name_problem(path, option)) is not None:
+            parser.error(problem)
     formats = {f.strip() for f in args.render.split(",") if f.strip()}
     if formats and args.render_dir is None:
         parser.error("--render needs --render-dir")

@@ -14,7 +14,8 @@ from pathlib import Path
 from dochar.data.importers import FORMATS, import_sources
 from dochar.data.importers.image import OcrSettings
 from dochar.data.importers.label_transfer import MATCHING, TransferSettings
-from dochar.data.word_table import WordTableError, validate_word_table, write_word_table
+from dochar.data.word_table import (WordTableError, table_name_problem, validate_word_table,
+                                    write_word_table)
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -45,8 +46,8 @@ def _parser() -> argparse.ArgumentParser:
 def main(argv: Sequence[str] | None = None) -> int:
     parser = _parser()
     args = parser.parse_args(argv)
-    if args.out.suffix.lower() not in {".parquet", ".csv"}:
-        parser.error(f"--out {args.out}: use a .parquet or .csv file name")
+    if (problem := table_name_problem(args.out, "--out")) is not None:
+        parser.error(problem)
     try:
         transfer = TransferSettings(args.min_iou, args.matching, args.unmatched_label)
         table, summary = import_sources(args.sources, format=args.format, ocr=args.ocr,

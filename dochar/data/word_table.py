@@ -131,11 +131,24 @@ def read_word_table(path: str | Path) -> pd.DataFrame:
     return frame
 
 
+TABLE_SUFFIXES = (".parquet", ".csv")   # what write_word_table writes (Parquet, else CSV)
+
+
+def table_name_problem(path: str | Path, option: str) -> str | None:
+    """Why ``path`` (given as ``option``) cannot name a written table, or None: a command
+    checks its output names before any work, with the same rule the writer applies."""
+    if Path(path).suffix.lower() in TABLE_SUFFIXES:
+        return None
+    return f"{option} {path}: use a {' or '.join(TABLE_SUFFIXES)} file name"
+
+
 def write_word_table(frame: pd.DataFrame, path: str | Path) -> Path:
     """Write then rename, so a reader never finds half a table under the final name."""
     from dochar.data.files import atomic_write
 
     path = Path(path)
+    if (problem := table_name_problem(path, "table file")) is not None:
+        raise ValueError(problem)
     with atomic_write(path) as scratch:
         if path.suffix.lower() == ".parquet":
             frame.to_parquet(scratch, index=False)

@@ -49,3 +49,26 @@ def test_data_pdf_source_imports_at_run_time(tmp_path) -> None:
                       "labels": list(LABELS)})
     assert data.notes["documents_used"] == 2 and data.notes["label_transfer_recall"] == 1.0
     assert data.notes["import_words_kept"] == len(pd.read_parquet(truth)) == len(data.table)
+
+
+def test_both_commands_and_the_writer_refuse_an_unknown_table_suffix(tmp_path, capsys) -> None:
+    """One rule for output names (Parquet or CSV), checked before any work is done."""
+    import pytest
+
+    from dochar.data.word_table import write_word_table
+
+    with pytest.raises(SystemExit) as stop:
+        main(["import", str(tmp_path), "--out", str(tmp_path / "t.xlsx")])
+    assert stop.value.code == 2
+    assert "--out " + str(tmp_path / "t.xlsx") + ": use a .parquet or .csv file name" in \
+        capsys.readouterr().err
+    with pytest.raises(SystemExit) as stop:
+        synth_main(["--documents", "2", "--out", str(tmp_path / "s.csv"),
+                    "--links-out", str(tmp_path / "links.json")])
+    assert stop.value.code == 2
+    assert "--links-out " + str(tmp_path / "links.json") + ": use a .parquet or .csv" in \
+        capsys.readouterr().err
+    assert not (tmp_path / "s.csv").exists()
+    with pytest.raises(ValueError, match="use a .parquet or .csv file name"):
+        write_word_table(pd.DataFrame({"doc_id": ["a"]}), tmp_path / "t.json")
+    assert not (tmp_path / "t.json").exists()
