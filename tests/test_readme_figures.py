@@ -21,7 +21,7 @@ from reports.readme_figures.markers import (FigureBlockError, read_blocks, repla
                                             same_figures, wrap_prose)
 from tests.helpers import require_dataset
 
-NEEDS_FUNSD = {"funsd-leakage", "funsd-entity-ceiling"}
+NEEDS_FUNSD = {"funsd-leakage", "funsd-entity-ceiling", "funsd-blank-links"}
 
 
 @pytest.mark.parametrize("name", CHEAP)

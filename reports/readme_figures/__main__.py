@@ -36,6 +36,7 @@ FIGURES: dict[str, Figure] = {
     "layout-ari": Figure(cheap.layout_ari, cheap=True),
     "funsd-leakage": Figure(cheap.funsd_leakage, cheap=True),
     "funsd-entity-ceiling": Figure(cheap.funsd_entity_ceiling, cheap=True),
+    "funsd-blank-links": Figure(cheap.funsd_blank_links, cheap=True),
     "gate-tolerances": Figure(gate_spread.gate_tolerances, cheap=False, takes_keep=True),
     "layout-held-out": Figure(tables.layout_held_out, cheap=False, takes_keep=True),
     "demo": Figure(tables.demo, cheap=False, takes_keep=True),
@@ -71,6 +72,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     args = _parser().parse_args(argv)
     logging.basicConfig(level=logging.WARNING, format="%(message)s")
     logging.getLogger("reports").setLevel(logging.INFO)
+    logging.getLogger("dochar").setLevel(logging.ERROR)   # the data loaders' per-row notes
     names = list(FIGURES) if args.all else (args.only or CHEAP)
     text = args.readme.read_text(encoding="utf-8")
     present = read_blocks(text)

@@ -101,3 +101,17 @@ def funsd_entity_ceiling() -> str:
             f"{scores.n_true_fragmented:,} entities are not contiguous in reading order. Entity "
             f"F1 {scores.f1:.3f} is therefore the ceiling of entity F1 from word labels on FUNSD "
             f"({today()}, `python -m reports.readme_figures --only funsd-entity-ceiling`).\n")
+
+
+def funsd_blank_links() -> str:
+    """Links of the FUNSD import that lose an end when blank words are dropped."""
+    counts = {}
+    for empty_text in ("drop", "keep"):
+        cfg = compose("data=funsd", f"data.path={funsd_root()}", f"data.empty_text={empty_text}")
+        counts[empty_text] = load_data(cfg.data).notes
+    dropped, kept = counts["drop"], counts["keep"]
+    return (f"On FUNSD, {dropped['links_unknown_entity']:,} of the {dropped['links_in']:,} "
+            f"imported links point to an entity whose words are all blank (dropped by "
+            f"`data.empty_text=drop`; with `keep`, {kept['links_unknown_entity']} links lose an "
+            f"end) and are dropped and counted ({today()}, "
+            f"`python -m reports.readme_figures --only funsd-blank-links`).\n")
