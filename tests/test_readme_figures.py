@@ -46,7 +46,8 @@ def test_every_figure_has_one_block_in_the_readme():
 def test_blocks_are_read_and_replaced_in_place():
     text = "a\n<!-- figures: x -->\nold\n\n<!-- /figures -->\nb\n"
     assert read_blocks(text) == {"x": "old\n\n"}
-    assert replace_block(text, "x", "new") == "a\n<!-- figures: x -->\nnew\n\n<!-- /figures -->\nb\n"
+    assert replace_block(text, "x", "new") == \
+        "a\n<!-- figures: x -->\nnew\n\n<!-- /figures -->\nb\n"
     with pytest.raises(FigureBlockError, match="found 0"):
         replace_block(text, "y", "new")
     # the second copy's opening marker: 6 lines of the first copy, then line 2 of the second

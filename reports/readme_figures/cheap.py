@@ -82,8 +82,9 @@ def funsd_leakage() -> str:
     cfg, _, split = funsd_split()
     leaked = split.leakage["test_doc"].nunique()
     return (f"**Where we stand.** On the official split {leaked} of the "
-            f"{len(split.assignment.test)} test forms have a near-duplicate template among the training forms (leakage report, cosine "
-            f"distance of page signatures < {cfg.split.leakage_threshold:g}; {today()}, "
+            f"{len(split.assignment.test)} test forms have a near-duplicate template among the "
+            f"training forms (leakage report, cosine distance of page signatures < "
+            f"{cfg.split.leakage_threshold:g}; {today()}, "
             f"`python -m reports.readme_figures --only funsd-leakage`); `split=inferred_layouts` "
             f"splits by inferred layout families instead.\n")
 

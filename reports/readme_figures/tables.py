@@ -59,9 +59,9 @@ def command(models: Sequence[str], extra: Sequence[str]) -> str:
 def weakest_classes(bundle: RunBundle, count: int = 3) -> str:
     present = [label for label in bundle.labels if bundle.metrics.get(f"support/{label}", 0) > 0]
     weakest = sorted(present, key=lambda label: bundle.metrics[f"f1/{label}"])[:count]
-    first, *rest = weakest
-    return (f"`{first}` (F1 {bundle.metrics[f'f1/{first}']:.2f}), "
-            + ", ".join(f"`{label}` ({bundle.metrics[f'f1/{label}']:.2f})" for label in rest))
+    shown = [f"`{label}` ({'F1 ' if i == 0 else ''}{bundle.metrics[f'f1/{label}']:.2f})"
+             for i, label in enumerate(weakest)]
+    return ", ".join(shown[:-1]) + f" and {shown[-1]}" if len(shown) > 1 else shown[0]
 
 
 def layout_held_out(keep: Path | None = None) -> str:
@@ -74,10 +74,11 @@ def layout_held_out(keep: Path | None = None) -> str:
             f"{b.cost['train_seconds']:.0f} |" for m, b in runs.items()]
     return "\n".join([
         f"The comparison on unseen layouts only (`split=layout_held_out`: the test split holds "
-        f"the {len(families)} layout families {' and '.join(f'`{f}`' for f in families)}, "
+        f"the layout families {' and '.join(f'`{f}`' for f in families)}, "
         f"{test['doc_id'].nunique()} documents and {len(test):,} words the models never saw "
         f"the like of), as `{command(HELD_OUT_MODELS, HELD_OUT)}` computes it on {today()} "
-        f"(`python -m reports.readme_figures --only layout-held-out`, one thread):",
+        f"(`python -m reports.readme_figures --only layout-held-out`, one thread on a machine "
+        f"shared with other jobs, so train seconds are inflated):",
         "",
         "| run (test words, layout families unseen in training) | macro-F1 [95% CI] | micro-F1 "
         "| entity F1 [95% CI] | train s |",
@@ -129,8 +130,9 @@ def demo(keep: Path | None = None) -> str:
         return f"{bundle.metrics['seen/macro_f1'] - bundle.metrics['unseen/macro_f1']:.3f}"
 
     return "\n".join([
-        f"What `{command(DEMO_MODELS, DEMO)}` computes on {today()} ({int(m['data/documents_used'])}"
-        f" certificates, seed 0; {int(m['split/train_documents'])} training documents in "
+        f"What `{command(DEMO_MODELS, DEMO)}` computes on {today()} "
+        f"({int(m['data/documents_used'])} certificates, seed 0; "
+        f"{int(m['split/train_documents'])} training documents in "
         f"{int(m['split/train_layouts'])} families, test {int(m['split/seen_test_documents'])} "
         f"seen-layout and {int(m['split/unseen_test_documents'])} unseen-layout documents; "
         f"`python -m reports.readme_figures --only demo`, one thread):",
