@@ -9,7 +9,7 @@ TORCH_SPEC ?= torch==2.13.0
 TORCH_INDEX ?= https://download.pytorch.org/whl/cpu
 DEMO_EXPERIMENT ?= dochar-demo
 
-.PHONY: install demo test test-all bench bench-smoke gate clean
+.PHONY: install demo test test-all bench bench-smoke gate readme-figures clean
 
 install: $(STAMP)
 
@@ -47,6 +47,12 @@ bench-smoke: $(STAMP)
 
 gate: $(STAMP)
 	$(BIN)/dochar gate
+
+# The README's figures about dochar itself, recomputed: the cheap blocks by default (a minute);
+# FIGURES="--all" adds the training runs (half an hour and more), FIGURES="--only demo" one block.
+FIGURES ?=
+readme-figures: $(STAMP)
+	$(BIN)/python -m reports.readme_figures $(FIGURES)
 
 clean:
 	rm -rf outputs mlflow.db mlartifacts reports/*.html test-artifacts

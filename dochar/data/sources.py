@@ -75,11 +75,11 @@ def _load_raw(data_cfg: Mapping[str, Any], progress: bool
         frame.attrs["source"] = str(data_cfg["path"])
         log.info("import: %s", report.summary())
         if report.problems:
-            log.warning("import problems:\n  %s", "\n  ".join(report.problems))
+            log.warning("import problems:\n  %s", "\n  ".join(map(str, report.problems)))
         links = report.links_frame()
         links.attrs["source"] = f"{data_cfg['path']} (linking fields)"
-        return frame, {"import_empty_text_dropped": report.empty_text_dropped,
-                       "import_boxes_clipped": report.boxes_clipped,
+        return frame, {"import_empty_text_dropped": report.dropped["words without text"],
+                       "import_boxes_clipped": report.repairs["boxes clipped to the page"],
                        "import_files_reported": len(report.problems)}, links
     if source == "word_table":
         links_path = data_cfg.get("links_path")

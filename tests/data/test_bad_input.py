@@ -375,7 +375,7 @@ def test_bi35_form_json_word_without_box_is_located_and_counted(tmp_path):
     (tmp_path / "f.json").write_text(json.dumps(form), encoding="utf-8")
     table, summary = import_sources([tmp_path / "f.json"])
     messages = [str(p) for p in summary.problems]
-    assert any("f.json: form[0].words[1]: 'box' must be four finite numbers" in m
+    assert any("f.json, form[0].words[1]: 'box' must be four finite numbers" in m
                for m in messages)
     assert any("form[0].words[2]" in m for m in messages)
     assert summary.dropped["words with an unreadable box"] == 2

@@ -28,8 +28,13 @@ def test_funsd_counts_match_the_dataset_readme(funsd_root):
 def test_empty_words_are_counted_never_silently_dropped(funsd_root):
     kept, kept_report = import_form_json([funsd_root], empty_text="keep")
     dropped, drop_report = import_form_json([funsd_root], empty_text="drop")
-    assert drop_report.empty_text_dropped == kept_report.empty_text_kept > 0
-    assert len(dropped) + drop_report.empty_text_dropped == len(kept)
+    blank = drop_report.dropped["words without text"]
+    assert blank == kept_report.kept_as_given["words without text"] > 0
+    assert len(dropped) + blank == len(kept)
+    # words read = words kept + words dropped, under either choice
+    for frame, report in ((kept, kept_report), (dropped, drop_report)):
+        assert report.words_read == report.words_kept + sum(report.dropped.values()) == \
+            len(frame) + sum(report.dropped.values())
     report = validate_word_table(dropped, FUNSD_LABELS)
     assert report.problems == [] and report.documents_used == 199
 
@@ -57,14 +62,17 @@ def test_reversed_and_overhanging_boxes_are_repaired(tmp_path):
     (tmp_path / "images" / "form.png").write_bytes(b"\x89PNG\r\n\x1a\n" + ihdr + b"\0" * 4)
     frame, report = import_form_json([path])
     assert frame[["x0", "y0", "x1", "y1"]].values.tolist() == [[10, 5, 30, 20], [40, 5, 100, 20]]
-    assert (report.boxes_reordered, report.boxes_clipped, report.empty_text_dropped) == (1, 1, 1)
+    assert report.repairs == {"boxes with swapped corners put in order": 1,
+                              "boxes clipped to the page": 1}
+    assert report.dropped == {"words without text": 1}
+    assert (report.words_read, report.words_kept) == (3, 2)
     assert frame["entity_id"].tolist() == ["e3", "e3"]
 
 
 def test_broken_file_is_reported(tmp_path):
     (tmp_path / "bad.json").write_text("{not json")
     frame, report = import_form_json([tmp_path])
-    assert len(frame) == 0 and len(report.problems) == 1 and "bad.json" in report.problems[0]
+    assert len(frame) == 0 and len(report.problems) == 1 and "bad.json" in str(report.problems[0])
 
 
 def test_bad_option():

@@ -15,7 +15,7 @@ from typing import Any
 import pandas as pd
 
 from dochar.data.importers.alto import read_alto
-from dochar.data.importers.base import WORD_COLUMNS, ImportProblem, ImportSummary
+from dochar.data.importers.base import WORD_COLUMNS, ImportSummary
 from dochar.data.importers.hocr import read_hocr
 from dochar.data.importers.image import IMAGE_SUFFIXES, OcrSettings, read_image
 from dochar.data.importers.label_transfer import TransferSettings, transfer_labels
@@ -33,21 +33,9 @@ FUNSD_STYLE_FOLDERS = ("training_data", "testing_data")
 
 def _read_form_json(path: Path, doc_id: str, summary: ImportSummary, ocr: bool,
                     settings: OcrSettings) -> list[dict]:
-    from dochar.data.importers.form_json import import_form_json
+    from dochar.data.importers.form_json import read_form_file
 
-    frame, report = import_form_json([path])
-    summary.files += report.files
-    summary.pages += report.files
-    summary.words_read += report.words + report.empty_text_dropped + report.words_unreadable
-    summary.dropped["words with an unreadable box"] += report.words_unreadable
-    summary.words_kept += report.words
-    summary.dropped["words without text"] += report.empty_text_dropped
-    summary.repairs["boxes with swapped corners put in order"] += report.boxes_reordered
-    summary.repairs["boxes clipped to the page"] += report.boxes_clipped
-    for text in report.problems:
-        source, _, message = text.partition(": ")
-        summary.problems.append(ImportProblem(source, message))
-    return frame.to_dict("records")
+    return read_form_file(path, summary)
 
 
 READERS: dict[str, Reader] = {

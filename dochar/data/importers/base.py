@@ -37,7 +37,8 @@ class ImportProblem:
 
 @dataclass
 class ImportSummary:
-    """Files, pages and words read; repairs by kind; everything skipped, with its reason."""
+    """Files, pages and words read; repairs by kind; everything skipped, with its reason; the
+    links the files carried (form JSON's ``linking``), as rows of the links table."""
 
     files: int = 0
     pages: int = 0
@@ -45,13 +46,29 @@ class ImportSummary:
     words_kept: int = 0
     repairs: Counter = field(default_factory=Counter)
     dropped: Counter = field(default_factory=Counter)
+    kept_as_given: Counter = field(default_factory=Counter)   # e.g. blank words, when asked to
     problems: list[ImportProblem] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
+    links: list[dict] = field(default_factory=list)
     transfer: object | None = None   # the label transfer's report, when labels were moved
 
     def problem(self, source: str | Path, message: str, page: int | None = None,
                 element: str | None = None) -> None:
         self.problems.append(ImportProblem(str(source), message, page, element))
+
+    def links_frame(self):
+        """The links read, as a links table (empty when the files carried none)."""
+        import pandas as pd
+
+        from dochar.data.links_table import LINK_COLUMNS, empty_links
+
+        if not self.links:
+            return empty_links()
+        return pd.DataFrame(self.links, columns=list(LINK_COLUMNS))
+
+    def summary(self) -> str:
+        """Everything :meth:`lines` says, on one line (for a log)."""
+        return "; ".join(self.lines())
 
     def lines(self) -> list[str]:
         lines = [f"{self.files} files, {self.pages} pages, {self.words_read} words read, "
@@ -60,6 +77,8 @@ class ImportSummary:
             lines.append(f"repaired: {count} {kind}")
         for kind, count in sorted(self.dropped.items()):
             lines.append(f"dropped: {count} {kind}")
+        for kind, count in sorted(self.kept_as_given.items()):
+            lines.append(f"kept as given: {count} {kind}")
         lines += [f"note: {note}" for note in self.notes]
         lines += [f"skipped: {problem}" for problem in self.problems]
         if self.transfer is not None:

@@ -24,42 +24,16 @@ import json
 import math
 import struct
 from collections.abc import Iterable
-from dataclasses import dataclass, field
 from pathlib import Path
 
 import pandas as pd
 from tqdm import tqdm
 
+from dochar.data.importers.base import ImportSummary
 from dochar.data.word_table import WordTableError
 
 SPLIT_FOLDERS = {"training_data": "train", "testing_data": "test"}
 LINK_RANK = {"header": 0, "question": 1, "answer": 2}   # lower rank is the link's source
-
-
-@dataclass
-class FormImportReport:
-    files: int = 0
-    words: int = 0
-    empty_text_dropped: int = 0
-    empty_text_kept: int = 0
-    boxes_reordered: int = 0
-    boxes_clipped: int = 0
-    words_unreadable: int = 0
-    problems: list[str] = field(default_factory=list)
-    links: list[dict] = field(default_factory=list)      # rows of the links table
-
-    def links_frame(self) -> pd.DataFrame:
-        from dochar.data.links_table import LINK_COLUMNS, empty_links
-
-        if not self.links:
-            return empty_links()
-        return pd.DataFrame(self.links, columns=list(LINK_COLUMNS))
-
-    def summary(self) -> str:
-        return (f"{self.files} forms, {self.words} words imported; empty-text words dropped "
-                f"{self.empty_text_dropped}, kept {self.empty_text_kept}; boxes reordered "
-                f"{self.boxes_reordered}, clipped {self.boxes_clipped}; words with an unreadable "
-                f"box skipped {self.words_unreadable}; problems reported {len(self.problems)}")
 
 
 def png_size(path: Path) -> tuple[int, int]:
@@ -85,71 +59,74 @@ def _box(word: object) -> tuple[float, float, float, float] | None:
 
 
 def _page_size(annotation: Path, boxes: list[tuple[float, ...]],
-               report: FormImportReport) -> tuple[float, float]:
+               report: ImportSummary) -> tuple[float, float]:
     image = annotation.parent.parent / "images" / f"{annotation.stem}.png"
     if image.exists():
         try:
             return png_size(image)
         except (WordTableError, OSError) as error:
-            report.problems.append(f"{image}: page size not readable ({error}); the words' "
-                                   f"extent is used")
+            report.problem(image, f"page size not readable ({error}); the words' extent "
+                                  f"is used")
     if not boxes:
         return 1.0, 1.0
     return max(1.0, max(b[2] for b in boxes)), max(1.0, max(b[3] for b in boxes))
 
 
-def _words(path: Path, form: list, report: FormImportReport) -> list[tuple[int, dict, dict, tuple]]:
+def _words(path: Path, form: list, report: ImportSummary) -> list[tuple[int, dict, dict, tuple]]:
     """(entity index, entity, word, box) of every readable word; the rest located and counted."""
     found = []
     for index, entity in enumerate(form):
         words = entity.get("words", []) if isinstance(entity, dict) else None
         if not isinstance(words, list):
-            report.problems.append(f"{path}: form[{index}]: expected an entity object with a "
-                                   f"'words' list; entity skipped")
+            report.problem(path, "expected an entity object with a 'words' list; entity "
+                                 "skipped", element=f"form[{index}]")
             continue
         for position, word in enumerate(words):
             box = _box(word)
             if box is None:
                 shown = word.get("box", "(missing)") if isinstance(word, dict) else word
-                report.problems.append(f"{path}: form[{index}].words[{position}]: 'box' must "
-                                       f"be four finite numbers [x0, y0, x1, y1], got "
-                                       f"{shown!r}; word skipped")
-                report.words_unreadable += 1
+                report.problem(path, f"'box' must be four finite numbers [x0, y0, x1, y1], "
+                                     f"got {shown!r}; word skipped",
+                               element=f"form[{index}].words[{position}]")
+                report.words_read += 1
+                report.dropped["words with an unreadable box"] += 1
                 continue
             found.append((index, entity, word, box))
     return found
 
 
-def read_form_file(path: Path, report: FormImportReport, *, split: str = "",
+def read_form_file(path: Path, report: ImportSummary, *, split: str = "",
                    empty_text: str = "drop") -> list[dict]:
+    """The rows of one form (one page); problems, repairs and links go into ``report``."""
     try:
         form = json.loads(path.read_text(encoding="utf-8"))["form"]
         if not isinstance(form, list):
             raise TypeError(f"'form' is a {type(form).__name__}, expected a list")
     except (json.JSONDecodeError, KeyError, TypeError, UnicodeDecodeError) as error:
-        report.problems.append(f"{path}: not a form-annotation file ({error}); file skipped")
+        report.problem(path, f"not a form-annotation file ({error}); file skipped")
         return []
     except OSError as error:
-        report.problems.append(f"{path}: cannot read the file ({error}); file skipped")
+        report.problem(path, f"cannot read the file ({error}); file skipped")
         return []
     words = _words(path, form, report)
     width, height = _page_size(path, [box for *_, box in words], report)
     rows: list[dict] = []
     for index, entity, word, (x0, y0, x1, y1) in words:
+        report.words_read += 1
         text = str(word.get("text", "")).strip()
         if not text:
             if empty_text == "drop":
-                report.empty_text_dropped += 1
+                report.dropped["words without text"] += 1
                 continue
-            report.empty_text_kept += 1
+            report.kept_as_given["words without text"] += 1
         if x1 < x0 or y1 < y0:
-            report.boxes_reordered += 1
+            report.repairs["boxes with swapped corners put in order"] += 1
             x0, x1 = sorted((x0, x1))
             y0, y1 = sorted((y0, y1))
         clipped = (min(max(x0, 0.0), width), min(max(y0, 0.0), height),
                    min(max(x1, 0.0), width), min(max(y1, 0.0), height))
         if clipped != (x0, y0, x1, y1):
-            report.boxes_clipped += 1
+            report.repairs["boxes clipped to the page"] += 1
         rows.append({"doc_id": path.stem, "page": 1, "word_id": len(rows), "text": text,
                      "x0": clipped[0], "y0": clipped[1], "x1": clipped[2],
                      "y1": clipped[3], "page_width": float(width),
@@ -157,7 +134,8 @@ def read_form_file(path: Path, report: FormImportReport, *, split: str = "",
                      "entity_id": f"e{entity.get('id', index)}", "layout_id": "",
                      "split": split})
     report.files += 1
-    report.words += len(rows)
+    report.pages += 1
+    report.words_kept += len(rows)
     report.links += form_links(form, path.stem)
     return rows
 
@@ -183,7 +161,7 @@ def form_links(form: list[dict], doc_id: str) -> list[dict]:
 
 
 def import_form_json(paths: Iterable[str | Path], *, empty_text: str = "drop",
-                     progress: bool = False) -> tuple[pd.DataFrame, FormImportReport]:
+                     progress: bool = False) -> tuple[pd.DataFrame, ImportSummary]:
     """Import annotation files or folders; a FUNSD-style root gives the official split column."""
     if empty_text not in {"drop", "keep"}:
         raise WordTableError(f"empty_text must be 'drop' or 'keep', got {empty_text!r}")
@@ -200,7 +178,7 @@ def import_form_json(paths: Iterable[str | Path], *, empty_text: str = "drop",
         if not found:
             raise WordTableError(f"{root}: no annotation JSON files found")
         files += found
-    report = FormImportReport()
+    report = ImportSummary()
     rows: list[dict] = []
     for file, split in tqdm(files, desc="importing", leave=False, disable=not progress):
         rows += read_form_file(file, report, split=split, empty_text=empty_text)
