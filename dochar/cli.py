@@ -57,10 +57,15 @@ def _check_tracking(cfg) -> None:
     try:
         MlflowClient(tracking_uri=uri).search_experiments(max_results=1)
     except Exception as error:  # MLflow wraps connection failures in several types
-        reason = " ".join(str(error).split())[:200]
+        reason = _one_line(error, 200)
         raise DocharError(f"tracking server {uri} cannot be reached ({type(error).__name__}: "
                           f"{reason}); start it, point tracking.uri or MLFLOW_TRACKING_URI "
                           f"elsewhere, or run with tracking.enabled=false") from error
+
+
+def _one_line(error: BaseException, limit: int) -> str:
+    """An error's message with its whitespace folded, cut to ``limit`` characters."""
+    return " ".join(str(error).split())[:limit]
 
 
 def _finish(cfg, bundle, model) -> float:
@@ -83,7 +88,7 @@ def _finish(cfg, bundle, model) -> float:
             log_run(bundle, folder, uri=uri, experiment=str(cfg.tracking.experiment))
         except Exception as error:  # the store went away during the run: say so, keep the folder
             bundle.save(folder)
-            reason = " ".join(str(error).split())[:300]
+            reason = _one_line(error, 300)
             raise DocharError(f"tracking server {uri} failed while logging the run "
                               f"({type(error).__name__}: {mask_passwords(reason)}); the "
                               f"finished run is kept in {folder}") from error
