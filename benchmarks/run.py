@@ -44,11 +44,11 @@ def main(argv: list[str] | None = None) -> int:
     judged = not args.smoke
     sizes = SMOKE if args.smoke else FULL
     repeats = 1 if args.smoke else args.repeats
-    scale = args.scale_sizes or ([20, 40] if args.smoke else [100, 300, 1000, 3000])
+    scale = args.scale_sizes or ([20, 40] if args.smoke else [100, 1000, 10_000])
     with threadpool_limits(limits=1):
         figures = builder_figures(sizes["small"], sizes["large"], sizes["huge"], repeats, judged)
         if args.smoke:
-            inputs = run_inputs([*SYNTH_PRESET, "data.documents=12"])
+            inputs = run_inputs([*SYNTH_PRESET, "data.documents=12", "train.max_epochs=3"])
         else:
             inputs = run_inputs(FUNSD_PRESET, datasets_root())
         figures += training_figures(inputs, repeats, judged, trees=20 if args.smoke else 300)

@@ -1,8 +1,8 @@
 """`make bench` in smoke mode: every figure is computed on small inputs, correctness is judged.
 
 No timing verdicts here (a shared CI machine); the smoke run must still build every figure,
-find the new builders' edges identical to the brute-force reference builders, and write the
-table with one row per figure.
+find the new builders' edges identical to the brute-force reference builders and the new
+layers' outputs equal to the reference model's, and write the table with one row per figure.
 """
 
 from __future__ import annotations
@@ -15,8 +15,10 @@ def test_smoke_bench_writes_every_figure(tmp_path):
     assert main(["--smoke", "--out", str(out)]) == 0
     rows = [line for line in out.read_text(encoding="utf-8").splitlines()
             if line.startswith("| ") and not line.startswith("| figure")]
-    assert len(rows) == 21
+    assert len(rows) == 22
     identical = [r for r in rows if "edges identical" in r]
     assert len(identical) == 3 and all("| yes |" in r and r.endswith("| met |") for r in identical)
-    timed = [r for r in rows if "≤" in r or "≥" in r]
-    assert all(r.endswith("| not judged (smoke) |") for r in timed if "identical" not in r)
+    same = [r for r in rows if "reference's function" in r]
+    assert len(same) == 1 and same[0].endswith("| met |")
+    timed = [r for r in rows if ("≤" in r or "≥" in r) and r not in identical + same]
+    assert timed and all(r.endswith("| not judged (smoke) |") for r in timed)

@@ -9,12 +9,15 @@ For a word with character ids c_1..c_m (m real characters, then padding) and eac
 
 Windows start only on real characters and may run into the zero padding, so the output does not
 depend on how much padding follows the word. A word with no characters pools to zeros.
+Pages repeat their words ("Date", ":", "mg/kg"), so each distinct id row is encoded once and
+scattered back: the same output and gradients for less work.
 """
 
 from __future__ import annotations
 
 from collections.abc import Sequence
 
+import numpy as np
 import torch
 import torch.nn.functional as F
 from torch import nn
@@ -53,6 +56,11 @@ class CharCNNEncoder(nn.Module):
         if ids.numel() and (int(ids.min()) < 0 or int(ids.max()) >= self.vocab_size):
             raise ValueError(f"CharCNNEncoder: ids must lie in [0, {self.vocab_size}), "
                              f"got range [{int(ids.min())}, {int(ids.max())}]")
+        distinct, rows = _distinct_rows(ids)
+        pooled = self._pool(distinct).index_select(0, rows)   # dropout stays per occurrence
+        return self.project(self.dropout(pooled))
+
+    def _pool(self, ids: torch.Tensor) -> torch.Tensor:
         mask = (ids != PAD_ID).unsqueeze(1)                 # (n, 1, L): real start positions
         embedded = self.embedding(ids).transpose(1, 2)      # (n, D, L)
         pooled = []
@@ -62,4 +70,13 @@ class CharCNNEncoder(nn.Module):
             # after ReLU every value is >= 0, so zeroing masked positions leaves the max over
             # real positions unchanged and gives 0 for a word with no characters
             pooled.append((activations * mask).amax(dim=2))
-        return self.project(self.dropout(torch.cat(pooled, dim=1)))
+        return torch.cat(pooled, dim=1)
+
+
+def _distinct_rows(ids: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor]:
+    """The distinct rows of ``ids`` and each row's index among them. NumPy compares a row as one
+    block of bytes; ``torch.unique(dim=0)`` compares element by element and is ~10x slower here."""
+    block = np.ascontiguousarray(ids.numpy())
+    keys = block.view(np.dtype((np.void, block.dtype.itemsize * block.shape[1]))).ravel()
+    _, first, rows = np.unique(keys, return_index=True, return_inverse=True)
+    return ids[torch.from_numpy(first)], torch.from_numpy(rows.ravel())

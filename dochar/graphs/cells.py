@@ -148,3 +148,17 @@ def order_within_groups(group: np.ndarray, keys: tuple[np.ndarray, ...]) -> np.n
         slots = starts[rows, None] + cols[None, :]
         order[slots[member]] = ranked[member]
     return order
+
+
+def group_minima(group: np.ndarray, keys: tuple[np.ndarray, ...], groups: int) -> np.ndarray:
+    """For each group present, the entry that sorts first by ``keys`` in turn (first index on a
+    full tie), in ascending group order: the head of each group of :func:`order_within_groups`
+    without sorting, one pass of ``np.minimum.at`` per key over the entries still tied."""
+    alive = np.arange(len(group))
+    for key in keys:
+        low = np.full(groups, np.inf)
+        np.minimum.at(low, group[alive], key[alive])
+        alive = alive[key[alive] == low[group[alive]]]
+    order = np.argsort(group[alive], kind="stable")
+    alive, heads = alive[order], group[alive][order]
+    return alive[np.r_[True, heads[1:] != heads[:-1]]] if len(alive) else alive

@@ -24,7 +24,7 @@ import numpy as np
 from dochar.data.word_table import Page
 from dochar.graphs.base import (ABOVE, BELOW, DIRECTIONS, LEFT, RIGHT, GraphBuilderError, TypedEdges,
                                 direction_codes, make_edges, no_edges)
-from dochar.graphs.cells import CellIndex, cell_index, order_within_groups
+from dochar.graphs.cells import CellIndex, cell_index, group_minima
 from dochar.graphs.geometry import PageGeometry, page_geometry
 
 SECTORS = len(DIRECTIONS)
@@ -68,9 +68,8 @@ def sector_neighbours(geo: PageGeometry, limit2: float
         usable = (box != pending[query]) & (gap2 <= limit2)
         query, box, gap2, centre2 = query[usable], box[usable], gap2[usable], centre2[usable]
         code = direction_codes(dx[usable], dy[usable])
-        order = order_within_groups(query, (code, gap2, centre2, geo.rank[box]))
-        group, box, gap2 = query[order] * SECTORS + code[order], box[order], gap2[order]
-        best = np.flatnonzero(np.r_[True, group[1:] != group[:-1]]) if len(group) else group
+        group = query * SECTORS + code
+        best = group_minima(group, (gap2, centre2, geo.rank[box]), len(pending) * SECTORS)
         found = np.zeros(len(pending) * SECTORS, dtype=bool)
         found[group[best]] = gap2[best] < index.gap_bound2(reach)
         bound_passes_limit = limit2 < index.gap_bound2(reach)
