@@ -24,6 +24,8 @@ class PageGeometry:
     centres: np.ndarray   # (n, 2)
     rank: np.ndarray      # (n,) int64: position of each word in word_id order
     diagonal: float
+    box_columns: np.ndarray     # (4, n) contiguous: x0, y0, x1, y1 (pairs gather from these)
+    centre_columns: np.ndarray  # (2, n) contiguous
 
     @property
     def n(self) -> int:
@@ -34,13 +36,13 @@ class PageGeometry:
         """Per (target, source) pair: squared box gap, squared centre distance, centre offset.
 
         The same products and sums as a plain loop over the pair, so the ranking keys match it
-        bit for bit.
+        bit for bit. ``target`` and ``source`` may broadcast ((n, 1) against (1, m): a matrix).
         """
-        a, b = self.boxes[target], self.boxes[source]
-        gx = np.maximum(0.0, np.maximum(b[:, 0] - a[:, 2], a[:, 0] - b[:, 2]))
-        gy = np.maximum(0.0, np.maximum(b[:, 1] - a[:, 3], a[:, 1] - b[:, 3]))
-        dx = self.centres[source, 0] - self.centres[target, 0]
-        dy = self.centres[source, 1] - self.centres[target, 1]
+        x0, y0, x1, y1 = self.box_columns
+        gx = np.maximum(0.0, np.maximum(x0[source] - x1[target], x0[target] - x1[source]))
+        gy = np.maximum(0.0, np.maximum(y0[source] - y1[target], y0[target] - y1[source]))
+        dx = self.centre_columns[0][source] - self.centre_columns[0][target]
+        dy = self.centre_columns[1][source] - self.centre_columns[1][target]
         return gx * gx + gy * gy, dx * dx + dy * dy, dx, dy
 
 
@@ -72,4 +74,5 @@ def page_geometry(page: Page, builder: str) -> PageGeometry:
     rank = np.empty(n, dtype=np.int64)
     rank[np.argsort(word_ids, kind="stable")] = np.arange(n)
     centres = np.column_stack([(boxes[:, 0] + boxes[:, 2]) / 2, (boxes[:, 1] + boxes[:, 3]) / 2])
-    return PageGeometry(boxes, centres, rank, float(np.hypot(page.width, page.height)))
+    return PageGeometry(boxes, centres, rank, float(np.hypot(page.width, page.height)),
+                        np.ascontiguousarray(boxes.T), np.ascontiguousarray(centres.T))

@@ -8,6 +8,8 @@ in, by the dominant axis of the centre offset (:func:`dochar.graphs.base.directi
 Search: candidates come from a window of grid cells around the target (:mod:`dochar.graphs.cells`);
 the window's answer stands once it holds k words nearer than the gap every box outside the window
 must exceed, otherwise that target's window doubles. Near-linear on real pages, exact on any page.
+A page of at most ``DENSE_UP_TO`` words ranks all its pairs at once instead: on a form-sized
+page that is cheaper than building the grid, and the ranking keys are the same.
 """
 
 from __future__ import annotations
@@ -22,6 +24,8 @@ from dochar.graphs.base import (DIRECTIONS, GraphBuilderError, TypedEdges, direc
                                 make_edges, no_edges)
 from dochar.graphs.cells import cell_index, order_within_groups
 from dochar.graphs.geometry import PageGeometry, page_geometry
+
+DENSE_UP_TO = 200   # words; about where the two searches cost the same on benchmarks/pages.py pages
 
 
 @dataclass(frozen=True)
@@ -48,6 +52,8 @@ class KnnBuilder:
 
 def nearest_words(geo: PageGeometry, take: int) -> tuple[np.ndarray, np.ndarray]:
     """The ``take`` nearest other words of every word: (sources, targets)."""
+    if geo.n <= DENSE_UP_TO:
+        return nearest_words_all_pairs(geo, take)
     index = cell_index(geo.boxes)
     pending, reach = np.arange(geo.n), index.first_reach(2.0)
     sources, targets = [], []
@@ -68,3 +74,19 @@ def nearest_words(geo: PageGeometry, take: int) -> tuple[np.ndarray, np.ndarray]
         targets.append(pending[query[kept]])
         pending, reach = pending[~done], reach * 2
     return np.concatenate(sources), np.concatenate(targets)
+
+
+def nearest_words_all_pairs(geo: PageGeometry, take: int) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`nearest_words` by ranking, per target, the pairs within its take-th smallest gap."""
+    n = geo.n
+    everyone = np.arange(n)
+    gap2, centre2, _, _ = geo.pair_keys(everyone[:, None], everyone[None, :])   # (n, n) each
+    gap2[everyone, everyone] = np.inf                          # a word is not its own neighbour
+    kth = np.partition(gap2, take - 1, axis=1)[:, take - 1]
+    query, box = np.nonzero(gap2 <= kth[:, None])               # ties at the cut included
+    order = order_within_groups(query, (gap2[query, box], centre2[query, box],
+                                        geo.rank[box]))
+    query, box = query[order], box[order]
+    first = np.searchsorted(query, np.arange(n))
+    kept = np.arange(len(query)) - first[query] < take
+    return box[kept], query[kept]

@@ -7,6 +7,7 @@ squared distances, as the builders do, so ties are exact on both sides.
 from __future__ import annotations
 
 import itertools
+from unittest import mock
 
 import numpy as np
 import pytest
@@ -16,6 +17,7 @@ from scipy.spatial import cKDTree
 
 from benchmarks.pages import text_page
 from benchmarks.reference_builders import REFERENCE_BUILDERS
+import dochar.graphs.knn as knn_module
 from dochar.data.word_table import Page
 from dochar.graphs import BUILDERS, GraphBuilderError, make_graph_builder
 from dochar.graphs.gutters import crossing, find_gutters
@@ -210,12 +212,21 @@ ORACLES = {
 }
 
 
+def knn_searches():
+    """Run the loop body once with kNN's grid search and once with its all-pairs search (small
+    pages take the latter by default, so each oracle test covers both)."""
+    for dense_up_to in (0, 10**9):
+        with mock.patch.object(knn_module, "DENSE_UP_TO", dense_up_to):
+            yield dense_up_to
+
+
 @pytest.mark.parametrize("name", sorted(ORACLES))
 @pytest.mark.parametrize("seed", range(4))
 def test_builder_matches_oracle_on_random_pages(name, seed):
     rng = np.random.default_rng(seed)
     page = random_page(rng, int(rng.integers(15, 40)))
-    assert edge_set(make_graph_builder(name)(page)) == ORACLES[name](page)
+    for search in knn_searches():
+        assert edge_set(make_graph_builder(name)(page)) == ORACLES[name](page), search
 
 
 @settings(max_examples=60, deadline=None)
@@ -224,7 +235,9 @@ def test_builders_match_oracles_on_tied_grid_pages(page):
     for name, oracle in ORACLES.items():
         assert edge_set(make_graph_builder(name)(page)) == oracle(page), name
     assert edge_set(make_graph_builder("sector", max_distance=0.1)(page)) == oracle_sector(page, 0.1)
-    assert edge_set(make_graph_builder("knn", k=2)(page)) == oracle_knn(page, 2)
+    for search in knn_searches():
+        assert edge_set(make_graph_builder("knn", k=2)(page)) == oracle_knn(page, 2), search
+        assert edge_set(make_graph_builder("knn")(page)) == oracle_knn(page, 6), search
 
 
 @settings(max_examples=40, deadline=None)
@@ -234,8 +247,9 @@ def test_window_searches_match_oracles_on_adversarial_pages(page):
     # test every pair, so any window that stops too early shows up as a missing edge
     for name in ("sector", "knn", "line_of_sight"):
         assert edge_set(make_graph_builder(name)(page)) == ORACLES[name](page), name
-    assert edge_set(make_graph_builder("knn", k=1)(page)) == oracle_knn(page, 1)
-    assert edge_set(make_graph_builder("knn", k=15)(page)) == oracle_knn(page, 15)
+    for search in knn_searches():
+        assert edge_set(make_graph_builder("knn", k=1)(page)) == oracle_knn(page, 1), search
+        assert edge_set(make_graph_builder("knn", k=15)(page)) == oracle_knn(page, 15), search
     assert edge_set(make_graph_builder("sector", max_distance=0.05)(page)) == \
         oracle_sector(page, 0.05)
 
