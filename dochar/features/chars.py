@@ -38,13 +38,13 @@ def char_ids(texts: Sequence[str], max_chars: int = 16) -> np.ndarray:
     """
     if max_chars < 1:
         raise ValueError(f"char_ids: max_chars must be at least 1, got {max_chars}")
-    ids = np.zeros((len(texts), max_chars), dtype=np.int64)
+    rows = []
     for row, text in enumerate(texts):
         if not isinstance(text, str):
             raise TypeError(f"char_ids: text {row} is {type(text).__name__}, expected str")
-        for column, ch in enumerate(text[:max_chars]):
-            ids[row, column] = _CHAR_TO_ID.get(ch, UNKNOWN_ID)
-    return ids
+        known = [_CHAR_TO_ID.get(ch, UNKNOWN_ID) for ch in text[:max_chars]]
+        rows.append(known + [PAD_ID] * (max_chars - len(known)))
+    return np.array(rows, dtype=np.int64).reshape(len(rows), max_chars)
 
 
 def char_ngram_hashes(texts: Sequence[str], n_features: int = 256,
