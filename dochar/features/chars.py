@@ -28,6 +28,10 @@ CHAR_VOCAB: str = ("".join(chr(c) for c in range(0x20, 0x7F))
 CHAR_VOCAB_SIZE: int = 2 + len(CHAR_VOCAB)
 _CHAR_TO_ID: dict[str, int] = {ch: index + 2 for index, ch in enumerate(CHAR_VOCAB)}
 assert len(_CHAR_TO_ID) == len(CHAR_VOCAB), "character vocabulary holds a duplicate"
+# id of every code point up to the highest in the vocabulary, plus one slot for all above it
+_ID_OF_CODE_POINT = np.full(max(map(ord, CHAR_VOCAB)) + 2, UNKNOWN_ID, dtype=np.int64)
+_ID_OF_CODE_POINT[0] = PAD_ID
+_ID_OF_CODE_POINT[[ord(ch) for ch in CHAR_VOCAB]] = [_CHAR_TO_ID[ch] for ch in CHAR_VOCAB]
 
 
 def char_ids(texts: Sequence[str], max_chars: int = 16) -> np.ndarray:
@@ -38,13 +42,21 @@ def char_ids(texts: Sequence[str], max_chars: int = 16) -> np.ndarray:
     """
     if max_chars < 1:
         raise ValueError(f"char_ids: max_chars must be at least 1, got {max_chars}")
-    rows = []
+    texts = list(texts)
     for row, text in enumerate(texts):
         if not isinstance(text, str):
             raise TypeError(f"char_ids: text {row} is {type(text).__name__}, expected str")
-        known = [_CHAR_TO_ID.get(ch, UNKNOWN_ID) for ch in text[:max_chars]]
-        rows.append(known + [PAD_ID] * (max_chars - len(known)))
-    return np.array(rows, dtype=np.int64).reshape(len(rows), max_chars)
+    if not texts:
+        return np.zeros((0, max_chars), dtype=np.int64)
+    # NumPy's fixed-width strings cut each text at max_chars and pad it with code point 0,
+    # so one table lookup maps every position; a real U+0000 in a text is redone by hand
+    points = np.array(texts, dtype=f"<U{max_chars}").view(np.uint32).reshape(len(texts),
+                                                                             max_chars)
+    ids = _ID_OF_CODE_POINT[np.minimum(points, len(_ID_OF_CODE_POINT) - 1)]
+    for row in (row for row, text in enumerate(texts) if "\0" in text):
+        known = [_CHAR_TO_ID.get(ch, UNKNOWN_ID) for ch in texts[row][:max_chars]]
+        ids[row] = known + [PAD_ID] * (max_chars - len(known))
+    return ids
 
 
 def char_ngram_hashes(texts: Sequence[str], n_features: int = 256,

@@ -39,11 +39,15 @@ class PageGeometry:
         bit for bit. ``target`` and ``source`` may broadcast ((n, 1) against (1, m): a matrix).
         """
         x0, y0, x1, y1 = self.box_columns
-        gx = np.maximum(0.0, np.maximum(x0[source] - x1[target], x0[target] - x1[source]))
-        gy = np.maximum(0.0, np.maximum(y0[source] - y1[target], y0[target] - y1[source]))
-        dx = self.centre_columns[0][source] - self.centre_columns[0][target]
-        dy = self.centre_columns[1][source] - self.centre_columns[1][target]
-        return gx * gx + gy * gy, dx * dx + dy * dy, dx, dy
+        (cx, cy), gaps = self.centre_columns, []
+        for low, high in ((x0, x1), (y0, y1)):
+            gap = low[source] - high[target]
+            np.maximum(gap, low[target] - high[source], out=gap)
+            np.maximum(gap, 0.0, out=gap)
+            gaps.append(np.multiply(gap, gap, out=gap))
+        dx, dy = cx[source] - cx[target], cy[source] - cy[target]
+        # few, reused buffers: a fresh large array costs page faults, more than the arithmetic
+        return np.add(*gaps, out=gaps[0]), dx * dx + dy * dy, dx, dy
 
 
 def row_blocks(n: int, budget: int = PAIR_BUDGET) -> Iterator[slice]:

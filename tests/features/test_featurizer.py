@@ -252,6 +252,22 @@ def test_standardize_matches_sklearn_standard_scaler():
         WordFeaturizer(standardize=True).fit([])
 
 
+@pytest.mark.parametrize("decimals", [0, 1, 3])
+def test_rank_columns_are_scipy_average_ranks(decimals):
+    # reference: scipy.stats.rankdata(method="average"), scaled (r - 1) / (n - 1); rounding the
+    # centres makes ties common
+    from scipy.stats import rankdata
+
+    rng = np.random.default_rng(decimals)
+    boxes = np.round(rng.uniform(0, 90, (60, 2)), decimals)
+    boxes = np.column_stack([boxes, boxes + 5])
+    g = geometry_features(make_page([""] * len(boxes), boxes.tolist(), width=100, height=100))
+    for column, axis in (("rank_x", 0), ("rank_y", 1)):
+        centres = (boxes[:, axis] + boxes[:, axis + 2]) / 2
+        expected = (rankdata(centres, method="average") - 1) / (len(centres) - 1)
+        np.testing.assert_allclose(g[:, GEOMETRY_NAMES.index(column)], expected, atol=1e-6)
+
+
 # ---------------------------------------------------------------- characters
 
 def test_char_ids_padding_unknown_truncation():
@@ -263,6 +279,23 @@ def test_char_ids_padding_unknown_truncation():
     assert ids[3].tolist() == char_ids(["abcd"], 4)[0].tolist()   # truncated to the first 4
     assert CHAR_VOCAB_SIZE == len(CHAR_VOCAB) + 2 == len(set(CHAR_VOCAB)) + 2
     assert char_ids(["~" * 20], 20).max() < CHAR_VOCAB_SIZE
+
+
+@pytest.mark.parametrize("max_chars", [1, 3, 16])
+def test_char_ids_match_the_vocabulary_position_of_each_character(max_chars):
+    # the id is the character's position in CHAR_VOCAB plus 2 (the module docstring's rule),
+    # looked up one character at a time; texts mix NUL, astral and out-of-vocabulary characters
+    rng = np.random.default_rng(0)
+    alphabet = list(CHAR_VOCAB[:40]) + ["\0", "字", "\U0001F600", "✗", "✘", "µ"]
+    texts = ["".join(rng.choice(alphabet, size=int(rng.integers(0, 20)))) for _ in range(300)]
+    texts += ["\0", "a\0", "\0\0b"]
+    expected = np.zeros((len(texts), max_chars), dtype=np.int64)
+    for row, text in enumerate(texts):
+        for column, ch in enumerate(text[:max_chars]):
+            expected[row, column] = CHAR_VOCAB.index(ch) + 2 if ch in CHAR_VOCAB else 1
+    np.testing.assert_array_equal(char_ids(texts, max_chars), expected)
+    with pytest.raises(TypeError, match="text 1 is NoneType"):
+        char_ids(["a", None], max_chars)
 
 
 def test_char_cnn_hand_computed_case():
