@@ -37,6 +37,7 @@ FIGURES: dict[str, Figure] = {
     "funsd-leakage": Figure(cheap.funsd_leakage, cheap=True),
     "funsd-entity-ceiling": Figure(cheap.funsd_entity_ceiling, cheap=True),
     "funsd-blank-links": Figure(cheap.funsd_blank_links, cheap=True),
+    "benchmarks": Figure(cheap.benchmarks, cheap=True),
     "gate-tolerances": Figure(gate_spread.gate_tolerances, cheap=False, takes_keep=True),
     "layout-held-out": Figure(tables.layout_held_out, cheap=False, takes_keep=True),
     "demo": Figure(tables.demo, cheap=False, takes_keep=True),

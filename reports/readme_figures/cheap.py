@@ -116,3 +116,14 @@ def funsd_blank_links() -> str:
             f"`data.empty_text=drop`; with `keep`, {kept['links_unknown_entity']} links lose an "
             f"end) and are dropped and counted ({today()}, "
             f"`python -m reports.readme_figures --only funsd-blank-links`).\n")
+
+
+def benchmarks() -> str:
+    """The table ``make bench`` last wrote (reports/benchmarks.md), as the README quotes it: the
+    bench's own file is the record, so the README cannot drift from it."""
+    path = REPO / "reports" / "benchmarks.md"
+    if not path.is_file():
+        raise FigureUnavailable(f"{path} not found: run `make bench` first")
+    lines = path.read_text(encoding="utf-8").splitlines()
+    body = [line for line in lines if not line.startswith("# ")]
+    return "\n".join(body).strip() + "\n"
