@@ -1,8 +1,9 @@
 """Inputs for the training and prediction benchmarks, built the way a run builds them.
 
 One place composes a config (the FUNSD R-GCN preset ``+experiment=funsd_rgcn``: kNN graph k=8,
-3 blocks x 128, with geometry, text flags and the char CNN; or the same model on synthetic certificates), splits, builds
-graphs and features, and makes the model, so every timing starts from what a run trains on.
+3 blocks x 128, with geometry, text flags and the char CNN; or the same model on synthetic
+certificates), splits, builds graphs and features, and makes the model, so every timing starts
+from what a run trains on.
 """
 
 from __future__ import annotations

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 from collections.abc import Iterator
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 
@@ -24,8 +25,15 @@ class PageGeometry:
     centres: np.ndarray   # (n, 2)
     rank: np.ndarray      # (n,) int64: position of each word in word_id order
     diagonal: float
-    box_columns: np.ndarray     # (4, n) contiguous: x0, y0, x1, y1 (pairs gather from these)
-    centre_columns: np.ndarray  # (2, n) contiguous
+
+    @cached_property
+    def box_columns(self) -> np.ndarray:
+        """(4, n) contiguous x0, y0, x1, y1: pairs gather from these, not from strided rows."""
+        return np.ascontiguousarray(self.boxes.T)
+
+    @cached_property
+    def centre_columns(self) -> np.ndarray:
+        return np.ascontiguousarray(self.centres.T)
 
     @property
     def n(self) -> int:
@@ -78,5 +86,4 @@ def page_geometry(page: Page, builder: str) -> PageGeometry:
     rank = np.empty(n, dtype=np.int64)
     rank[np.argsort(word_ids, kind="stable")] = np.arange(n)
     centres = np.column_stack([(boxes[:, 0] + boxes[:, 2]) / 2, (boxes[:, 1] + boxes[:, 3]) / 2])
-    return PageGeometry(boxes, centres, rank, float(np.hypot(page.width, page.height)),
-                        np.ascontiguousarray(boxes.T), np.ascontiguousarray(centres.T))
+    return PageGeometry(boxes, centres, rank, float(np.hypot(page.width, page.height)))
