@@ -27,6 +27,7 @@ from dochar.data.word_table import iter_pages, validate_word_table
 from dochar import graphs as graph_builders
 from dochar.features import CharCNNEncoder, WordFeaturizer
 from dochar.models.gnn import GNNStack
+from dochar.models.objectives import NodeClasses
 from dochar.models.training import seed_everything, train
 
 
@@ -48,7 +49,7 @@ def measure(documents: int) -> dict[str, float]:
                      depth=cfg.model.depth, dropout=cfg.model.dropout, char_encoder=encoder,
                      char_dim=int(cfg.features.char_cnn.out_dim))
     one_epoch = {**OmegaConf.to_container(cfg.train), "max_epochs": 1}
-    train(model, graphs, [], len(labels), one_epoch, 0)
+    train(model, graphs, [], NodeClasses(len(labels)), one_epoch, 0)
     return {"documents": documents, "words": len(table), "seconds": time.process_time() - started,
             "peak_mb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024}
 

@@ -23,7 +23,8 @@ from dochar.models.inputs import label_indices, to_graphs, to_matrix
 from dochar import graphs as graph_builders
 from dochar.graphs.base import no_edges
 from dochar.models.baselines import make_baseline
-from dochar.models.training import class_weights, predict_proba, seed_everything, train
+from dochar.models.objectives import NodeClasses
+from dochar.models.training import predict_proba, seed_everything, train
 
 
 def training_figures(inputs: RunInputs, repeats: int, judged: bool, trees: int = 300
@@ -37,15 +38,16 @@ def training_figures(inputs: RunInputs, repeats: int, judged: bool, trees: int =
     reference = reference_copy(model)
     same = same_function(model, reference, graphs["train"][:8])
     epoch, reference_epoch = (
-        timed(lambda m=m: train(m, graphs["train"], graphs["val"], len(inputs.labels), one_epoch,
-                                0), repeats) for m in (model, reference))
+        timed(lambda m=m: train(m, graphs["train"], graphs["val"],
+                                NodeClasses(len(inputs.labels)), one_epoch, 0), repeats)
+        for m in (model, reference))
     floor = timed(dense_products(inputs, graphs["train"]), repeats)
     words = sum(len(p) for p in inputs.sets["train"].pages)
     forest, forest_fit = fitted_forest(inputs, index, trees)
     full = {**OmegaConf.to_container(inputs.cfg.train), "progress": False}
     history = []
     to_stop = timed(lambda: history.append(train(inputs.model(), graphs["train"], graphs["val"],
-                                                 len(inputs.labels), full, 0)))
+                                                 NodeClasses(len(inputs.labels)), full, 0)))
     return [
         Figure("new layers compute the reference's function (largest logit difference)",
                f"{same:.1e}", "before issue 14", comparison="<=", threshold=1e-4,

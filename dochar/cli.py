@@ -246,7 +246,7 @@ def _compare(args: argparse.Namespace) -> int:
         raise
     except ValueError as error:   # dochar.runs.compare names the unusable --score or label set
         raise DocharError(str(error)) from error
-    print(format_comparison(run_a, run_b, result, args.score))
+    print(format_comparison(run_a, run_b, result, args.score or run_a.headline))
     return 0
 
 
@@ -269,7 +269,8 @@ def _report(args: argparse.Namespace) -> int:
                                  + (f", sweep {sweep!r}" if sweep else "")
                                  + f" at {args.tracking_uri}")
     out = Path(args.out or Path("reports") / f"{name}.html")
-    path = write_report(bundles, out, title=f"dochar — {name}", score=args.score,
+    path = write_report(bundles, out, title=f"dochar — {name}",
+                        score=args.score or bundles[0].headline,
                         reference=args.reference, reference_model=args.reference_model)
     print(f"report written: {path.resolve()}")
     return 0
@@ -300,7 +301,8 @@ def _parser() -> argparse.ArgumentParser:
         sub.add_argument("--experiment", help="MLflow experiment name")
         sub.add_argument("--tracking-uri", default=resolve_uri(), help="MLflow store")
         if score:
-            sub.add_argument("--score", default="macro_f1", help="metric to rank/compare by")
+            sub.add_argument("--score", default=None,
+                             help="metric to rank/compare by (default: the runs' headline score)")
 
     compare = commands.add_parser("compare", help="paired comparison of two runs")
     compare.add_argument("run_a", help="run id, its first characters, or a run folder")

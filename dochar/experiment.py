@@ -7,8 +7,6 @@ this file only wires them in the order of the data flow and records what it did.
 from __future__ import annotations
 
 import logging
-from typing import Any
-
 import numpy as np
 import pandas as pd
 import torch
@@ -20,26 +18,30 @@ from dochar.data.word_table import iter_pages, table_fingerprint
 from dochar.features import WordFeaturizer
 from dochar.graphs.diagnostics import graph_stats
 from dochar.metrics.evaluate import evaluate
-from dochar.models.fit import fit_model, system_name
+from dochar.graphs.candidates import CandidateOptions
+from dochar.models.fit import FitInputs, FittedModel, fit_model, system_name
 from dochar.models.inputs import PageSet
+from dochar.models.pairs import PageCandidates, page_candidates
 from dochar.models.training import seed_everything
 from dochar.runs.bundle import RunBundle
-from dochar.runs.frames import edge_frame, prediction_frame
+from dochar.runs.frames import edge_frame, pair_frame, prediction_frame
 from dochar.splits import PARTS, split_run
 
 log = logging.getLogger(__name__)
 
 
 def check_names(cfg: DictConfig) -> None:
-    """Fail on an unknown builder, layer or estimator before any data is loaded."""
+    """Fail on an unknown task, builder, layer or estimator before any data is loaded."""
     from dochar.models.baselines import BASELINES, TEMPLATE_BASELINES
     from dochar.models.layers import LAYERS
 
-    if cfg.task.name != "links":   # links options are read by dochar.link_experiment
-        tasks.from_config(cfg.get("task"))
+    task = tasks.from_config(cfg.get("task"))
     if cfg.model.kind not in {"gnn", "baseline", "template"}:
         raise graphs.GraphBuilderError(f"model.kind must be 'gnn', 'baseline' or 'template', "
                                        f"got {cfg.model.kind!r}")
+    if cfg.model.kind == "template" and task.target != tasks.NODES:
+        raise tasks.TaskError(f"model.kind=template labels words; task {task.name!r} scores "
+                              "pairs: choose a GNN or a baseline")
     chosen = [("graph.name", cfg.graph.name, graphs.BUILDERS)]
     chosen.append(("model.layer", cfg.model.layer, LAYERS) if cfg.model.kind == "gnn"
                   else ("model.estimator", cfg.model.estimator,
@@ -54,8 +56,10 @@ def run_name(cfg: DictConfig) -> str:
     if cfg.get("run_name"):
         return str(cfg.run_name)
     system = system_name(cfg.model)
+    task = tasks.from_config(cfg.get("task"))
+    prefix = f"{task.label}:" if task.label else ""
     if cfg.model.kind == "template":   # reads positions only: no graph, no features
-        return system
+        return prefix + system
     if cfg.model.kind != "gnn" and cfg.model.get("neighbour_features"):
         system += "+neighbours"
     if cfg.model.kind == "gnn" and (cfg.model.layer_options or {}).get("num_bases"):
@@ -65,13 +69,7 @@ def run_name(cfg: DictConfig) -> str:
                          ("self_loops", "self")):
         if cfg.graph.get(option):
             graph += f"+{mark}"
-    name = f"{system}/{graph}/{'+'.join(cfg.features.groups)}"
-    task = tasks.from_config(cfg.get("task"))
-    if task.name == "entity_tags":
-        return f"{task.name}[{task.scheme}]:{name}"
-    if task.name == "segment_labels":
-        return f"{task.name}[{task.segments}]:{name}"
-    return name
+    return f"{prefix}{system}/{graph}/{'+'.join(cfg.features.groups)}"
 
 
 def document_table(table: pd.DataFrame, part_of: dict[str, str]) -> pd.DataFrame:
@@ -84,12 +82,41 @@ def document_table(table: pd.DataFrame, part_of: dict[str, str]) -> pd.DataFrame
     return frame[frame["part"].notna()]
 
 
-def run_experiment(cfg: DictConfig) -> tuple[RunBundle, Any]:
-    """Run the composed config; returns the run's bundle and the fitted model."""
+def _candidates(task: tasks.Task, task_pages: dict[str, list], sets: dict[str, PageSet]
+                ) -> dict[str, list[PageCandidates]] | None:
+    """Candidate pairs per part for tasks that score pairs (None for node tasks)."""
+    if task.target != tasks.PAIRS:
+        return None
+    options = CandidateOptions(str(task.candidates["source"]),
+                               float(task.candidates["max_distance"]))
+    return {part: [page_candidates(page, edges, options)
+                   for page, edges in zip(task_pages[part], sets[part].edges)] for part in PARTS}
+
+
+def _predictions(task: tasks.Task, test_pages: list, inputs: FitInputs, fitted: FittedModel,
+                 sides: dict[str, str]) -> pd.DataFrame:
+    if inputs.pairs:
+        return pair_frame(test_pages, inputs.candidates["test"], fitted.outputs,
+                          float(fitted.threshold), sides)
+    return prediction_frame(inputs.sets["test"].pages, fitted.outputs, inputs.labels, sides)
+
+
+def _pair_notes(inputs: FitInputs, fitted: FittedModel, predictions: pd.DataFrame
+                ) -> dict[str, float]:
+    """Link threshold and candidate recall of the test pages (pair tasks only)."""
+    if not inputs.pairs:
+        return {}
+    found = inputs.candidates["test"]
+    true_links = sum(int(c.y.sum()) for c in found) + inputs.missed("test")
+    return {"link_threshold": float(fitted.threshold),
+            "candidate_recall": 1 - inputs.missed("test") / max(true_links, 1),
+            "candidate_pairs_test": float(predictions["candidate"].sum())}
+
+
+def run_experiment(cfg: DictConfig) -> tuple[RunBundle, FittedModel]:
+    """Run the composed config: the run's bundle and the fitted model (with the arguments
+    that built it and the fitted featurizer, what a saved model records)."""
     check_names(cfg)
-    if cfg.task.name == "links":
-        from dochar.link_experiment import run_links
-        return run_links(cfg)
     seed_everything(int(cfg.seed), int(cfg.train.threads))
     task = tasks.from_config(cfg.get("task"))
     word_labels = list(cfg.data.labels)
@@ -99,21 +126,23 @@ def run_experiment(cfg: DictConfig) -> tuple[RunBundle, Any]:
     split = split_run(data.table, cfg.split, int(cfg.seed))
     part_of = split.part_of()
     builder = graphs.from_config(cfg.graph)
-    pages = {part: [] for part in PARTS}
-    for page in iter_pages(split.table):
-        if page.doc_id in part_of:   # a nested training subset leaves some documents out
-            pages[part_of[page.doc_id]].append(task.nodes(page))
-    sets = {part: PageSet.build(pages[part], builder, progress=progress,
-                                desc=f"graphs ({part})") for part in PARTS}
+    used = [page for page in iter_pages(split.table) if page.doc_id in part_of]
+    task_pages = {part: [] for part in PARTS}   # a nested training subset leaves some out
+    for page in task.pages(used, data.links):
+        task_pages[part_of[task.graph_page(page).doc_id]].append(page)
+    sets = {part: PageSet.build([task.graph_page(p) for p in task_pages[part]], builder,
+                                progress=progress, desc=f"graphs ({part})") for part in PARTS}
     featurizer = WordFeaturizer.from_config(cfg.features, cfg.data).fit(sets["train"].pages)
+    inputs = FitInputs(sets, featurizer, labels, task, _candidates(task, task_pages, sets))
     torch.manual_seed(int(cfg.seed))
-    fitted = fit_model(cfg, sets, featurizer, labels)
-    predictions = prediction_frame(sets["test"].pages, fitted.probabilities, labels,
-                                   split.assignment.test_sides)
+    fitted = fit_model(cfg, inputs)
+    predictions = _predictions(task, task_pages["test"], inputs, fitted,
+                               split.assignment.test_sides)
     words = task.word_predictions(sets["test"].pages, predictions)
     scores = evaluate(predictions, labels, cfg.evaluation, seed=int(cfg.seed), task=task,
                       words=words, word_labels=word_labels)
     metrics = scores.metrics
+    metrics.update(_pair_notes(inputs, fitted, predictions))
     stats = graph_stats(sets["test"].pages, builder, list(cfg.data.table_labels),
                         edges=sets["test"].edges).to_dict()
     metrics.update({f"graph/{k}": float(v) for k, v in stats.items()
@@ -124,8 +153,10 @@ def run_experiment(cfg: DictConfig) -> tuple[RunBundle, Any]:
     if not split.leakage.empty:
         scores.tables["leakage"] = split.leakage
     scores.tables["documents"] = document_table(split.table, part_of)
+    if not task.nodes_are_word_labels and not words.empty:   # what the nodes decode to
+        scores.tables["word_predictions"] = words
     scores.tables.update(fitted.tables)
-    tags = {"dataset": str(cfg.data.name), "task": task.name,
+    tags = {"dataset": str(cfg.data.name), "task": task.name, "headline": tasks.headline(task),
             "split_protocol": str(cfg.split.protocol),
             "graph_builder": str(cfg.graph.name), "features": "+".join(cfg.features.groups),
             "model": system_name(cfg.model), "model_kind": str(cfg.model.kind),
@@ -136,4 +167,4 @@ def run_experiment(cfg: DictConfig) -> tuple[RunBundle, Any]:
                        config=OmegaConf.to_container(cfg, resolve=True), cost=fitted.cost,
                        tags=tags, edges=edge_frame(sets["test"], int(cfg.overlay_pages)),
                        tables=scores.tables)
-    return bundle, fitted.model
+    return bundle, fitted

@@ -6,10 +6,12 @@ in the MLflow store, whose model is downloaded. Inputs are word tables or anythi
 Writes, into DIR:
 
     words.csv|parquet   one row per word: box, predicted label and probability, next two labels
-    fields.json         per document, the grouped fields: runs of consecutive words in reading
-                        order with one predicted label (the entity rule of
-                        dochar.metrics.entities), with their text, page, box (the union of
-                        the words' boxes), least word probability and word ids
+    fields.json         per document, the grouped fields, decoded through the model's task:
+                        for word-label models, runs of consecutive words in reading order with
+                        one predicted label (the entity rule of dochar.metrics.entities); for
+                        tag models, the decoded entities (chunks); for segment models, the
+                        segments; each with its text, page, box (the union of the words'
+                        boxes), least word probability and word ids
     fields.csv          the same fields, one row each
 
 When the input has a ``label`` column, prints word accuracy and macro-F1 over the words whose
@@ -130,24 +132,35 @@ def read_inputs(args: argparse.Namespace) -> pd.DataFrame:
     return checked.table
 
 
+FIELD_COLUMNS = ["doc_id", "page", "label", "text", "x0", "y0", "x1", "y1", "probability",
+                 "word_ids"]
+
+
+def _field(part: pd.DataFrame, label: str) -> dict:
+    return {"doc_id": part["doc_id"].iloc[0], "page": int(part["page"].iloc[0]), "label": label,
+            "text": " ".join(part["text"]),
+            "x0": round(part["x0"].min(), 2), "y0": round(part["y0"].min(), 2),
+            "x1": round(part["x1"].max(), 2), "y1": round(part["y1"].max(), 2),
+            "probability": round(float(part["probability"].min()), 4),
+            "word_ids": " ".join(map(str, part["word_id"]))}
+
+
 def fields(words: pd.DataFrame, ignore: Sequence[str]) -> pd.DataFrame:
-    """Runs of consecutive same-label words in reading order, one row per field."""
-    frame = words.assign(entity_id="")   # no true grouping: every word stands alone
+    """One row per field: the task's groups (``entity``) where it has them, else runs of
+    consecutive same-label words in reading order; labels in ``ignore`` are no field."""
+    ordered = words.iloc[reading_order(words)].reset_index(drop=True)
+    if "entity" in ordered:
+        grouped = ordered[(ordered["entity"].fillna("") != "")
+                          & ~ordered["predicted"].isin(list(ignore))]
+        rows = [_field(part, str(part["predicted"].iloc[0]))
+                for _, part in grouped.groupby(["doc_id", "page", "entity"], sort=False)]
+        return pd.DataFrame(rows, columns=FIELD_COLUMNS)
+    frame = ordered.assign(entity_id="")   # no true grouping: every word stands alone
     _, runs = entity_tables(frame, sorted(set(frame["predicted"])), ignore=ignore,
                             true_col="predicted", pred_col="predicted", entity_col="entity_id",
                             doc_cols=("doc_id", "page"))
-    ordered = frame.iloc[reading_order(frame)].reset_index(drop=True)
-    rows = []
-    for run in runs.itertuples():
-        part = ordered.iloc[run.start:run.end + 1]
-        rows.append({"doc_id": part["doc_id"].iloc[0], "page": int(part["page"].iloc[0]),
-                     "label": run.label, "text": " ".join(part["text"]),
-                     "x0": round(part["x0"].min(), 2), "y0": round(part["y0"].min(), 2),
-                     "x1": round(part["x1"].max(), 2), "y1": round(part["y1"].max(), 2),
-                     "probability": round(float(part["probability"].min()), 4),
-                     "word_ids": " ".join(map(str, part["word_id"]))})
-    return pd.DataFrame(rows, columns=["doc_id", "page", "label", "text", "x0", "y0", "x1", "y1",
-                                       "probability", "word_ids"])
+    rows = [_field(ordered.iloc[run.start:run.end + 1], run.label) for run in runs.itertuples()]
+    return pd.DataFrame(rows, columns=FIELD_COLUMNS)
 
 
 def fields_json(table: pd.DataFrame, documents: Sequence[str]) -> list[dict]:
@@ -164,7 +177,7 @@ def score(words: pd.DataFrame, saved: SavedModel) -> list[str]:
     """Lines on the words with a known label; words with unknown labels located, not scored."""
     truth = words["label"].astype(str)
     labelled = truth != ""
-    unknown = labelled & ~truth.isin(saved.labels)
+    unknown = labelled & ~truth.isin(saved.word_labels)
     lines = []
     if unknown.any():
         where = [f"{r.doc_id} page {r.page} word {r.word_id} {r.label!r}"
@@ -175,7 +188,7 @@ def score(words: pd.DataFrame, saved: SavedModel) -> list[str]:
                      f"({'; '.join(where)}{more})")
     scored = labelled & ~unknown
     if scored.any():
-        result = score_words(truth[scored], words.loc[scored, "predicted"], saved.labels)
+        result = score_words(truth[scored], words.loc[scored, "predicted"], saved.word_labels)
         lines.append(f"scored {int(scored.sum())} of {len(words)} words against the input's "
                      f"labels: word accuracy {result.accuracy:.4f}, macro-F1 {result.macro_f1:.4f}")
     return lines
@@ -188,7 +201,7 @@ def run(args: argparse.Namespace) -> int:
         saved.expect(task=args.task,
                      labels=[x.strip() for x in args.labels.split(",")] if args.labels else None)
     print(f"model: {saved.manifest.get('name') or saved.kind} ({saved.kind}, task "
-          f"{saved.task}, {len(saved.labels)} labels, graph {saved.manifest['graph']['name']}, "
+          f"{saved.task.name}, {len(saved.labels)} labels, graph {saved.manifest['graph']['name']}, "
           f"features {'+'.join(saved.featurizer.groups)})")
     for note in saved.version_notes():
         print(f"note: library version differs: {note}")

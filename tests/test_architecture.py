@@ -16,7 +16,7 @@ from tests.helpers import REPO
 PACKAGE = REPO / "dochar"
 FOUNDATION = ("errors", "config", "__init__")       # imported by anything
 STAGES = ("data", "splits", "tasks", "graphs", "features", "models", "metrics", "runs", "report", "gate")
-WIRING = ("experiment", "link_experiment", "curve", "predict", "cli")
+WIRING = ("experiment", "curve", "predict", "cli")
 DRIVERS = ("dochar.gate.command",)   # the gate's command reruns a reference experiment
 
 
@@ -92,3 +92,39 @@ def test_the_generator_reads_only_the_word_table_format():
             if m.startswith("dochar")}
     assert used <= {"dochar.data.word_table", "dochar.data.word_table.write_word_table",
                     "dochar.data.word_table.table_name_problem"}, used
+
+
+def _task_name_comparisons(source: str, filename: str, names: set[str]) -> list[str]:
+    """Comparisons (``==``, ``!=``, ``in``, ``not in``) with a task's name as a string constant."""
+    found = []
+    for node in ast.walk(ast.parse(source, filename=filename)):
+        if not isinstance(node, ast.Compare):
+            continue
+        operands = [node.left, *node.comparators]
+        constants = [n for o in operands for n in ast.walk(o)
+                     if isinstance(n, ast.Constant) and n.value in names]
+        if constants:
+            found.append(f"{filename}:{node.lineno}")
+    return found
+
+
+def test_only_the_tasks_package_compares_task_names():
+    """Consumers ask the task (its target, scores, decoding), never which task it is."""
+    from dochar.tasks import TASKS
+
+    names = set(TASKS)
+    found = [hit for path in PACKAGE.rglob("*.py")
+             if "tasks" not in path.relative_to(PACKAGE).parts
+             for hit in _task_name_comparisons(path.read_text(), str(path.relative_to(REPO)),
+                                               names)]
+    assert found == []
+
+
+def test_the_task_name_check_sees_a_comparison():
+    """The check above on planted lines: each form of comparison is found, plain use is not."""
+    planted = ('if task.name == "links":\n    pass\n'
+               'ok = "entity_tags" != cfg.task.name\n'
+               'chosen = name in ("word_labels", "x")\n'
+               'default = {"name": "word_labels"}\n')
+    assert _task_name_comparisons(planted, "planted.py", {"links", "entity_tags", "word_labels"}
+                                  ) == ["planted.py:1", "planted.py:3", "planted.py:4"]

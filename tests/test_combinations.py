@@ -149,7 +149,8 @@ def expected_baseline_width(cfg: DictConfig, relations: int) -> int:
     return width * (1 + 2 * relations) if cfg.model.neighbour_features else width
 
 
-def check_run(cfg: DictConfig, bundle, model) -> None:
+def check_run(cfg: DictConfig, bundle, fitted) -> None:
+    model = fitted.model
     labels = list(cfg.data.labels)
     metrics = bundle.metrics
     scores = {k: v for k, v in metrics.items()
@@ -249,7 +250,7 @@ def _rewired(edge_index: torch.Tensor, edge_type: torch.Tensor, nodes: int, seed
 def test_only_the_no_graph_layer_ignores_the_edges(layer, blind) -> None:
     """Rewire every edge at random: the no-graph ablation must not notice, a GNN must."""
     cfg = make_config("sector", layer, "geometry_text", SYNTH)
-    _, model = run_experiment(cfg)
+    model = run_experiment(cfg)[1].model
     changed = []
     for seed, graph in enumerate(_test_graphs(cfg)):
         before = model.predict_proba(graph.x, graph.edge_index, graph.edge_type)

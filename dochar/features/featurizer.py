@@ -13,8 +13,10 @@ sits in; with ``text_embedding`` also the embedding of that line's text) and ``p
 
 from __future__ import annotations
 
+import inspect
 import warnings
 from collections.abc import Mapping, Sequence
+from typing import Any
 
 import numpy as np
 
@@ -78,6 +80,7 @@ class WordFeaturizer:
         if max_chars < 1:
             raise ValueError(f"WordFeaturizer: max_chars must be at least 1, got {max_chars}")
         self.groups = tuple(dict.fromkeys(groups))
+        self.embedding_cache = embedding_cache
         self.embedder = (TextEmbedder(embedding_cache) if "text_embedding" in self.groups
                          else None)
         unknown_pooling = sorted(set(pool_words) - set(POOLINGS))
@@ -109,6 +112,16 @@ class WordFeaturizer:
                    pool_words=list(features_cfg.get("pool_words") or ()),
                    embedding_cache="default" if cache is None else
                    (None if str(cache) == "off" else str(cache)))
+
+    def get_params(self) -> dict[str, Any]:
+        """The constructor's arguments as this featurizer holds them (scikit-learn's rule: one
+        attribute per ``__init__`` parameter), lexicons as their normalised word lists."""
+        params = {name: getattr(self, name)
+                  for name in inspect.signature(type(self).__init__).parameters
+                  if name != "self"}
+        params["groups"], params["pool_words"] = list(self.groups), list(self.pool_words)
+        params["lexicons"] = {name: sorted(keys) for name, keys in self.lexicons.items()}
+        return params
 
     @property
     def feature_names(self) -> list[str]:

@@ -22,8 +22,8 @@ from scipy.sparse.csgraph import connected_components
 
 from dochar.data.word_table import Page
 from dochar.graphs.base import GraphBuilder, GraphBuilderError, TypedEdges
+from dochar.tasks.links import CANDIDATE_SOURCES
 
-CANDIDATE_SOURCES: tuple[str, ...] = ("graph", "distance")
 
 
 @dataclass(frozen=True)

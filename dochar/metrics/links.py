@@ -23,9 +23,7 @@ from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
 from dochar.metrics.words import MetricInputError
-
-LINK, NO_LINK = "link", "none"
-LINK_LABELS: tuple[str, ...] = (NO_LINK, LINK)
+from dochar.tasks.links import LINK
 PAIR_COLUMNS: tuple[str, ...] = (
     "doc_id", "page", "source", "target", "source_entity", "target_entity", "candidate",
     "page_nodes", "label", "predicted", "confidence",

@@ -1,13 +1,16 @@
-"""Fit one model on the training pages and predict the test pages: a GNN stack or a baseline.
+"""Fit one model on the training pages and score the test pages: a GNN, a baseline or templates.
 
-Both kinds take the same page sets and featurizer and return per-page class probabilities and
-cost figures, so the rest of the run never asks which kind it had.
+Every kind takes the same :class:`FitInputs` (page sets, featurizer, task, and for pair tasks the
+candidate pairs) and returns per-page outputs (node class probabilities, or link probabilities
+of candidate pairs) with cost figures, so the rest of the run never asks which kind it had.
+Each model is built by one function from plain arguments (:mod:`dochar.models.builders`), and
+those arguments are what a saved model records.
 """
 
 from __future__ import annotations
 
 import time
-from collections.abc import Mapping, Sequence
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -16,23 +19,55 @@ import pandas as pd
 from omegaconf import DictConfig, OmegaConf
 from sklearn.metrics import f1_score
 
-from dochar.features import CharCNNEncoder, WordFeaturizer
-from dochar.models.baselines import make_baseline, make_template
+from dochar.features import WordFeaturizer
+from dochar.models.builders import (
+    baseline_arguments,
+    build_baseline,
+    build_gnn,
+    build_template,
+    estimator_size,
+    gnn_arguments,
+    template_arguments,
+)
 from dochar.models.checkpoints import EpochCheckpoint, inputs_digest, training_key
-from dochar.models.gnn import GNNStack, count_parameters
+from dochar.models.gnn import count_parameters
 from dochar.models.inputs import PageSet, label_indices, to_graphs, to_matrix
+from dochar.models.objectives import best_threshold, objective_for, sample_negatives
+from dochar.models.pairs import PageCandidates, pair_matrix, with_pairs
 from dochar.models.template import OUTCOMES
-from dochar.models.training import predict_proba, train
+from dochar.models.training import train
 from dochar.splits import PARTS
+from dochar.tasks import PAIRS, VALIDATION_SCORE, Task
+
+
+@dataclass
+class FitInputs:
+    """What every fitter reads; ``candidates`` by part for tasks that score pairs."""
+
+    sets: dict[str, PageSet]
+    featurizer: WordFeaturizer
+    labels: list[str]
+    task: Task
+    candidates: dict[str, list[PageCandidates]] | None = None
+
+    @property
+    def pairs(self) -> bool:
+        return self.task.target == PAIRS
+
+    def missed(self, part: str) -> int:
+        return sum(c.missed.shape[1] for c in (self.candidates or {}).get(part, []))
 
 
 @dataclass
 class FittedModel:
-    """The fitted model, its test-page probabilities and what it cost."""
+    """The fitted model, the arguments that built it, its test outputs and what it cost."""
 
     model: Any
-    probabilities: list[np.ndarray]
+    arguments: dict[str, Any]
+    outputs: list[np.ndarray]
     cost: dict[str, float]
+    threshold: float | None = None                                 # pair tasks: link cut
+    featurizer: WordFeaturizer | None = None                       # set by fit_model
     notes: dict[str, float] = field(default_factory=dict)         # extra run metrics
     tables: dict[str, pd.DataFrame] = field(default_factory=dict)  # extra run tables
 
@@ -42,36 +77,43 @@ def system_name(model_cfg: Mapping[str, Any]) -> str:
     return str(model_cfg["layer"] if model_cfg["kind"] == "gnn" else model_cfg["estimator"])
 
 
-def fit_gnn(cfg: DictConfig, sets: dict[str, PageSet], featurizer: WordFeaturizer,
-            labels: Sequence[str]) -> FittedModel:
-    index = {label: i for i, label in enumerate(labels)}
-    graphs = {part: to_graphs(sets[part], featurizer, index) for part in PARTS}
-    model_cfg = cfg.model
-    encoder = (CharCNNEncoder(**OmegaConf.to_container(cfg.features.char_cnn))
-               if featurizer.uses_char_cnn else None)
-    model = GNNStack(in_dim=len(featurizer.feature_names), num_classes=len(labels),
-                     num_relations=len(sets["train"].relations), layer=model_cfg.layer,
-                     hidden_dim=model_cfg.hidden_dim, depth=model_cfg.depth,
-                     dropout=model_cfg.dropout, norm=model_cfg.norm,
-                     residual=model_cfg.residual, char_encoder=encoder,
-                     char_dim=int(cfg.features.char_cnn.out_dim) if encoder else 0,
-                     layer_options=dict(model_cfg.layer_options or {}))
+def _validation(score: float, name: str) -> dict[str, float]:
+    """The validation figure under the one name sweeps read and under the task's own name."""
+    return {VALIDATION_SCORE: score, name: score}
+
+
+def fit_gnn(cfg: DictConfig, inputs: FitInputs) -> FittedModel:
+    index = {label: i for i, label in enumerate(inputs.labels)}
+    graphs = {part: to_graphs(inputs.sets[part], inputs.featurizer,
+                              None if inputs.pairs else index) for part in PARTS}
+    if inputs.pairs:
+        graphs = {part: [with_pairs(g, c) for g, c in zip(graphs[part],
+                                                          inputs.candidates[part])]
+                  for part in PARTS}
+    arguments = gnn_arguments(cfg, inputs.featurizer, inputs.task, len(inputs.labels),
+                              len(inputs.sets["train"].relations))
+    model = build_gnn(arguments)
+    objective = objective_for(inputs.task.target, cfg.train, num_classes=len(inputs.labels),
+                              seed=int(cfg.seed),
+                              negative_ratio=getattr(inputs.task, "negative_ratio", None),
+                              val_missed=inputs.missed("val"))
     checkpoint = _checkpoint(cfg, graphs)
     started = time.perf_counter()
-    history = train(model, graphs["train"], graphs["val"], len(labels), cfg.train, int(cfg.seed),
+    history = train(model, graphs["train"], graphs["val"], objective, cfg.train, int(cfg.seed),
                     checkpoint=checkpoint)
     train_seconds = time.perf_counter() - started
     if checkpoint is not None:
         checkpoint.remove()
     started = time.perf_counter()
-    probabilities = predict_proba(model, graphs["test"])
+    outputs = objective.outputs(model, graphs["test"])
     infer_seconds = time.perf_counter() - started
+    score = history.best_val_score if graphs["val"] else float("nan")
     cost = {"train_seconds": train_seconds, "parameters": float(count_parameters(model)),
             "pages_per_second": len(graphs["test"]) / max(infer_seconds, 1e-9),
             "best_epoch": float(history.best_epoch), "epochs_run": float(history.epochs_run),
-            "best_val_macro_f1": history.best_val_macro_f1,
-            "val_macro_f1": history.best_val_macro_f1 if graphs["val"] else float("nan")}
-    return FittedModel(model, probabilities, cost, tables={"training_curve": history.curve()})
+            **_validation(score, objective.score_name)}
+    return FittedModel(model, arguments, outputs, cost, threshold=history.threshold,
+                       tables={"training_curve": history.curve()})
 
 
 def _checkpoint(cfg: DictConfig, graphs: dict[str, list]) -> EpochCheckpoint | None:
@@ -83,55 +125,86 @@ def _checkpoint(cfg: DictConfig, graphs: dict[str, list]) -> EpochCheckpoint | N
     inputs = inputs_digest(graphs["train"], graphs["val"])
     encoder = (OmegaConf.to_container(cfg.features.char_cnn, resolve=True)
                if "char_cnn" in cfg.features else {})
-    key = training_key({**OmegaConf.to_container(cfg.model, resolve=True), "char_cnn": encoder},
+    key = training_key({**OmegaConf.to_container(cfg.model, resolve=True), "char_cnn": encoder,
+                        "task": OmegaConf.to_container(cfg.task, resolve=True)},
                        cfg.train, int(cfg.seed), inputs)
     return EpochCheckpoint(folder, key, inputs)
 
 
-def fit_baseline(cfg: DictConfig, sets: dict[str, PageSet], featurizer: WordFeaturizer,
-                 labels: Sequence[str]) -> FittedModel:
-    index = {label: i for i, label in enumerate(labels)}
+def _rows(cfg: DictConfig, inputs: FitInputs, part: str) -> np.ndarray:
+    """A baseline's rows of one part: node rows, or pair rows for pair tasks."""
     options = dict(hash_features=int(cfg.features.hash_features),
                    neighbour_features=bool(cfg.model.neighbour_features))
-    x_train = to_matrix(sets["train"], featurizer, **options)
-    y_train = np.concatenate([label_indices(p, index) for p in sets["train"].pages])
-    estimator = make_baseline(cfg.model.estimator, int(cfg.seed), **dict(cfg.model.options or {}))
+    if not inputs.pairs:
+        return to_matrix(inputs.sets[part], inputs.featurizer, **options)
+    page_set = inputs.sets[part]
+    nodes = [to_matrix(PageSet([page], [edges], page_set.relations), inputs.featurizer,
+                       **options) for page, edges in zip(page_set.pages, page_set.edges)]
+    return pair_matrix(nodes, inputs.candidates[part])
+
+
+def _targets(inputs: FitInputs, part: str) -> np.ndarray:
+    if inputs.pairs:
+        found = [c.y for c in inputs.candidates[part]]
+        return np.concatenate(found).astype(np.int64) if found else np.zeros(0, np.int64)
+    index = {label: i for i, label in enumerate(inputs.labels)}
+    return np.concatenate([label_indices(p, index) for p in inputs.sets[part].pages])
+
+
+def _sizes(inputs: FitInputs, part: str) -> np.ndarray:
+    """Where one page's rows end and the next begin."""
+    counts = ([c.pairs.shape[1] for c in inputs.candidates[part]] if inputs.pairs
+              else [len(page) for page in inputs.sets[part].pages])
+    return np.cumsum(counts)[:-1]
+
+
+def fit_baseline(cfg: DictConfig, inputs: FitInputs) -> FittedModel:
+    arguments = baseline_arguments(cfg)
+    estimator = build_baseline(arguments)
+    rows, targets = _rows(cfg, inputs, "train"), _targets(inputs, "train")
+    ratio = getattr(inputs.task, "negative_ratio", None)
+    if inputs.pairs and ratio is not None:   # every positive, `ratio` negatives per positive
+        keep = sample_negatives(targets == 1, float(ratio), np.random.default_rng(int(cfg.seed)))
+        rows, targets = rows[keep], targets[keep]
     started = time.perf_counter()
-    estimator.fit(x_train, y_train)
+    estimator.fit(rows, targets)
     train_seconds = time.perf_counter() - started
+
+    def probabilities(part: str) -> np.ndarray:
+        rows = _rows(cfg, inputs, part)
+        if not len(rows):
+            return np.zeros((0, len(inputs.labels)))
+        seen = estimator.predict_proba(rows)
+        full = np.zeros((len(seen), len(inputs.labels)))
+        full[:, estimator.classes_] = seen  # classes absent from training keep probability 0
+        return full
+
     started = time.perf_counter()
-    seen = estimator.predict_proba(to_matrix(sets["test"], featurizer, **options))
+    test = probabilities("test")
     infer_seconds = time.perf_counter() - started
-    full = np.zeros((len(seen), len(labels)))
-    full[:, estimator.classes_] = seen  # classes absent from training keep probability 0
-    sizes = np.cumsum([len(page) for page in sets["test"].pages])[:-1]
-    cost = {"train_seconds": train_seconds, "parameters": float(_estimator_size(estimator)),
-            "pages_per_second": len(sets["test"].pages) / max(infer_seconds, 1e-9),
-            "val_macro_f1": _validation_macro_f1(estimator, sets["val"], featurizer, index,
-                                                 options)}
-    return FittedModel(estimator, np.split(full, sizes), cost)
+    val = probabilities("val") if inputs.sets["val"].pages else None
+    threshold, score = None, float("nan")
+    if val is not None and inputs.pairs:
+        threshold, score = best_threshold(val[:, 1], _targets(inputs, "val") == 1,
+                                          inputs.missed("val"))
+    elif val is not None:   # the GNN's early-stopping score: macro F1 over the classes present
+        score = float(f1_score(_targets(inputs, "val"), val.argmax(axis=1), average="macro",
+                               zero_division=0))
+    outputs = np.split(test[:, 1] if inputs.pairs else test, _sizes(inputs, "test"))
+    cost = {"train_seconds": train_seconds, "parameters": float(estimator_size(estimator)),
+            "pages_per_second": len(inputs.sets["test"].pages) / max(infer_seconds, 1e-9),
+            **_validation(score, "val_link_f1" if inputs.pairs else "val_macro_f1")}
+    return FittedModel(estimator, arguments, outputs, cost,
+                       threshold=(0.5 if threshold is None else threshold) if inputs.pairs
+                       else None)
 
 
-def _validation_macro_f1(estimator: Any, pages: PageSet, featurizer: WordFeaturizer,
-                         index: Mapping[str, int], options: Mapping[str, Any]) -> float:
-    """Word macro-F1 on the validation pages, defined as the GNN's early-stopping score
-    (scikit-learn's macro F1 over the classes present): what tuning may look at."""
-    if not pages.pages:
-        return float("nan")
-    y_val = np.concatenate([label_indices(p, index) for p in pages.pages])
-    predicted = estimator.predict(to_matrix(pages, featurizer, **options))
-    return float(f1_score(y_val, predicted, average="macro", zero_division=0))
-
-
-def fit_template(cfg: DictConfig, sets: dict[str, PageSet], featurizer: WordFeaturizer,
-                 labels: Sequence[str]) -> FittedModel:
+def fit_template(cfg: DictConfig, inputs: FitInputs) -> FittedModel:
     """Per-layout templates from the training pages (no features, no validation use); page
     outcomes are logged as ``template/<outcome>_pages`` and kept as the ``template_pages`` table."""
-    signature = dict(cfg.split.get("signature") or {})
-    if "keywords" in signature:
-        signature["n_keywords"] = signature.pop("keywords")
-    estimator = make_template(str(cfg.model.estimator), dict(cfg.model.options or {}),
-                              list(labels), signature)
+    arguments = template_arguments(cfg, inputs.labels)
+    estimator = build_template(arguments)
+    sets = inputs.sets
     started = time.perf_counter()
     estimator.fit(sets["train"].pages)
     train_seconds = time.perf_counter() - started
@@ -139,31 +212,24 @@ def fit_template(cfg: DictConfig, sets: dict[str, PageSet], featurizer: WordFeat
     full = estimator.predict_proba(sets["test"].pages)
     infer_seconds = time.perf_counter() - started
     matches = estimator.match_pages(sets["test"].pages)
-    sizes = np.cumsum([len(page) for page in sets["test"].pages])[:-1]
     cost = {"train_seconds": train_seconds, "parameters": float(estimator.n_template_words_),
             "pages_per_second": len(sets["test"].pages) / max(infer_seconds, 1e-9)}
+    if sets["val"].pages:   # templates learn nothing from validation; sweeps still rank them
+        predicted = estimator.predict_proba(sets["val"].pages).argmax(axis=1)
+        cost.update(_validation(float(f1_score(_targets(inputs, "val"), predicted,
+                                               average="macro", zero_division=0)),
+                                "val_macro_f1"))
     counts = matches["outcome"].value_counts()
     notes = {f"template/{outcome}_pages": float(counts.get(outcome, 0)) for outcome in OUTCOMES}
     notes["template/families"] = float(len(estimator.families_))
-    return FittedModel(estimator, np.split(full, sizes), cost, notes,
-                       {"template_pages": matches.set_index("doc_id")})
+    return FittedModel(estimator, arguments, np.split(full, _sizes(inputs, "test")), cost,
+                       notes=notes, tables={"template_pages": matches.set_index("doc_id")})
 
 
 FITTERS = {"gnn": fit_gnn, "baseline": fit_baseline, "template": fit_template}
 
 
-def fit_model(cfg: DictConfig, sets: dict[str, PageSet], featurizer: WordFeaturizer,
-              labels: Sequence[str]) -> FittedModel:
-    return FITTERS[str(cfg.model.kind)](cfg, sets, featurizer, labels)
-
-
-def _estimator_size(estimator: Any) -> int:
-    """Trees: total node count; linear models: coefficient count (a size, not trainable weights)."""
-    final = estimator[-1] if hasattr(estimator, "steps") else estimator
-    if hasattr(final, "estimators_"):
-        return int(sum(tree.tree_.node_count for tree in np.ravel(final.estimators_)))
-    if hasattr(final, "_predictors"):
-        return int(sum(p.get_n_leaf_nodes() * 2 - 1 for row in final._predictors for p in row))
-    if hasattr(final, "coef_"):
-        return int(final.coef_.size + np.size(final.intercept_))
-    return 0
+def fit_model(cfg: DictConfig, inputs: FitInputs) -> FittedModel:
+    fitted = FITTERS[str(cfg.model.kind)](cfg, inputs)
+    fitted.featurizer = inputs.featurizer
+    return fitted

@@ -42,15 +42,17 @@ def label_indices(page: Page, label_index: dict[str, int]) -> np.ndarray:
     return np.array([label_index[label] for label in page.labels], dtype=np.int64)
 
 
-def to_graphs(page_set: PageSet, featurizer: WordFeaturizer, label_index: dict[str, int]
-              ) -> list[Data]:
+def to_graphs(page_set: PageSet, featurizer: WordFeaturizer,
+              label_index: dict[str, int] | None) -> list[Data]:
+    """One graph per page; node targets ``y`` when ``label_index`` is given."""
     graphs = []
     for page, edges in zip(page_set.pages, page_set.edges):
         data = Data(x=torch.from_numpy(featurizer.transform(page)),
                     edge_index=torch.from_numpy(edges.edge_index.astype(np.int64)),
                     edge_type=torch.from_numpy(edges.edge_type.astype(np.int64)),
-                    y=torch.from_numpy(label_indices(page, label_index)),
                     num_nodes=len(page))
+        if label_index is not None:
+            data.y = torch.from_numpy(label_indices(page, label_index))
         if featurizer.uses_char_cnn:
             data.chars = torch.from_numpy(featurizer.char_ids(page))
         graphs.append(data)

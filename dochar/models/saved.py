@@ -2,10 +2,13 @@
 
 Folder layout (``manifest.json`` first, then one model file)::
 
-    manifest.json     format, task, labels, graph / feature / model config, featurizer state,
-                      edge relations, GNN architecture, library versions, SHA-256 of each file
+    manifest.json     format, task (its whole config), labels, graph / feature / model config,
+                      the featurizer's constructor arguments and fitted scales, edge relations,
+                      the arguments the model was built from (:mod:`dochar.models.builders`),
+                      the link threshold of pair tasks, library versions, SHA-256 of each file
     weights.pt        a GNN's state dict (tensors only)
     estimator.skops   a scikit-learn baseline in skops' format
+    templates.json    layout templates as plain lists
 
 **Loading never executes code from the files.** The manifest is JSON. Weights are read with
 ``torch.load(weights_only=True)``, whose unpickler only rebuilds tensors and plain containers.
@@ -21,7 +24,6 @@ reader never sees half a model.
 
 from __future__ import annotations
 
-import dataclasses
 import hashlib
 import json
 import os
@@ -38,21 +40,22 @@ import numpy as np
 import pandas as pd
 import torch
 
-from dochar import graphs
+from dochar import graphs, tasks
 from dochar.data.word_table import Page, iter_pages
 from dochar.errors import DocharError
-from dochar.features import CHAR_VOCAB, CharCNNEncoder, WordFeaturizer
-from dochar.models.gnn import GNNStack
+from dochar.features import CHAR_VOCAB, WordFeaturizer
+from dochar.models.builders import build_gnn, build_template
+from dochar.models.fit import FittedModel
 from dochar.models.inputs import PageSet, to_graphs, to_matrix
-from dochar.models.training import predict_proba
+from dochar.models.objectives import NodeClasses
+from dochar.tasks import NODES, Task
 
-FORMAT = "dochar-model/1"
+FORMAT = "dochar-model/2"
 MANIFEST = "manifest.json"
 WEIGHTS = "weights.pt"
 ESTIMATOR = "estimator.skops"
-DEFAULT_TASK = "word_labels"
-SAVED_TASKS = ("word_labels", "entity_tags")   # tasks whose nodes are the words predict reads
-SAVED_KINDS = ("gnn", "baseline")
+TEMPLATES = "templates.json"
+MODEL_FILES = {"gnn": WEIGHTS, "baseline": ESTIMATOR, "template": TEMPLATES}
 # Types beyond skops' defaults that the baselines hold: the fitted trees of a random forest and
 # of histogram gradient boosting (found with skops.io.get_untrusted_types on each baseline).
 TRUSTED_ESTIMATOR_TYPES: tuple[str, ...] = (
@@ -78,12 +81,11 @@ def library_versions() -> dict[str, str]:
 
 
 def featurizer_state(featurizer: WordFeaturizer, hash_features: int) -> dict[str, Any]:
-    """Everything the featurizer needs to turn a page into the same columns again."""
-    return {"groups": list(featurizer.groups), "max_chars": featurizer.max_chars,
-            "standardize": featurizer.standardize,
+    """Everything the featurizer needs to turn a page into the same columns again: its
+    constructor's arguments (all of them, read off ``__init__``) and what fitting learnt."""
+    return {"params": featurizer.get_params(),
             "mean": None if featurizer.mean_ is None else featurizer.mean_.tolist(),
             "scale": None if featurizer.scale_ is None else featurizer.scale_.tolist(),
-            "lexicons": {name: sorted(keys) for name, keys in featurizer.lexicons.items()},
             "feature_names": featurizer.feature_names, "char_vocab": CHAR_VOCAB,
             "hash_features": int(hash_features)}
 
@@ -92,10 +94,11 @@ def featurizer_from_state(state: Mapping[str, Any]) -> WordFeaturizer:
     if state["char_vocab"] != CHAR_VOCAB:
         raise SavedModelError("the model was trained with another character vocabulary than "
                               "this dochar's; character ids would mean other characters")
-    featurizer = WordFeaturizer(groups=state["groups"], max_chars=int(state["max_chars"]),
-                                standardize=bool(state["standardize"]))
+    params = dict(state["params"])
+    lexicons = params.pop("lexicons")
+    featurizer = WordFeaturizer(**params)
     # the stored keys are already normalised; set them as they were, not re-normalised
-    featurizer.lexicons = {name: frozenset(keys) for name, keys in state["lexicons"].items()}
+    featurizer.lexicons = {name: frozenset(keys) for name, keys in lexicons.items()}
     if state["mean"] is not None:
         featurizer.mean_ = np.asarray(state["mean"], dtype=np.float64)
         featurizer.scale_ = np.asarray(state["scale"], dtype=np.float64)
@@ -107,28 +110,6 @@ def featurizer_from_state(state: Mapping[str, Any]) -> WordFeaturizer:
     return featurizer
 
 
-def _architecture(model_cfg: Mapping[str, Any], features_cfg: Mapping[str, Any],
-                  featurizer: WordFeaturizer, n_labels: int, n_relations: int) -> dict[str, Any]:
-    """The GNNStack arguments of a run (as :func:`dochar.models.fit.fit_gnn` builds it)."""
-    char_cnn = dict(features_cfg["char_cnn"]) if featurizer.uses_char_cnn else None
-    return {"in_dim": len(featurizer.feature_names), "num_classes": n_labels,
-            "num_relations": n_relations, "layer": str(model_cfg["layer"]),
-            "hidden_dim": int(model_cfg["hidden_dim"]), "depth": int(model_cfg["depth"]),
-            "dropout": float(model_cfg["dropout"]), "norm": str(model_cfg["norm"]),
-            "residual": bool(model_cfg["residual"]),
-            "layer_options": dict(model_cfg.get("layer_options") or {}),
-            "char_cnn": None if char_cnn is None else {
-                **char_cnn, "kernel_sizes": list(char_cnn["kernel_sizes"])}}
-
-
-def _build_gnn(architecture: Mapping[str, Any]) -> GNNStack:
-    arguments = dict(architecture)
-    char_cnn = arguments.pop("char_cnn")
-    encoder = CharCNNEncoder(**char_cnn) if char_cnn else None
-    return GNNStack(**arguments, char_encoder=encoder,
-                    char_dim=int(char_cnn["out_dim"]) if char_cnn else 0)
-
-
 def _sha256(path: Path) -> str:
     digest = hashlib.sha256()
     with path.open("rb") as stream:
@@ -137,48 +118,47 @@ def _sha256(path: Path) -> str:
     return digest.hexdigest()
 
 
-def save_model(destination: str | Path, model: Any, config: Mapping[str, Any],
-               featurizer: WordFeaturizer | None = None, *, name: str = "",
-               labels: Sequence[str] | None = None) -> Path:
+def save_model(destination: str | Path, fitted: FittedModel, config: Mapping[str, Any], *,
+               name: str = "", labels: Sequence[str] | None = None) -> Path:
     """Write the unit for a fitted model and the resolved run config it was trained with.
 
-    ``featurizer`` is the fitted one when the caller has it; otherwise it is rebuilt from the
-    config, which is exact because a featurizer made from a config learns nothing at fit time.
     ``labels`` are the classes the model predicts (a task's tags; default: the data's labels).
     """
     destination = Path(destination)
     labels = [str(label) for label in (labels or config["data"]["labels"])]
-    if featurizer is None:
+    featurizer = fitted.featurizer
+    if featurizer is None:   # templates read positions only; the unit still records features
         featurizer = WordFeaturizer.from_config(config["features"], config["data"]).fit([])
     builder = graphs.from_config(config["graph"])
-    kind = "gnn" if isinstance(model, torch.nn.Module) else "baseline"
-    task = config.get("task") or {}
+    kind = str(fitted.arguments["kind"])
+    task = dict(config.get("task") or {"name": "word_labels"})
     manifest: dict[str, Any] = {
-        "format": FORMAT, "kind": kind, "task": str(task.get("name") or DEFAULT_TASK),
-        "labels": labels, "name": name or str(config.get("run_name") or ""), "seed": config.get("seed"),
-        "data": {"name": str(config["data"].get("name", "")), "labels": labels},
+        "format": FORMAT, "kind": kind, "task": task, "labels": labels,
+        "name": name or str(config.get("run_name") or ""), "seed": config.get("seed"),
+        "data": {"name": str(config["data"].get("name", "")),
+                 "labels": [str(label) for label in config["data"]["labels"]]},
         "graph": dict(config["graph"]), "relations": list(builder.relations),
         "features": dict(config["features"]), "model": dict(config["model"]),
         "entity_ignore": list((config.get("evaluation") or {}).get("entity_ignore", ["other"])),
         "featurizer": featurizer_state(featurizer, int(config["features"]["hash_features"])),
+        "arguments": fitted.arguments, "threshold": fitted.threshold,
         "libraries": library_versions(), "files": {},
     }
     destination.parent.mkdir(parents=True, exist_ok=True)
     staging = Path(tempfile.mkdtemp(prefix=f".{destination.name}-", dir=destination.parent))
+    path = staging / MODEL_FILES[kind]
     try:
         if kind == "gnn":
-            manifest["architecture"] = _architecture(config["model"], config["features"],
-                                                     featurizer, len(labels),
-                                                     len(builder.relations))
-            state = {k: v.detach().cpu() for k, v in model.state_dict().items()}
-            _build_gnn(manifest["architecture"]).load_state_dict(state, strict=True)
-            torch.save(state, staging / WEIGHTS)
-            manifest["files"][WEIGHTS] = _sha256(staging / WEIGHTS)
+            state = {k: v.detach().cpu() for k, v in fitted.model.state_dict().items()}
+            build_gnn(fitted.arguments).load_state_dict(state, strict=True)
+            torch.save(state, path)
+        elif kind == "template":
+            path.write_text(json.dumps(fitted.model.fitted_state()))
         else:
             import skops.io
 
-            skops.io.dump(model, staging / ESTIMATOR, compression=zipfile.ZIP_DEFLATED)
-            manifest["files"][ESTIMATOR] = _sha256(staging / ESTIMATOR)
+            skops.io.dump(fitted.model, path, compression=zipfile.ZIP_DEFLATED)
+        manifest["files"][path.name] = _sha256(path)
         (staging / MANIFEST).write_text(json.dumps(manifest, indent=2, default=str))
         _replace(staging, destination)
     except BaseException:
@@ -200,7 +180,7 @@ def _replace(staging: Path, destination: Path) -> None:
 
 @dataclass
 class SavedModel:
-    """A loaded unit: the model, the featurizer and graph builder it was trained with."""
+    """A loaded unit: the model, the task, the featurizer and graph builder it was trained with."""
 
     folder: Path
     manifest: dict[str, Any]
@@ -213,8 +193,13 @@ class SavedModel:
         return list(self.manifest["labels"])
 
     @property
-    def task(self) -> str:
-        return str(self.manifest["task"])
+    def word_labels(self) -> list[str]:
+        """The word labels predictions decode to (the data's labels the model was trained on)."""
+        return list(self.manifest["data"]["labels"])
+
+    @property
+    def task(self) -> Task:
+        return tasks.from_config(self.manifest["task"])
 
     @property
     def kind(self) -> str:
@@ -222,9 +207,9 @@ class SavedModel:
 
     def expect(self, *, labels: Sequence[str] | None = None, task: str | None = None) -> None:
         """Refuse a config whose task or label set differs from the one the model learned."""
-        if task is not None and task != self.task:
-            raise SavedModelError(f"{self.folder}: the model was trained for task {self.task!r}, "
-                                  f"the config asks for task {task!r}")
+        if task is not None and task != self.task.name:
+            raise SavedModelError(f"{self.folder}: the model was trained for task "
+                                  f"{self.task.name!r}, the config asks for task {task!r}")
         if labels is not None and list(labels) != self.labels:
             missing = [label for label in labels if label not in self.labels]
             extra = [label for label in self.labels if label not in labels]
@@ -240,15 +225,19 @@ class SavedModel:
                 for name, saved in self.manifest["libraries"].items() if now.get(name) != saved]
 
     def predict_proba(self, pages: Sequence[Page]) -> list[np.ndarray]:
-        """Per-page (words, labels) probabilities, graphs and features built as in training."""
+        """Per-page (nodes, classes) probabilities of the task's node pages, graphs and
+        features built as in training."""
+        if self.task.target != NODES:
+            raise SavedModelError(f"{self.folder}: a {self.task.name} model scores pairs of "
+                                  "nodes; dochar predict labels nodes (word, tag or segment "
+                                  "models)")
         page_set = PageSet.build(pages, self.builder)
         if self.kind == "gnn":
-            # to_graphs wants targets; prediction has none, so pages get placeholders unread here
-            placeholder = [dataclasses.replace(page, labels=[self.labels[0]] * len(page))
-                           for page in page_set.pages]
-            data = to_graphs(PageSet(placeholder, page_set.edges, page_set.relations),
-                             self.featurizer, {self.labels[0]: 0})
-            return predict_proba(self.model, data)
+            return NodeClasses(len(self.labels)).outputs(
+                self.model, to_graphs(page_set, self.featurizer, None))
+        if self.kind == "template":
+            found = self.model.predict_proba(page_set.pages)
+            return np.split(found, np.cumsum([len(page) for page in pages])[:-1])
         options = dict(hash_features=int(self.manifest["featurizer"]["hash_features"]),
                        neighbour_features=bool(self.manifest["model"].get("neighbour_features")))
         seen = self.model.predict_proba(to_matrix(page_set, self.featurizer, **options))
@@ -257,27 +246,55 @@ class SavedModel:
         return np.split(full, np.cumsum([len(page) for page in pages])[:-1])
 
     def label_words(self, table: pd.DataFrame) -> pd.DataFrame:
-        """One row per word of a validated word table: its box, the best three labels and
-        their probabilities (``predicted``/``probability`` is the first)."""
-        pages = list(iter_pages(table))
-        if not pages:
+        """One row per word of a validated word table: its box, the word label the task decodes
+        from the model's predictions (``predicted``, with the node's ``probability`` and, where
+        the task groups words, the ``entity`` it put the word in), and, for word nodes, the next
+        two labels."""
+        words = list(iter_pages(table))
+        if not words:
             raise SavedModelError("no words to label")
+        task = self.task
+        nodes = task.input_pages(words)
+        probabilities = self.predict_proba(nodes)
+        node_frame = node_predictions(nodes, probabilities, self.labels)
+        decoded = task.word_predictions(nodes, node_frame).drop(columns=["label"])
         frames = []
-        for page, proba in zip(pages, self.predict_proba(pages)):
-            best = np.argsort(-proba, axis=1, kind="stable")[:, :TOP]
+        for page in words:
             frame = pd.DataFrame({
                 "doc_id": page.doc_id, "page": page.page, "word_id": page.word_ids,
                 "text": page.texts, "x0": page.boxes[:, 0], "y0": page.boxes[:, 1],
                 "x1": page.boxes[:, 2], "y1": page.boxes[:, 3]})
             if page.labels is not None:
                 frame["label"] = page.labels
-            for rank in range(best.shape[1]):
-                name, chance = (("predicted", "probability") if rank == 0 else
-                                (f"top{rank + 1}", f"top{rank + 1}_probability"))
-                frame[name] = [self.labels[i] for i in best[:, rank]]
-                frame[chance] = np.take_along_axis(proba, best[:, rank:rank + 1], axis=1)[:, 0]
             frames.append(frame)
-        return pd.concat(frames, ignore_index=True)
+        found = pd.concat(frames, ignore_index=True).merge(
+            decoded, on=["doc_id", "page", "word_id"], how="left", validate="one_to_one")
+        if task.nodes_are_word_labels:   # the runners-up are word labels too
+            runners_up = node_frame.drop(columns=["label", "predicted", "confidence", "x0", "y0",
+                                                  "x1", "y1"])
+            found = found.merge(runners_up,
+                                on=["doc_id", "page", "word_id"], how="left")
+        return found.rename(columns={"confidence": "probability"})
+
+
+def node_predictions(pages: Sequence[Page], probabilities: Sequence[np.ndarray],
+                     labels: Sequence[str]) -> pd.DataFrame:
+    """One row per node with its box: the best class (``predicted``, ``confidence``) and the
+    next two."""
+    frames = []
+    for page, proba in zip(pages, probabilities):
+        best = np.argsort(-proba, axis=1, kind="stable")[:, :TOP]
+        frame = pd.DataFrame({"doc_id": page.doc_id, "page": page.page,
+                              "word_id": page.word_ids, "x0": page.boxes[:, 0],
+                              "y0": page.boxes[:, 1], "x1": page.boxes[:, 2],
+                              "y1": page.boxes[:, 3], "label": ""})
+        for rank in range(best.shape[1]):
+            name, chance = (("predicted", "confidence") if rank == 0 else
+                            (f"top{rank + 1}", f"top{rank + 1}_probability"))
+            frame[name] = [labels[i] for i in best[:, rank]]
+            frame[chance] = np.take_along_axis(proba, best[:, rank:rank + 1], axis=1)[:, 0]
+        frames.append(frame)
+    return pd.concat(frames, ignore_index=True)
 
 
 def find_unit(path: str | Path) -> Path:
@@ -305,9 +322,9 @@ def _read_manifest(folder: Path) -> dict[str, Any]:
 
 
 def _check_files(folder: Path, manifest: Mapping[str, Any]) -> None:
-    expected = WEIGHTS if manifest["kind"] == "gnn" else ESTIMATOR
+    expected = MODEL_FILES.get(str(manifest["kind"]))
     files = manifest.get("files") or {}
-    if set(files) != {expected}:
+    if expected is None or set(files) != {expected}:
         raise SavedModelError(f"{folder / MANIFEST}: a {manifest['kind']} model lists files "
                               f"{sorted(files)}, expected [{expected!r}]")
     path = folder / expected
@@ -353,6 +370,15 @@ def _load_estimator(path: Path) -> Any:
                               ) from None
 
 
+def _load_templates(path: Path, arguments: Mapping[str, Any]) -> Any:
+    try:
+        state = json.loads(path.read_text())
+        return build_template(arguments).load_state(state)
+    except (OSError, ValueError, KeyError, TypeError) as error:
+        raise SavedModelError(f"{path}: not a readable template file ({type(error).__name__}: "
+                              f"{error})") from None
+
+
 def load_model(path: str | Path) -> SavedModel:
     """Load a unit safely (see the module docstring) and check that its parts agree."""
     folder = find_unit(path)
@@ -365,18 +391,21 @@ def load_model(path: str | Path) -> SavedModel:
         raise SavedModelError(f"{folder}: this dochar's {manifest['graph']['name']} builder makes "
                               f"relations {list(builder.relations)}, the model was trained on "
                               f"{manifest['relations']}")
+    arguments = manifest["arguments"]
     if manifest["kind"] == "gnn":
-        architecture = manifest["architecture"]
-        if architecture["num_classes"] != len(labels):
-            raise SavedModelError(f"{folder}: the network has {architecture['num_classes']} "
-                                  f"outputs for {len(labels)} labels")
-        model = _build_gnn(architecture)
+        outputs = arguments["stack"]["num_classes"]
+        if arguments["pair_head"] is None and outputs != len(labels):
+            raise SavedModelError(f"{folder}: the network has {outputs} outputs for "
+                                  f"{len(labels)} labels")
+        model = build_gnn(arguments)
         try:
             model.load_state_dict(_load_weights(folder / WEIGHTS), strict=True)
         except RuntimeError as error:
             raise SavedModelError(f"{folder / WEIGHTS}: does not fit the architecture in "
                                   f"{MANIFEST}: {str(error).splitlines()[0]}") from None
         model.eval()
+    elif manifest["kind"] == "template":
+        model = _load_templates(folder / TEMPLATES, arguments)
     else:
         model = _load_estimator(folder / ESTIMATOR)
         classes = np.asarray(getattr(model, "classes_", []))

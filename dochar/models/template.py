@@ -239,6 +239,30 @@ class LayoutTemplateClassifier(ClassifierMixin, BaseEstimator):
             return candidates[best], "fallback", distance
         return None, "no_template", distance
 
+    def fitted_state(self) -> dict[str, Any]:
+        """The fitted templates as plain lists (JSON), what :meth:`load_state` rebuilds from."""
+        return {"classes": [str(c) for c in self.classes_], "templates": [
+            {"family": t.family, "page": int(t.page), "signature": t.signature.tolist(),
+             "points": t.points.tolist(), "shapes": [str(x) for x in t.shapes],
+             "labels": t.labels.tolist()} for t in self.templates_]}
+
+    def load_state(self, state: Mapping[str, Any]) -> LayoutTemplateClassifier:
+        """Templates from :meth:`fitted_state`; the neighbour search is rebuilt from the points."""
+        self.check_options()
+        self.classes_ = np.array(list(state["classes"]), dtype=object)
+        self.templates_ = []
+        for t in state["templates"]:
+            points = np.asarray(t["points"], dtype=np.float64).reshape(-1, 4)
+            search = NearestNeighbors(n_neighbors=min(len(points), self.neighbours
+                                                      + _EXTRA_CANDIDATES)).fit(points)
+            self.templates_.append(_Template(
+                str(t["family"]), int(t["page"]), np.asarray(t["signature"], dtype=np.float64),
+                points, np.array(t["shapes"], dtype=object),
+                np.asarray(t["labels"], dtype=np.int64), search))
+        self.families_ = sorted({t.family for t in self.templates_})
+        self.n_template_words_ = int(sum(len(t.points) for t in self.templates_))
+        return self
+
     def match_pages(self, X: Sequence[Page]) -> pd.DataFrame:
         """One row per page: doc_id, page, layout_id, template family, distance, outcome."""
         self._check_fitted()

@@ -151,20 +151,20 @@ def calibration_plot(curves: Sequence[tuple[str, Reliability]]) -> str:
 
 
 def training_plot(curves: Sequence[tuple[str, pd.DataFrame]]) -> str:
-    """Validation macro-F1 (left) and training loss (right) per epoch; a ring marks the epoch
-    whose weights early stopping kept."""
+    """The validation score early stopping watched (left: the task's, e.g. macro-F1 or link F1)
+    and training loss (right) per epoch; a ring marks the epoch whose weights were kept."""
     with rc_context(FIGURE_STYLE):
         figure = Figure(figsize=(8.6, 3.6))
         score_axes, loss_axes = figure.subplots(1, 2)
         for style, (name, curve) in zip(_series_styles(len(curves)), curves):
             style = {**style, "marker": None}
             kept = curve[curve["kept"].astype(bool)]
-            if "val_macro_f1" in curve:
-                score_axes.plot(curve.index, curve["val_macro_f1"], **style, label=plain(name))
-                score_axes.plot(kept.index, kept["val_macro_f1"], "o", markersize=8,
+            for score in [c for c in curve.columns if c.startswith("val_")][:1]:
+                score_axes.plot(curve.index, curve[score], **style, label=plain(name))
+                score_axes.plot(kept.index, kept[score], "o", markersize=8,
                                 fillstyle="none", color=style.get("color"))
             loss_axes.plot(curve.index, curve["train_loss"], **style, label=plain(name))
-        score_axes.set_ylabel("validation word macro-F1")
+        score_axes.set_ylabel("validation score")
         loss_axes.set_ylabel("training loss")
         for axes in (score_axes, loss_axes):
             axes.set_xlabel("epoch")

@@ -7,27 +7,22 @@ the job's output directory.
 from __future__ import annotations
 
 import base64
-import logging
 from pathlib import Path
-from typing import Any
 
-from dochar.features import WordFeaturizer
 from dochar.metrics.words import row_normalise
-from dochar.models.saved import SAVED_KINDS, SAVED_TASKS, save_model
+from dochar.models.fit import FittedModel
+from dochar.models.saved import save_model
 from dochar.report import write_report
 from dochar.report.plots import calibration_plot, confusion_panels
 from dochar.report.summaries import reliability
 from dochar.runs.bundle import RunBundle
-
-log = logging.getLogger(__name__)
 
 
 def _png(data_uri: str, path: Path) -> None:
     path.write_bytes(base64.b64decode(data_uri.split(",", 1)[1]))
 
 
-def write_run_files(folder: Path, bundle: RunBundle, model: Any,
-                    featurizer: WordFeaturizer | None = None) -> Path:
+def write_run_files(folder: Path, bundle: RunBundle, fitted: FittedModel) -> Path:
     """Figures and the model as one loadable unit in ``model/`` (:mod:`dochar.models.saved`);
     the bundle itself is saved by the caller once tracking has given it a run id."""
     folder.mkdir(parents=True, exist_ok=True)
@@ -42,13 +37,5 @@ def write_run_files(folder: Path, bundle: RunBundle, model: Any,
     write_report([bundle], folder / "run_report.html", title=f"dochar run {bundle.name}",
                  overlay_pages=len(bundle.edges[["doc_id", "page"]].drop_duplicates())
                  if bundle.edges is not None else 0)
-    task = str((bundle.config.get("task") or {}).get("name") or "word_labels")
-    kind = str((bundle.config.get("model") or {}).get("kind", ""))
-    if task in SAVED_TASKS and kind in SAVED_KINDS:
-        save_model(folder / "model", model, bundle.config, featurizer, name=bundle.name,
-                   labels=bundle.labels)
-    else:   # said, not silently dropped: the run's scores stand, the model is not kept
-        log.warning("run %s: models of task %r / kind %r are not saved for dochar predict "
-                    "(saved: tasks %s, kinds %s)", bundle.name, task, kind, list(SAVED_TASKS),
-                    list(SAVED_KINDS))
+    save_model(folder / "model", fitted, bundle.config, name=bundle.name, labels=bundle.labels)
     return folder

@@ -23,7 +23,9 @@ from typing import Any
 import pandas as pd
 import yaml
 
+from dochar import tasks
 from dochar.data.files import atomic_write
+from dochar.tasks import Task
 
 PREDICTION_COLUMNS: tuple[str, ...] = (
     "doc_id", "page", "word_id", "text", "x0", "y0", "x1", "y1", "page_width", "page_height",
@@ -47,6 +49,16 @@ class RunBundle:
     edges: pd.DataFrame | None = None
     run_id: str | None = None
     tables: dict[str, pd.DataFrame] = field(default_factory=dict)
+
+    @property
+    def task(self) -> Task:
+        """The task the run was made for, rebuilt from its config."""
+        return tasks.from_config(self.config.get("task"))
+
+    @property
+    def headline(self) -> str:
+        """The run's headline score (its task's first score)."""
+        return tasks.headline(self.task)
 
     def save(self, folder: str | Path) -> Path:
         """Each file written whole (scratch file, then rename), ``summary.json`` last: a folder

@@ -3,25 +3,22 @@
 from __future__ import annotations
 
 from dochar import tasks
-from dochar.metrics.evaluate import headline_scorers
+from dochar.metrics.evaluate import has_entity_ids, headline_scorers
 from dochar.metrics.intervals import PairedResult, paired_comparison
-from dochar.metrics.links import link_scorers
 from dochar.runs.bundle import RunBundle
 
 
-def compare_runs(run_a: RunBundle, run_b: RunBundle, *, score: str = "macro_f1",
+def compare_runs(run_a: RunBundle, run_b: RunBundle, *, score: str | None = None,
                  method: str = "bootstrap", resamples: int = 2000, seed: int = 0
                  ) -> PairedResult:
     if run_a.labels != run_b.labels:
         raise ValueError(f"runs {run_a.name!r} and {run_b.name!r} use different label sets; "
                          "they cannot be compared word for word")
     ignore = run_a.config.get("evaluation", {}).get("entity_ignore", ["other"])
-    task_cfg = run_a.config.get("task", {}) or {}
-    if task_cfg.get("name") == "links":   # rows are candidate pairs: link scores, no entities
-        scorers = {**headline_scorers(run_a.labels, entities=False),
-                   **link_scorers(str(task_cfg.get("link_kind")))}
-    else:
-        scorers = headline_scorers(run_a.labels, ignore, task=tasks.from_config(task_cfg))
+    task = tasks.from_config(run_a.config.get("task"))
+    scorers = headline_scorers(run_a.labels, ignore, task=task,
+                               entities=has_entity_ids(run_a.predictions))
+    score = score or run_a.headline
     if score not in scorers:
         raise ValueError(f"--score {score!r}: choose one of {sorted(scorers)}")
     return paired_comparison(run_a.predictions, run_b.predictions, scorers[score],

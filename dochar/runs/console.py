@@ -20,23 +20,30 @@ def _interval(metrics: dict[str, float], key: str) -> str:
     return f"{text} {band}" if band else text
 
 
-def ranking_table(bundles: Sequence[RunBundle], title: str = "runs ranked by macro-F1") -> Table:
-    table = Table(title=title, title_justify="left")
-    links = any("link_f1" in b.metrics for b in bundles)   # links runs rank by link F1
-    score = "link_f1" if links else "macro_f1"
-    columns = ["#", "run", "macro-F1 [95% CI]", "micro-F1", "entity F1 [95% CI]"]
-    if links:
-        columns[2:2] = ["link F1 [95% CI]", "link P", "link R"]
-    for column in (*columns, "train s", "params", "run id"):
+def score_title(name: str) -> str:
+    """A score's column heading: ``macro_f1`` -> ``macro-F1``, ``link_f1`` -> ``link F1``."""
+    if name in ("macro_f1", "micro_f1"):
+        return name.replace("_f1", "-F1")
+    return name.replace("_f1", " F1").replace("_", " ")
+
+
+def score_names(bundles: Sequence[RunBundle]) -> list[str]:
+    """The scores the runs' tasks name, in task order, headline of the first run first."""
+    return list(dict.fromkeys(name for b in bundles for name in b.task.scores))
+
+
+def ranking_table(bundles: Sequence[RunBundle], title: str | None = None) -> Table:
+    names = score_names(bundles)
+    headline = bundles[0].headline if bundles else "macro_f1"
+    table = Table(title=title or f"runs ranked by {score_title(headline)}", title_justify="left")
+    for column in ("#", "run", *(f"{score_title(n)} [95% CI]" for n in names), "train s",
+                   "params", "run id"):
         table.add_column(column, justify="left" if column in {"run", "run id"} else "right")
-    ranked = sorted(bundles, key=lambda b: -b.metrics.get(score, float("-inf")))
+    ranked = sorted(bundles, key=lambda b: -b.metrics.get(headline, float("-inf")))
     for rank, bundle in enumerate(ranked, start=1):
         m = bundle.metrics
-        cells = [_interval(m, "macro_f1"), number(m.get("micro_f1")), _interval(m, "entity_f1")]
-        if links:
-            cells[:0] = [_interval(m, "link_f1"), number(m.get("link_precision")),
-                         number(m.get("link_recall"))]
-        table.add_row(str(rank), bundle.name, *cells, number(bundle.cost.get("train_seconds"), 1),
+        table.add_row(str(rank), bundle.name, *(_interval(m, n) for n in names),
+                      number(bundle.cost.get("train_seconds"), 1),
                       f"{int(bundle.cost.get('parameters', 0)):,}", (bundle.run_id or "")[:12])
     return table
 
@@ -89,11 +96,9 @@ def print_comparison(bundles: Sequence[RunBundle]) -> None:
 def aggregate_table(repeats: pd.DataFrame) -> Table:
     """Systems repeated over seeds or folds: mean ± sample std and the number of runs."""
     table = Table(title="systems over seeds / folds (mean ± std)", title_justify="left")
-    links = "link_f1_mean" in repeats.columns
-    columns = ["system", "n", "macro-F1", "micro-F1", "entity F1", "train s"]
-    if links:
-        columns.insert(2, "link F1")
-    for column in columns:
+    scores = [c[:-len("_mean")] for c in repeats.columns
+              if c.endswith("_mean") and c != "cost/train_seconds_mean"]
+    for column in ("system", "n", *map(score_title, scores), "train s"):
         table.add_column(column, justify="left" if column == "system" else "right")
     for row in repeats.itertuples(index=False):
         values = row._asdict()
@@ -101,10 +106,8 @@ def aggregate_table(repeats: pd.DataFrame) -> Table:
         def cell(metric: str, digits: int = 3) -> str:
             mean = values.get(f"{metric}_mean")
             return "–" if mean is None else mean_std(mean, values[f"{metric}_std"], digits)
-        cells = [cell("macro_f1"), cell("micro_f1"), cell("entity_f1")]
-        if links:
-            cells.insert(0, cell("link_f1"))
-        table.add_row(str(row.system), str(row.n), *cells, cell("cost/train_seconds", 1))
+        table.add_row(str(row.system), str(row.n), *map(cell, scores),
+                      cell("cost/train_seconds", 1))
     return table
 
 

@@ -9,7 +9,9 @@ import pandas as pd
 
 from dochar.data.word_table import Page
 from dochar.models.inputs import PageSet
+from dochar.models.pairs import PageCandidates
 from dochar.runs.bundle import PROBABILITY_PREFIX
+from dochar.tasks.links import LINK, NO_LINK, LinkPage
 
 EDGE_COLUMNS = ["doc_id", "page", "source", "target", "relation"]
 
@@ -34,6 +36,47 @@ def prediction_frame(pages: Sequence[Page], probabilities: Sequence[np.ndarray],
         for i, label in enumerate(labels):
             frame[f"{PROBABILITY_PREFIX}{label}"] = proba[:, i]
         frames.append(frame)
+    return pd.concat(frames, ignore_index=True)
+
+
+def pair_frame(pages: Sequence[LinkPage], candidates: Sequence[PageCandidates],
+               probabilities: Sequence[np.ndarray], threshold: float,
+               sides: Mapping[str, str] | None = None) -> pd.DataFrame:
+    """One row per candidate pair of the test pages plus one per true link that was no
+    candidate (columns: :data:`dochar.metrics.links.PAIR_COLUMNS`), labelled ``link`` /
+    ``none``, so the run folder, tracking, the sweep table and ``dochar compare`` read it like any
+    run. For page views each row carries the union box of its two nodes and the text
+    ``source -> target``; ``word_id`` is the row's number on its page."""
+    sides = sides or {}
+    frames = []
+    for page, found, prob in zip(pages, candidates, probabilities):
+        pairs = np.hstack([found.pairs, found.missed])
+        p_link = np.concatenate([prob, np.zeros(found.missed.shape[1])])
+        truth = np.concatenate([found.y, np.ones(found.missed.shape[1], bool)])
+        entities = np.asarray(page.entities, dtype=object)
+        node_ids = np.asarray(page.nodes.entity_ids if page.directed else
+                              page.nodes.word_ids, dtype=object)
+        predicted = p_link >= threshold
+        boxes = page.nodes.boxes
+        union = np.column_stack([np.minimum(boxes[pairs[0], :2], boxes[pairs[1], :2]),
+                                 np.maximum(boxes[pairs[0], 2:], boxes[pairs[1], 2:])])
+        texts = np.asarray(page.nodes.texts, dtype=object)
+        frames.append(pd.DataFrame({
+            "doc_id": page.nodes.doc_id, "page": page.nodes.page,
+            "word_id": np.arange(pairs.shape[1]),    # the pair's row on its page
+            "text": [f"{a[:40]} -> {b[:40]}" for a, b in zip(texts[pairs[0]], texts[pairs[1]])],
+            "x0": union[:, 0], "y0": union[:, 1], "x1": union[:, 2], "y1": union[:, 3],
+            "page_width": page.nodes.width, "page_height": page.nodes.height,
+            "source": pairs[0], "target": pairs[1],
+            "source_id": node_ids[pairs[0]].astype(str), "target_id": node_ids[pairs[1]].astype(str),
+            "source_entity": entities[pairs[0]].astype(str),
+            "target_entity": entities[pairs[1]].astype(str),
+            "candidate": np.arange(pairs.shape[1]) < found.pairs.shape[1],
+            "page_nodes": len(page.nodes), "layout_id": page.nodes.layout_id or "",
+            "layout_side": sides.get(page.nodes.doc_id, ""),
+            "label": np.where(truth, LINK, NO_LINK), "predicted": np.where(predicted, LINK, NO_LINK),
+            "confidence": np.where(predicted, p_link, 1 - p_link),
+            f"{PROBABILITY_PREFIX}{NO_LINK}": 1 - p_link, f"{PROBABILITY_PREFIX}{LINK}": p_link}))
     return pd.concat(frames, ignore_index=True)
 
 

@@ -32,9 +32,11 @@ from hydra.types import RunMode
 from omegaconf import DictConfig, OmegaConf
 from rich.table import Table
 
+from dochar.metrics.evaluate import headline_names
 from dochar.runs.aggregate import aggregate_runs
 from dochar.runs.bundle import RunBundle
 from dochar.runs.console import aggregate_table, console, print_comparison
+from dochar.tasks import VALIDATION_SCORE
 from dochar.runs.tracking import (SWEEP_ID_ENV, SWEEP_PARENT_ENV, config_hash, ensure_experiment,
                                   finished_run, log_failed_run, mask_passwords, resolve_uri,
                                   store_writes, ui_hint)
@@ -45,9 +47,8 @@ SKIPPED_FILE = "skipped.json"
 CONTEXT_FILE = "sweep_context.json"
 OPTUNA_RESULTS = "optimization_results.yaml"
 SOME_JOBS_FAILED = 3   # exit code of a sweep that ended with failed jobs (documented in README)
-VALIDATION_SCORE = "val_macro_f1"
 REPEAT_KEYS = ("seed", "split.fold")  # overrides that repeat a system rather than change it
-AGGREGATED = ("link_f1", "macro_f1", "micro_f1", "entity_f1", "cost/train_seconds")
+AGGREGATED = (*headline_names(), "cost/train_seconds")
 _OUTCOME = {"failed": 0}
 
 
@@ -61,7 +62,7 @@ def in_sweep() -> bool:
 
 
 def validation_score(bundle: RunBundle) -> float:
-    """What sweepers optimise: validation macro-F1, never a test score."""
+    """What sweepers optimise: the task's validation score, never a test score."""
     return float(bundle.cost.get(VALIDATION_SCORE, math.nan))
 
 
@@ -154,7 +155,7 @@ def sweep_frame(bundles: list[RunBundle], skipped: set[str] | None = None,
     rows += [{"run": f"job {f['job']}", "system": f["overrides"], "status": "failed",
               "reason": f["reason"]} for f in failures or []]
     frame = pd.DataFrame(rows)
-    score = "link_f1" if "link_f1" in frame else "macro_f1"
+    score = bundles[0].headline if bundles else None
     if score not in frame:
         return frame
     return frame.sort_values(score, ascending=False, na_position="last")

@@ -147,7 +147,7 @@ def library_versions(libraries: Sequence[str] = LIBRARIES) -> dict[str, str]:
 
 
 CURVE_METRICS = {"train_loss": "train/loss", "val_macro_f1": "val/macro_f1",
-                 "learning_rate": "train/learning_rate"}
+                 "val_link_f1": "val/link_f1", "learning_rate": "train/learning_rate"}
 
 
 def log_curve(run_id: str, curve: Any) -> None:

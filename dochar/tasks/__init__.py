@@ -1,9 +1,9 @@
 """Tasks: what a node is, what its target is, and how predictions go back onto words.
 
 Each task module mirrors ``configs/task/<name>.yaml``; :func:`from_config` builds the one a
-``task`` config section names. Task-specific scores live in :mod:`dochar.metrics`, which reads
-the node predictions a task's model makes. The ``links`` task classifies candidate edges
-instead of nodes and runs through its own wiring (:mod:`dochar.link_experiment`).
+``task`` config section names. Scores live in :mod:`dochar.metrics`, which reads the kinds of
+scorer a task names. The ``links`` task classifies candidate pairs instead of nodes; it runs
+through the same wiring (:mod:`dochar.experiment`).
 """
 
 from __future__ import annotations
@@ -11,8 +11,9 @@ from __future__ import annotations
 from collections.abc import Mapping
 from typing import Any
 
-from dochar.tasks.base import Task, TaskError
+from dochar.tasks.base import NODES, PAIRS, VALIDATION_SCORE, Task, TaskError, headline
 from dochar.tasks.entity_tags import EntityTags
+from dochar.tasks.links import Links
 from dochar.tasks.segment_labels import SegmentLabels, SegmentPage
 from dochar.tasks.word_labels import WordLabels
 
@@ -20,6 +21,7 @@ TASKS: dict[str, type] = {
     "word_labels": WordLabels,
     "entity_tags": EntityTags,
     "segment_labels": SegmentLabels,
+    "links": Links,
 }
 
 
@@ -36,8 +38,18 @@ def from_config(task_cfg: Mapping[str, Any] | None) -> Task:
                         f"{sorted(fields)}")
     if "outside" in options:
         options["outside"] = tuple(options["outside"])
-    return TASKS[name](**options)
+    return TASKS[name](**{key: _plain(value) for key, value in options.items()})
 
 
-__all__ = ["TASKS", "EntityTags", "SegmentLabels", "SegmentPage", "Task", "TaskError",
-           "WordLabels", "from_config"]
+def _plain(value: Any) -> Any:
+    """Config containers as plain Python (a task is built from resolved values, not nodes)."""
+    if hasattr(value, "items"):
+        return {str(k): _plain(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)) or type(value).__name__ == "ListConfig":
+        return [_plain(v) for v in value]
+    return value
+
+
+__all__ = ["NODES", "PAIRS", "TASKS", "VALIDATION_SCORE", "EntityTags", "Links",
+           "SegmentLabels", "SegmentPage", "Task", "TaskError", "WordLabels", "from_config",
+           "headline"]

@@ -28,7 +28,7 @@ import numpy as np
 import pandas as pd
 
 from dochar.data.word_table import Page, reading_order
-from dochar.tasks.base import TaskError, require_labels
+from dochar.tasks.base import ENTITY_F1, MACRO_F1, MICRO_F1, NodeTask, TaskError, require_labels
 
 SCHEMES: dict[str, tuple[str, ...]] = {"bio": ("B", "I"), "bioes": ("B", "I", "E", "S")}
 OUTSIDE = "O"
@@ -116,14 +116,20 @@ def repair(tags: Sequence[str], scheme: str) -> list[str]:
 
 
 @dataclass(frozen=True)
-class EntityTags:
+class EntityTags(NodeTask):
     name: ClassVar[str] = "entity_tags"
+    scores: ClassVar[dict[str, str]] = {ENTITY_F1: "tag_chunks", MACRO_F1: "word_macro",
+                                        MICRO_F1: "word_micro"}
     scheme: str = "bio"
     outside: tuple[str, ...] = field(default=("other",))
 
     def __post_init__(self) -> None:
         check_scheme(self.scheme)
         object.__setattr__(self, "outside", tuple(self.outside))
+
+    @property
+    def label(self) -> str:
+        return f"{self.name}[{self.scheme}]"
 
     def classes(self, labels: Sequence[str]) -> list[str]:
         return tag_classes(labels, self.outside, self.scheme)
@@ -145,19 +151,26 @@ class EntityTags:
         return dataclasses.replace(page, labels=self.tags(page))
 
     def word_predictions(self, pages: Sequence[Page], frame: pd.DataFrame) -> pd.DataFrame:
-        """Word labels from tags: a word in a decoded chunk gets its label, others ``outside``."""
+        """Word labels from tags: a word in a decoded chunk gets its label and the chunk as its
+        ``entity`` (the position of the chunk's first word in reading order), others
+        ``outside``."""
         rows = []
         fallback = self.outside[0] if self.outside else OUTSIDE
         for (_, _), words in frame.groupby(["doc_id", "page"], sort=False):
             order = reading_order(words[["x0", "y0", "x1", "y1"]].to_numpy(float),
                                   words["word_id"].to_numpy())
             predicted = np.full(len(words), fallback, dtype=object)
+            entity = np.full(len(words), "", dtype=object)
             tags = words["predicted"].to_numpy(dtype=object)[order]
             for start, end, label in decode(list(tags), self.scheme):
                 predicted[order[start:end + 1]] = label
+                entity[order[start:end + 1]] = f"chunk{start}"
             true = [split_tag(t)[1] or fallback for t in words["label"]]
-            rows.append(pd.DataFrame({"doc_id": words["doc_id"].to_numpy(),
-                                      "page": words["page"].to_numpy(),
-                                      "word_id": words["word_id"].to_numpy(),
-                                      "label": true, "predicted": predicted}))
+            found = pd.DataFrame({"doc_id": words["doc_id"].to_numpy(),
+                                  "page": words["page"].to_numpy(),
+                                  "word_id": words["word_id"].to_numpy(),
+                                  "label": true, "predicted": predicted, "entity": entity})
+            if "confidence" in words:
+                found["confidence"] = words["confidence"].to_numpy()
+            rows.append(found)
         return pd.concat(rows, ignore_index=True)

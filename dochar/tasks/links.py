@@ -16,21 +16,34 @@ Two kinds (``task.link_kind``):
 
 from __future__ import annotations
 
-from collections.abc import Iterable, Sequence
-from dataclasses import dataclass
+from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any, ClassVar
 
 import numpy as np
 import pandas as pd
 
 from dochar.data.word_table import Page
-from dochar.errors import DocharError
+from dochar.tasks.base import (
+    ENTITY_F1,
+    LINK_F1,
+    LINK_PRECISION,
+    LINK_RECALL,
+    MACRO_F1,
+    MICRO_F1,
+    PAIRS,
+    TaskError,
+)
 from dochar.tasks.segment_labels import segment_page
 
 LINK_KINDS: tuple[str, ...] = ("same_entity", "key_value")
+LINK, NO_LINK = "link", "none"
+LINK_LABELS: tuple[str, ...] = (NO_LINK, LINK)
+CANDIDATE_SOURCES: tuple[str, ...] = ("graph", "distance")
 UNASSIGNED = "~w"   # prefix of the entity id a word without entity_id gets (its own entity)
 
 
-class LinkTaskError(DocharError):
+class LinkTaskError(TaskError):
     """A links task asked of data that cannot answer it (no entity ids, no links table)."""
 
 
@@ -102,3 +115,76 @@ def link_pages(pages: Iterable[Page], kind: str, links: pd.DataFrame | None = No
     empty = links.iloc[:0]
     return [_key_value_page(page, by_page.get((page.doc_id, page.page), empty))
             for page in pages]
+
+
+@dataclass(frozen=True)
+class Links:
+    """Links between the nodes of a page: the model scores candidate pairs, not nodes.
+
+    Candidates come from the graph builder's edges (``candidates.source: graph``) or from every
+    pair within ``candidates.max_distance`` of the page diagonal (``distance``); the decision
+    threshold is chosen on validation pairs only.
+    """
+
+    name: ClassVar[str] = "links"
+    target: ClassVar[str] = PAIRS
+    validation: ClassVar[str] = LINK_F1
+    nodes_are_word_labels: ClassVar[bool] = False
+    link_kind: str = "key_value"
+    link_table_kinds: tuple[str, ...] | None = None
+    candidates: Mapping[str, Any] = field(default_factory=lambda: {"source": "graph",
+                                                                   "max_distance": 0.1})
+    negative_ratio: float | None = None
+    embedding_dim: int = 64
+    pair_head: Mapping[str, Any] = field(default_factory=lambda: {"hidden_dim": 64,
+                                                                  "dropout": 0.2})
+
+    def __post_init__(self) -> None:
+        if self.link_kind not in LINK_KINDS:
+            raise LinkTaskError(f"task.link_kind={self.link_kind!r}: choose one of "
+                                f"{list(LINK_KINDS)}")
+        candidates = {"source": "graph", "max_distance": 0.1, **dict(self.candidates or {})}
+        if candidates["source"] not in CANDIDATE_SOURCES or set(candidates) - {"source",
+                                                                              "max_distance"}:
+            raise LinkTaskError(f"task.candidates: source must be one of "
+                                f"{list(CANDIDATE_SOURCES)} with an optional max_distance, "
+                                f"got {candidates}")
+        head = {"hidden_dim": 64, "dropout": 0.2, **dict(self.pair_head or {})}
+        if set(head) - {"hidden_dim", "dropout"}:
+            raise LinkTaskError(f"task.pair_head: options are hidden_dim and dropout, got "
+                                f"{sorted(head)}")
+        if self.negative_ratio is not None and not float(self.negative_ratio) > 0:
+            raise LinkTaskError(f"task.negative_ratio must be null or positive, "
+                                f"got {self.negative_ratio!r}")
+        if int(self.embedding_dim) < 1:
+            raise LinkTaskError(f"task.embedding_dim must be a positive int, "
+                                f"got {self.embedding_dim!r}")
+        object.__setattr__(self, "candidates", candidates)
+        object.__setattr__(self, "pair_head", head)
+        if self.link_table_kinds is not None:
+            object.__setattr__(self, "link_table_kinds", tuple(self.link_table_kinds))
+
+    @property
+    def scores(self) -> dict[str, str]:
+        found = {LINK_F1: "link_f1", LINK_PRECISION: "link_precision",
+                 LINK_RECALL: "link_recall"}
+        if self.link_kind == "same_entity":
+            found[ENTITY_F1] = "word_grouping"
+        return {**found, MACRO_F1: "word_macro", MICRO_F1: "word_micro"}
+
+    @property
+    def label(self) -> str:
+        return f"links:{self.link_kind}"
+
+    def classes(self, labels: Sequence[str]) -> list[str]:
+        return list(LINK_LABELS)
+
+    def pages(self, pages: Iterable[Page], links: pd.DataFrame | None = None) -> list[LinkPage]:
+        return link_pages(pages, self.link_kind, links, self.link_table_kinds)
+
+    def graph_page(self, task_page: LinkPage) -> Page:
+        return task_page.nodes
+
+    def word_predictions(self, pages: Sequence[Page], frame: pd.DataFrame) -> pd.DataFrame:
+        """Links are not word labels: the pair rows are the predictions (no word view)."""
+        return frame.iloc[:0]

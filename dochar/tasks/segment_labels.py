@@ -14,7 +14,7 @@ much the lines cost.
 from __future__ import annotations
 
 from collections import Counter
-from collections.abc import Sequence
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 from typing import ClassVar
 
@@ -22,7 +22,7 @@ import numpy as np
 import pandas as pd
 
 from dochar.data.word_table import Page, line_segments, reading_order
-from dochar.tasks.base import TaskError, require_labels
+from dochar.tasks.base import MACRO_F1, MICRO_F1, NodeTask, TaskError, require_labels
 
 SEGMENT_SOURCES = ("entities", "lines")
 
@@ -57,8 +57,9 @@ def segment_page(page: Page, keys: Sequence[str], labels: Sequence[str] | None) 
 
 
 @dataclass(frozen=True)
-class SegmentLabels:
+class SegmentLabels(NodeTask):
     name: ClassVar[str] = "segment_labels"
+    scores: ClassVar[dict[str, str]] = {MACRO_F1: "word_macro", MICRO_F1: "word_micro"}
     segments: str = "entities"
     max_gap: float = 1.0          # lines: cut where the gap exceeds this many word heights
 
@@ -66,6 +67,10 @@ class SegmentLabels:
         if self.segments not in SEGMENT_SOURCES:
             raise TaskError(f"task segment_labels: segments must be one of {SEGMENT_SOURCES}, "
                             f"got {self.segments!r}")
+
+    @property
+    def label(self) -> str:
+        return f"{self.name}[{self.segments}]"
 
     def classes(self, labels: Sequence[str]) -> list[str]:
         return [str(label) for label in labels]
@@ -79,6 +84,9 @@ class SegmentLabels:
                             "'entity_id' column (or use task.segments=lines)")
         return [entity or f"\0word{word}" for entity, word in zip(page.entity_ids,
                                                                    page.word_ids)]
+
+    def input_pages(self, pages: Iterable[Page]) -> list[SegmentPage]:
+        return [segment_page(page, self.keys(page), None) for page in pages]
 
     def nodes(self, page: Page) -> SegmentPage:
         labels = require_labels(page, self.name)
@@ -97,17 +105,26 @@ class SegmentLabels:
         return grouped
 
     def word_predictions(self, pages: Sequence[Page], frame: pd.DataFrame) -> pd.DataFrame:
-        """Each word gets its segment's prediction; the true label is the word's own."""
-        predicted = frame.set_index(["doc_id", "page", "word_id"])["predicted"]
+        """Each word gets its segment's prediction (and confidence) and the segment as its
+        ``entity``; the true label is the word's own."""
+        indexed = frame.set_index(["doc_id", "page", "word_id"])
         rows = []
         for page in pages:
             if not isinstance(page, SegmentPage) or page.words is None:
                 raise TaskError(f"page {page.key}: not a segment page")
             words = page.words
             guess = np.empty(len(words), dtype=object)
+            confidence = np.zeros(len(words))
+            entity = np.empty(len(words), dtype=object)
             for segment, members in enumerate(page.members):
-                guess[members] = predicted.loc[(page.doc_id, page.page, segment)]
-            rows.append(pd.DataFrame({"doc_id": words.doc_id, "page": words.page,
-                                      "word_id": words.word_ids, "label": words.labels,
-                                      "predicted": guess}))
+                row = indexed.loc[(page.doc_id, page.page, segment)]
+                guess[members] = row["predicted"]
+                confidence[members] = row.get("confidence", np.nan)
+                entity[members] = str(page.entity_ids[segment]).lstrip("\0")
+            found = pd.DataFrame({"doc_id": words.doc_id, "page": words.page,
+                                  "word_id": words.word_ids, "label": words.labels,
+                                  "predicted": guess, "entity": entity})
+            if "confidence" in frame:
+                found["confidence"] = confidence
+            rows.append(found)
         return pd.concat(rows, ignore_index=True)

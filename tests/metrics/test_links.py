@@ -13,7 +13,7 @@ import pytest
 
 from dochar.metrics.intervals import bootstrap_scores
 from dochar.metrics.links import GroupingF1, LinkScore
-from dochar.models.pairs import best_threshold
+from dochar.models.objectives import best_threshold
 
 
 def _rows(doc: str, pairs, entities, label, predicted, page_nodes, candidate=None):

@@ -8,7 +8,7 @@ import torch
 from sklearn.utils.class_weight import compute_class_weight
 from torch_geometric.data import Data
 
-from dochar.models.training import class_weights
+from dochar.models.objectives import class_weights
 
 
 def pages(*labels: list[int]) -> list[Data]:

@@ -22,9 +22,9 @@ from omegaconf import OmegaConf
 import data_synth
 from dochar import graphs
 from dochar.data.word_table import iter_pages, validate_word_table
-from dochar.features import CharCNNEncoder, WordFeaturizer
-from dochar.models.baselines import make_baseline
-from dochar.models.gnn import GNNStack
+from dochar.features import WordFeaturizer
+from dochar.models.builders import baseline_arguments, build_baseline, build_gnn, gnn_arguments
+from dochar.models.fit import FittedModel
 from dochar.models.inputs import PageSet, label_indices, to_graphs, to_matrix
 from dochar.models.saved import (
     ESTIMATOR,
@@ -37,6 +37,7 @@ from dochar.models.saved import (
     save_model,
 )
 from dochar.models.training import predict_proba
+from dochar.tasks import WordLabels
 from tests.helpers import CONFIGS
 
 
@@ -51,18 +52,12 @@ def pages():
     return list(iter_pages(table))
 
 
-def gnn_for(cfg: dict, page_set: PageSet, featurizer: WordFeaturizer) -> GNNStack:
+def gnn_for(cfg: dict, page_set: PageSet, featurizer: WordFeaturizer) -> FittedModel:
     """A GNN built the way a run builds one (untrained weights are as good as any to compare)."""
     torch.manual_seed(0)
-    encoder = CharCNNEncoder(**cfg["features"]["char_cnn"]) if featurizer.uses_char_cnn else None
-    model_cfg = cfg["model"]
-    return GNNStack(in_dim=len(featurizer.feature_names), num_classes=len(cfg["data"]["labels"]),
-                    num_relations=len(page_set.relations), layer=model_cfg["layer"],
-                    hidden_dim=model_cfg["hidden_dim"], depth=model_cfg["depth"],
-                    dropout=model_cfg["dropout"], norm=model_cfg["norm"],
-                    residual=model_cfg["residual"], char_encoder=encoder,
-                    layer_options=model_cfg["layer_options"],
-                    char_dim=cfg["features"]["char_cnn"]["out_dim"] if encoder else 0).eval()
+    arguments = gnn_arguments(cfg, featurizer, WordLabels(), len(cfg["data"]["labels"]),
+                              len(page_set.relations))
+    return FittedModel(build_gnn(arguments).eval(), arguments, [], {}, featurizer=featurizer)
 
 
 @pytest.fixture(scope="module")
@@ -70,10 +65,10 @@ def saved_gnn(tmp_path_factory, pages):
     cfg = config("model=attention", "graph=knn", "features=all", "++model.hidden_dim=8")
     page_set = PageSet.build(pages, graphs.from_config(cfg["graph"]))
     featurizer = WordFeaturizer.from_config(cfg["features"], cfg["data"]).fit(pages)
-    model = gnn_for(cfg, page_set, featurizer)
+    fitted = gnn_for(cfg, page_set, featurizer)
     index = {label: i for i, label in enumerate(cfg["data"]["labels"])}
-    expected = predict_proba(model, to_graphs(page_set, featurizer, index))
-    folder = save_model(tmp_path_factory.mktemp("gnn") / "model", model, cfg, featurizer)
+    expected = predict_proba(fitted.model, to_graphs(page_set, featurizer, index))
+    folder = save_model(tmp_path_factory.mktemp("gnn") / "model", fitted, cfg)
     return folder, expected
 
 
@@ -86,17 +81,19 @@ def saved_forest(tmp_path_factory, pages):
     x = to_matrix(page_set, featurizer, hash_features=cfg["features"]["hash_features"],
                   neighbour_features=True)
     y = np.concatenate([label_indices(page, index) for page in pages])
-    forest = make_baseline("random_forest", 0, n_estimators=5).fit(x, y)
+    arguments = {**baseline_arguments({**cfg, "seed": 0}), "options": {"n_estimators": 5}}
+    forest = build_baseline(arguments).fit(x, y)
     expected = np.zeros((len(x), len(index)))
     expected[:, forest.classes_] = forest.predict_proba(x)
-    folder = save_model(tmp_path_factory.mktemp("forest") / "model", forest, cfg, featurizer)
+    folder = save_model(tmp_path_factory.mktemp("forest") / "model",
+                        FittedModel(forest, arguments, [], {}, featurizer=featurizer), cfg)
     return folder, expected
 
 
 def test_a_loaded_gnn_labels_pages_as_the_live_one(saved_gnn, pages):
     folder, expected = saved_gnn
     loaded = load_model(folder)
-    assert loaded.kind == "gnn" and loaded.task == "word_labels"
+    assert loaded.kind == "gnn" and loaded.task == WordLabels()
     got = loaded.predict_proba(pages)
     for mine, theirs in zip(got, expected):
         np.testing.assert_allclose(mine, theirs, rtol=0, atol=1e-6)
@@ -111,10 +108,16 @@ def test_a_loaded_baseline_labels_pages_as_the_live_one(saved_forest, pages):
 
 def test_the_manifest_records_what_the_brief_asks(saved_gnn):
     manifest = json.loads((saved_gnn[0] / MANIFEST).read_text())
-    assert manifest["labels"] == list(data_synth.LABELS) and manifest["task"] == "word_labels"
+    assert manifest["labels"] == list(data_synth.LABELS)
+    assert manifest["task"]["name"] == "word_labels"
     assert manifest["graph"]["name"] == "knn" and manifest["model"]["layer"] == "attention"
-    assert manifest["featurizer"]["groups"] == ["geometry", "text_flags", "char_cnn"]
-    assert set(manifest["featurizer"]["lexicons"]) == {"unit", "verdict"}
+    params = manifest["featurizer"]["params"]
+    assert params["groups"] == ["geometry", "text_flags", "char_cnn"]
+    assert set(params["lexicons"]) == {"unit", "verdict"}
+    # every constructor argument of the featurizer is recorded (scikit-learn's get_params rule)
+    import inspect
+    assert set(params) == set(inspect.signature(WordFeaturizer.__init__).parameters) - {"self"}
+    assert manifest["arguments"]["stack"]["layer"] == "attention"
     assert {"torch", "torch-geometric", "scikit-learn", "numpy", "dochar"} <= set(
         manifest["libraries"])
 
@@ -148,8 +151,9 @@ def test_a_failed_save_leaves_the_previous_model_whole(saved_gnn, pages, tmp_pat
     featurizer = WordFeaturizer.from_config(cfg["features"], cfg["data"]).fit(pages)
     wrong = gnn_for(config("model=attention", "graph=knn", "features=all",
                            "++model.hidden_dim=8"), page_set, featurizer)
-    with pytest.raises(RuntimeError, match="size mismatch"):
-        save_model(copy, wrong, cfg, featurizer)   # weights do not fit the recorded shape
+    recorded = gnn_for(cfg, page_set, featurizer).arguments
+    with pytest.raises(RuntimeError, match="size mismatch"):   # weights do not fit the record
+        save_model(copy, FittedModel(wrong.model, recorded, [], {}, featurizer=featurizer), cfg)
     assert sorted(p.name for p in tmp_path.iterdir()) == ["model"]   # no half-written folder
     np.testing.assert_allclose(load_model(copy).predict_proba(pages[:1])[0], expected[0],
                                atol=1e-6)
