@@ -16,6 +16,9 @@ Writes, into DIR:
 
 When the input has a ``label`` column, prints word accuracy and macro-F1 over the words whose
 label the model knows, and reports (document, page, word) the labels it does not know.
+
+A links model writes ``links.csv`` instead: one row per candidate pair it predicts as a link (at
+the threshold chosen on validation pairs in training), with both nodes' ids and the probability.
 """
 
 from __future__ import annotations
@@ -35,6 +38,7 @@ from dochar.data.importers import FORMATS, import_sources
 from dochar.data.importers.label_transfer import TransferSettings
 from dochar.data.word_table import (
     WordTableError,
+    iter_pages,
     read_word_table,
     validate_word_table,
     write_word_table,
@@ -43,7 +47,11 @@ from dochar.errors import DocharError
 from dochar.metrics.entities import entity_tables, reading_order
 from dochar.metrics.words import score_words
 from dochar.models.saved import SavedModel, SavedModelError, load_model
+from dochar.runs.bundle import PROBABILITY_PREFIX
+from dochar.runs.frames import pair_frame
 from dochar.runs.tracking import MODEL_DIR, resolve_uri
+from dochar.tasks import PAIRS
+from dochar.tasks.links import LINK
 
 TABLE_SUFFIXES = (".csv", ".tsv", ".parquet")
 SHOWN = 5   # unknown-label words listed by location before "... and N more"
@@ -206,6 +214,8 @@ def run(args: argparse.Namespace) -> int:
     for note in saved.version_notes():
         print(f"note: library version differs: {note}")
     table = read_inputs(args)
+    if saved.task.target == PAIRS:
+        return write_links(saved, table, args.out)
     words = saved.label_words(table)
     found = fields(words, saved.manifest["entity_ignore"])
     args.out.mkdir(parents=True, exist_ok=True)
@@ -220,6 +230,25 @@ def run(args: argparse.Namespace) -> int:
         for line in score(words, saved):
             print(line)
     print(f"wrote {words_path}, {args.out / 'fields.json'}, {args.out / 'fields.csv'}")
+    return 0
+
+
+LINK_COLUMNS = ["doc_id", "page", "source_id", "target_id", "text", "probability"]
+
+
+def write_links(saved: SavedModel, table: pd.DataFrame, out: Path) -> int:
+    """A links model: every candidate pair it predicts as a link, at its validation threshold,
+    named by the nodes' ids (word ids, or entity ids for key -> value segments)."""
+    pages = list(iter_pages(table))
+    link_pages, candidates, probabilities = saved.score_pairs(pages)
+    rows = pair_frame(link_pages, candidates, probabilities, float(saved.manifest["threshold"]))
+    found = rows[rows["predicted"] == LINK].rename(columns={f"{PROBABILITY_PREFIX}{LINK}":
+                                                            "probability"})
+    out.mkdir(parents=True, exist_ok=True)
+    found[LINK_COLUMNS].to_csv(out / "links.csv", index=False)
+    print(f"scored {int(rows['candidate'].sum())} candidate pairs on {len(pages)} pages; "
+          f"{len(found)} predicted links")
+    print(f"wrote {out / 'links.csv'}")
     return 0
 
 

@@ -137,10 +137,7 @@ def _rows(cfg: DictConfig, inputs: FitInputs, part: str) -> np.ndarray:
                    neighbour_features=bool(cfg.model.neighbour_features))
     if not inputs.pairs:
         return to_matrix(inputs.sets[part], inputs.featurizer, **options)
-    page_set = inputs.sets[part]
-    nodes = [to_matrix(PageSet([page], [edges], page_set.relations), inputs.featurizer,
-                       **options) for page, edges in zip(page_set.pages, page_set.edges)]
-    return pair_matrix(nodes, inputs.candidates[part])
+    return pair_matrix(inputs.sets[part], inputs.candidates[part], inputs.featurizer, **options)
 
 
 def _targets(inputs: FitInputs, part: str) -> np.ndarray:

@@ -14,6 +14,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import torch
@@ -27,7 +28,9 @@ from dochar.graphs.candidates import (
     candidate_pairs,
     missed_links,
 )
+from dochar.features import WordFeaturizer
 from dochar.models.gnn import GNNStack
+from dochar.models.inputs import PageSet, to_matrix
 from dochar.tasks.links import LinkPage
 
 PAIR_GEOMETRY_NAMES: tuple[str, ...] = (
@@ -120,9 +123,12 @@ def with_pairs(data: Data, candidates: PageCandidates) -> Data:
     return data
 
 
-def pair_matrix(nodes: Sequence[np.ndarray], candidates: Sequence[PageCandidates]
-                ) -> np.ndarray:
-    """Forest rows ``[x_s, x_t, g_st]`` from each page's node rows and candidates."""
-    rows = [np.hstack([x[c.pairs[0]], x[c.pairs[1]], c.geometry])
-            for x, c in zip(nodes, candidates)]
+def pair_matrix(page_set: PageSet, candidates: Sequence[PageCandidates],
+                featurizer: WordFeaturizer, **options: Any) -> np.ndarray:
+    """Forest rows ``[x_s, x_t, g_st]``: both nodes' rows (as :func:`to_matrix` cuts them with
+    ``options``) and the pair geometry, page by page."""
+    rows = []
+    for page, edges, found in zip(page_set.pages, page_set.edges, candidates):
+        x = to_matrix(PageSet([page], [edges], page_set.relations), featurizer, **options)
+        rows.append(np.hstack([x[found.pairs[0]], x[found.pairs[1]], found.geometry]))
     return np.vstack(rows).astype(np.float32) if rows else np.zeros((0, 0), np.float32)

@@ -47,8 +47,10 @@ from dochar.features import CHAR_VOCAB, WordFeaturizer
 from dochar.models.builders import build_gnn, build_template
 from dochar.models.fit import FittedModel
 from dochar.models.inputs import PageSet, to_graphs, to_matrix
-from dochar.models.objectives import NodeClasses
-from dochar.tasks import NODES, Task
+from dochar.graphs.candidates import CandidateOptions
+from dochar.models.objectives import NodeClasses, PairLinks
+from dochar.models.pairs import PageCandidates, page_candidates, pair_matrix, with_pairs
+from dochar.tasks import NODES, PAIRS, Task
 
 FORMAT = "dochar-model/2"
 MANIFEST = "manifest.json"
@@ -238,12 +240,40 @@ class SavedModel:
         if self.kind == "template":
             found = self.model.predict_proba(page_set.pages)
             return np.split(found, np.cumsum([len(page) for page in pages])[:-1])
-        options = dict(hash_features=int(self.manifest["featurizer"]["hash_features"]),
-                       neighbour_features=bool(self.manifest["model"].get("neighbour_features")))
-        seen = self.model.predict_proba(to_matrix(page_set, self.featurizer, **options))
+        seen = self.model.predict_proba(to_matrix(page_set, self.featurizer,
+                                                  **self._row_options()))
         full = np.zeros((len(seen), len(self.labels)))
         full[:, self.model.classes_] = seen   # classes absent from training keep probability 0
         return np.split(full, np.cumsum([len(page) for page in pages])[:-1])
+
+    def score_pairs(self, pages: Sequence[Page]) -> tuple[list, list[PageCandidates],
+                                                          list[np.ndarray]]:
+        """A pair model on new word pages: the task's link pages, their candidate pairs (as in
+        training) and each candidate's link probability."""
+        task = self.task
+        if task.target != PAIRS:
+            raise SavedModelError(f"{self.folder}: a {task.name} model labels nodes, it scores "
+                                  "no pairs")
+        link_pages = task.input_pages(pages)
+        page_set = PageSet.build([task.graph_page(p) for p in link_pages], self.builder)
+        options = CandidateOptions(str(task.candidates["source"]),
+                                   float(task.candidates["max_distance"]))
+        candidates = [page_candidates(page, edges, options)
+                      for page, edges in zip(link_pages, page_set.edges)]
+        if self.kind == "gnn":
+            graphs = [with_pairs(g, c) for g, c in zip(to_graphs(page_set, self.featurizer, None),
+                                                        candidates)]
+            return link_pages, candidates, PairLinks().outputs(self.model, graphs)
+        rows = pair_matrix(page_set, candidates, self.featurizer, **self._row_options())
+        seen = self.model.predict_proba(rows) if len(rows) else np.zeros((0, 2))
+        link = (seen[:, list(self.model.classes_).index(1)] if 1 in self.model.classes_
+                else np.zeros(len(seen)))
+        return link_pages, candidates, np.split(link, np.cumsum(
+            [c.pairs.shape[1] for c in candidates])[:-1])
+
+    def _row_options(self) -> dict[str, Any]:
+        return dict(hash_features=int(self.manifest["featurizer"]["hash_features"]),
+                    neighbour_features=bool(self.manifest["model"].get("neighbour_features")))
 
     def label_words(self, table: pd.DataFrame) -> pd.DataFrame:
         """One row per word of a validated word table: its box, the word label the task decodes

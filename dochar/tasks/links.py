@@ -185,6 +185,13 @@ class Links:
     def graph_page(self, task_page: LinkPage) -> Page:
         return task_page.nodes
 
+    def input_pages(self, pages: Iterable[Page]) -> list[LinkPage]:
+        """Link pages of new pages, with no true links (a word without entity id stands alone)."""
+        if self.link_kind == "same_entity":
+            return [_same_entity_page(page) for page in pages]
+        return [_key_value_page(page, pd.DataFrame(columns=["source", "target"]))
+                for page in pages]
+
     def word_predictions(self, pages: Sequence[Page], frame: pd.DataFrame) -> pd.DataFrame:
         """Links are not word labels: the pair rows are the predictions (no word view)."""
         return frame.iloc[:0]

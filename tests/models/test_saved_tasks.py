@@ -73,3 +73,26 @@ def test_predict_with_a_saved_model_gives_the_runs_own_words(case, tmp_path):
     if "tags" in case:   # one field per decoded chunk whose label is scored
         entities = words[(words["entity"] != "") & ~words["predicted"].isin(ignore)]
         assert len(found) == entities.groupby(["doc_id", "page", "entity"]).ngroups
+
+
+@pytest.mark.parametrize("kind", [GNN, FOREST], ids=["gnn", "forest"])
+def test_a_saved_links_model_predicts_the_runs_own_links(kind, tmp_path):
+    """The links ``dochar predict`` writes are the test pairs the run itself predicted."""
+    cfg = _compose(["task=links", "task.link_kind=same_entity", *kind])
+    bundle, fitted = run_experiment(cfg)
+    unit = save_model(tmp_path / "model", fitted, bundle.config, name=bundle.name,
+                      labels=bundle.labels)
+    rows = bundle.predictions
+    expected = rows[rows["candidate"] & (rows["predicted"] == "link")]
+    table = load_data(cfg.data, strict=False).table
+    test_words = table[table["doc_id"].astype(str).isin(set(rows["doc_id"]))]
+    source = tmp_path / "test_words.csv"
+    test_words[[*REQUIRED_COLUMNS, "label", "entity_id"]].to_csv(source, index=False)
+
+    assert main(["--model", str(unit), "--input", str(source), "--out", str(tmp_path / "out")]) == 0
+    found = pd.read_csv(tmp_path / "out" / "links.csv", dtype={"doc_id": str, "source_id": str,
+                                                               "target_id": str})
+    keys = ["doc_id", "page", "source_id", "target_id"]
+    assert len(expected) > 0
+    assert (sorted(map(tuple, found[keys].astype(str).to_numpy()))
+            == sorted(map(tuple, expected[keys].astype(str).to_numpy())))
