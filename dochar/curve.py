@@ -26,11 +26,12 @@ from omegaconf import DictConfig, OmegaConf
 
 from dochar.errors import DocharError
 from dochar.runs.bundle import RunBundle
+from dochar.tasks.base import ENTITY_F1, MACRO_F1, MICRO_F1
 
 log = logging.getLogger(__name__)
-CURVE_SCORES: tuple[str, ...] = ("macro_f1", "micro_f1", "entity_f1")
-SIDE_SCORES: tuple[str, ...] = ("seen/macro_f1", "seen/entity_f1", "unseen/macro_f1",
-                                "unseen/entity_f1")
+CURVE_SCORES: tuple[str, ...] = (MACRO_F1, MICRO_F1, ENTITY_F1)
+SIDE_SCORES: tuple[str, ...] = tuple(f"{side}/{score}" for side in ("seen", "unseen")
+                                     for score in (MACRO_F1, ENTITY_F1))
 AXES: tuple[str, ...] = ("train_documents", "pages_per_layout")
 RunHook = Callable[[RunBundle, Any, DictConfig], None]
 

@@ -23,9 +23,10 @@ from dataclasses import dataclass
 from typing import Any
 
 from dochar.errors import DocharError
+from dochar.tasks.base import ENTITY_F1, MACRO_F1
 
 MODES = ("interval", "absolute")
-DEFAULT_HEADLINE = ("macro_f1", "entity_f1")   # gated when the tolerances name none
+DEFAULT_HEADLINE = (MACRO_F1, ENTITY_F1)   # gated when the tolerances name none
 CLASS_PREFIX = "f1/"
 # Scores equal up to float round-off are equal (a rerun must not fail on the last bit).
 _SLACK = 1e-12

@@ -22,6 +22,7 @@ import torch
 from dochar.gate.command import run_reference
 from dochar.models import training
 from dochar.models.checkpoints import EpochCheckpoint
+from dochar.models.objectives import NodeClasses
 from tests.helpers import REPO
 
 # Dropout and an eight-page loader, so both the global torch RNG and the shuffling generator
@@ -103,15 +104,15 @@ def test_resumed_training_repeats_the_uninterrupted_history(tmp_path, stop_at):
     from tests.runs.training_inputs import tiny_training
 
     model, graphs, cfg = tiny_training()
-    reference = training.train(model, graphs["train"], graphs["val"], 4, cfg, seed=0)
+    reference = training.train(model, graphs["train"], graphs["val"], NodeClasses(4), cfg, seed=0)
     reference_weights = {k: v.clone() for k, v in model.state_dict().items()}
 
     model, graphs, cfg = tiny_training()
     with pytest.raises(Stopped):
-        training.train(model, graphs["train"], graphs["val"], 4, cfg, seed=0,
+        training.train(model, graphs["train"], graphs["val"], NodeClasses(4), cfg, seed=0,
                        checkpoint=StopAfter(tmp_path, stop_at))
     model, graphs, cfg = tiny_training()     # a fresh process would rebuild everything
-    resumed = training.train(model, graphs["train"], graphs["val"], 4, cfg, seed=0,
+    resumed = training.train(model, graphs["train"], graphs["val"], NodeClasses(4), cfg, seed=0,
                              checkpoint=EpochCheckpoint(tmp_path, "k", "inputs"))
     assert resumed == reference
     assert all(torch.equal(model.state_dict()[k], v) for k, v in reference_weights.items())
@@ -122,10 +123,10 @@ def test_a_checkpoint_of_other_inputs_is_not_resumed(tmp_path):
 
     model, graphs, cfg = tiny_training()
     with pytest.raises(Stopped):
-        training.train(model, graphs["train"], graphs["val"], 4, cfg, seed=0,
+        training.train(model, graphs["train"], graphs["val"], NodeClasses(4), cfg, seed=0,
                        checkpoint=StopAfter(tmp_path, 2))
     other = EpochCheckpoint(tmp_path, "k", "other inputs")
     model, graphs, cfg = tiny_training()
-    history = training.train(model, graphs["train"], graphs["val"], 4, cfg, seed=0,
+    history = training.train(model, graphs["train"], graphs["val"], NodeClasses(4), cfg, seed=0,
                              checkpoint=other)
     assert history.epochs_run == cfg["max_epochs"] and len(history.losses) == cfg["max_epochs"]
