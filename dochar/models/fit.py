@@ -55,7 +55,8 @@ def fit_gnn(cfg: DictConfig, sets: dict[str, PageSet], featurizer: WordFeaturize
                      dropout=model_cfg.dropout, norm=model_cfg.norm,
                      residual=model_cfg.residual, char_encoder=encoder,
                      char_dim=int(cfg.features.char_cnn.out_dim) if encoder else 0,
-                     layer_options=dict(model_cfg.layer_options or {}))
+                     layer_options=dict(model_cfg.layer_options or {}),
+                     edge_dim=len(sets["train"].edge_attr_names))
     checkpoint = _checkpoint(cfg, graphs)
     started = time.perf_counter()
     history = train(model, graphs["train"], graphs["val"], len(labels), cfg.train, int(cfg.seed),

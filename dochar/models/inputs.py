@@ -26,6 +26,7 @@ class PageSet:
     pages: list[Page]
     edges: list[TypedEdges]
     relations: tuple[str, ...]
+    edge_attr_names: tuple[str, ...] = ()   # the builder's continuous edge attributes, if any
 
     @classmethod
     def build(cls, pages: Sequence[Page], builder: GraphBuilder, *, progress: bool = False,
@@ -33,7 +34,8 @@ class PageSet:
         pages = list(pages)
         edges = [builder(page) for page in tqdm(pages, desc=desc, disable=not progress,
                                                 leave=False)]
-        return cls(pages, edges, tuple(builder.relations))
+        return cls(pages, edges, tuple(builder.relations),
+                   tuple(getattr(builder, "edge_attr_names", ())))
 
 
 def label_indices(page: Page, label_index: dict[str, int]) -> np.ndarray:
@@ -53,6 +55,9 @@ def to_graphs(page_set: PageSet, featurizer: WordFeaturizer, label_index: dict[s
                     num_nodes=len(page))
         if featurizer.uses_char_cnn:
             data.chars = torch.from_numpy(featurizer.char_ids(page))
+        edge_attr = getattr(edges, "edge_attr", None)
+        if edge_attr is not None:
+            data.edge_attr = torch.from_numpy(np.asarray(edge_attr, dtype=np.float32))
         graphs.append(data)
     return graphs
 

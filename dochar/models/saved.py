@@ -108,7 +108,8 @@ def featurizer_from_state(state: Mapping[str, Any]) -> WordFeaturizer:
 
 
 def _architecture(model_cfg: Mapping[str, Any], features_cfg: Mapping[str, Any],
-                  featurizer: WordFeaturizer, n_labels: int, n_relations: int) -> dict[str, Any]:
+                  featurizer: WordFeaturizer, n_labels: int, n_relations: int,
+                  edge_dim: int) -> dict[str, Any]:
     """The GNNStack arguments of a run (as :func:`dochar.models.fit.fit_gnn` builds it)."""
     char_cnn = dict(features_cfg["char_cnn"]) if featurizer.uses_char_cnn else None
     return {"in_dim": len(featurizer.feature_names), "num_classes": n_labels,
@@ -116,7 +117,7 @@ def _architecture(model_cfg: Mapping[str, Any], features_cfg: Mapping[str, Any],
             "hidden_dim": int(model_cfg["hidden_dim"]), "depth": int(model_cfg["depth"]),
             "dropout": float(model_cfg["dropout"]), "norm": str(model_cfg["norm"]),
             "residual": bool(model_cfg["residual"]),
-            "layer_options": dict(model_cfg.get("layer_options") or {}),
+            "layer_options": dict(model_cfg.get("layer_options") or {}), "edge_dim": edge_dim,
             "char_cnn": None if char_cnn is None else {
                 **char_cnn, "kernel_sizes": list(char_cnn["kernel_sizes"])}}
 
@@ -169,7 +170,8 @@ def save_model(destination: str | Path, model: Any, config: Mapping[str, Any],
         if kind == "gnn":
             manifest["architecture"] = _architecture(config["model"], config["features"],
                                                      featurizer, len(labels),
-                                                     len(builder.relations))
+                                                     len(builder.relations),
+                                                     len(getattr(builder, "edge_attr_names", ())))
             state = {k: v.detach().cpu() for k, v in model.state_dict().items()}
             _build_gnn(manifest["architecture"]).load_state_dict(state, strict=True)
             torch.save(state, staging / WEIGHTS)
@@ -370,6 +372,10 @@ def load_model(path: str | Path) -> SavedModel:
         if architecture["num_classes"] != len(labels):
             raise SavedModelError(f"{folder}: the network has {architecture['num_classes']} "
                                   f"outputs for {len(labels)} labels")
+        edge_dim = len(getattr(builder, "edge_attr_names", ()))
+        if int(architecture.get("edge_dim", 0)) != edge_dim:
+            raise SavedModelError(f"{folder}: the network reads {architecture.get('edge_dim', 0)} "
+                                  f"edge attributes, this dochar's graph config gives {edge_dim}")
         model = _build_gnn(architecture)
         try:
             model.load_state_dict(_load_weights(folder / WEIGHTS), strict=True)
