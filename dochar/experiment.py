@@ -98,7 +98,7 @@ def run_experiment(cfg: DictConfig) -> tuple[RunBundle, Any]:
     data = load_data(cfg.data, strict=bool(cfg.strict), progress=progress)
     split = split_run(data.table, cfg.split, int(cfg.seed))
     part_of = split.part_of()
-    builder = graphs.from_config(cfg.graph)
+    builder = graphs.from_config(cfg.graph, cfg.get("edges"))
     pages = {part: [] for part in PARTS}
     for page in iter_pages(split.table):
         if page.doc_id in part_of:   # a nested training subset leaves some documents out

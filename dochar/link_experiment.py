@@ -184,7 +184,7 @@ def run_links(cfg: DictConfig) -> tuple[RunBundle, Any]:
     for page in link_pages((p for p in iter_pages(split.table) if p.doc_id in part_of),
                            str(task.link_kind), data.links, table_kinds):
         by_part[part_of[page.nodes.doc_id]].append(page)
-    builder = graphs.from_config(cfg.graph)
+    builder = graphs.from_config(cfg.graph, cfg.get("edges"))
     options = CandidateOptions(str(task.candidates.source), float(task.candidates.max_distance))
     featurizer = WordFeaturizer.from_config(cfg.features, cfg.data).fit(
         [p.nodes for p in by_part["train"]])

@@ -64,8 +64,10 @@ def to_graphs(page_set: PageSet, featurizer: WordFeaturizer, label_index: dict[s
 
 def to_matrix(page_set: PageSet, featurizer: WordFeaturizer, *, hash_features: int,
               neighbour_features: bool) -> np.ndarray:
-    """Per-word rows for a baseline; hashed n-grams stand in for the char CNN."""
-    from dochar.models.baselines import neighbour_aggregates
+    """Per-word rows for a baseline; hashed n-grams stand in for the char CNN. With
+    ``neighbour_features``, the neighbours' aggregates follow, then those of the incoming edge
+    attributes when the edges carry any."""
+    from dochar.models.baselines import edge_attr_aggregates, neighbour_aggregates
 
     blocks = []
     for page, edges in zip(page_set.pages, page_set.edges):
@@ -77,5 +79,8 @@ def to_matrix(page_set: PageSet, featurizer: WordFeaturizer, *, hash_features: i
             dense = np.hstack([dense, neighbour_aggregates(dense, edges.edge_index,
                                                             edges.edge_type,
                                                             len(page_set.relations))])
+            if edges.edge_attr is not None:   # the edges' own attributes, as the GNN sees them
+                dense = np.hstack([dense, edge_attr_aggregates(edges.edge_attr, edges.edge_index[1],
+                                                               len(page))])
         blocks.append(dense)
     return np.vstack(blocks).astype(np.float32)

@@ -151,7 +151,7 @@ def save_model(destination: str | Path, model: Any, config: Mapping[str, Any],
     labels = [str(label) for label in (labels or config["data"]["labels"])]
     if featurizer is None:
         featurizer = WordFeaturizer.from_config(config["features"], config["data"]).fit([])
-    builder = graphs.from_config(config["graph"])
+    builder = graphs.from_config(config["graph"], config.get("edges"))
     kind = "gnn" if isinstance(model, torch.nn.Module) else "baseline"
     task = config.get("task") or {}
     manifest: dict[str, Any] = {
@@ -159,6 +159,7 @@ def save_model(destination: str | Path, model: Any, config: Mapping[str, Any],
         "labels": labels, "name": name or str(config.get("run_name") or ""), "seed": config.get("seed"),
         "data": {"name": str(config["data"].get("name", "")), "labels": labels},
         "graph": dict(config["graph"]), "relations": list(builder.relations),
+        "edges": dict(config.get("edges") or {}), "edge_attr_names": list(builder.edge_attr_names),
         "features": dict(config["features"]), "model": dict(config["model"]),
         "entity_ignore": list((config.get("evaluation") or {}).get("entity_ignore", ["other"])),
         "featurizer": featurizer_state(featurizer, int(config["features"]["hash_features"])),
@@ -362,7 +363,11 @@ def load_model(path: str | Path) -> SavedModel:
     _check_files(folder, manifest)
     labels = list(manifest["labels"])
     featurizer = featurizer_from_state(manifest["featurizer"])
-    builder = graphs.from_config(manifest["graph"])
+    builder = graphs.from_config(manifest["graph"], manifest.get("edges"))
+    if list(builder.edge_attr_names) != list(manifest.get("edge_attr_names", [])):
+        raise SavedModelError(f"{folder}: this dochar's edge features are "
+                              f"{list(builder.edge_attr_names)}, the model was trained on "
+                              f"{manifest.get('edge_attr_names', [])}")
     if list(builder.relations) != list(manifest["relations"]):
         raise SavedModelError(f"{folder}: this dochar's {manifest['graph']['name']} builder makes "
                               f"relations {list(builder.relations)}, the model was trained on "

@@ -1,0 +1,42 @@
+"""A saved model keeps its edge features: the loaded builder adds the same attributes, so a
+forest trained on edge aggregates labels new pages exactly as the live one (dochar/models/saved.py).
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+
+from dochar import graphs
+from dochar.features import WordFeaturizer
+from dochar.models.baselines import make_baseline
+from dochar.models.inputs import PageSet, label_indices, to_matrix
+from dochar.models.saved import MANIFEST, SavedModelError, load_model, save_model
+from tests.models.test_saved import config, pages  # noqa: F401  (pages is a fixture)
+
+
+def test_a_forest_on_edge_attributes_is_applied_with_them(tmp_path, pages):  # noqa: F811
+    cfg = config("model=random_forest_neighbours", "features=geometry", "edges=geometry",
+                 "graph=knn")
+    builder = graphs.from_config(cfg["graph"], cfg["edges"])
+    page_set = PageSet.build(pages, builder)
+    featurizer = WordFeaturizer.from_config(cfg["features"], cfg["data"]).fit(pages)
+    index = {label: i for i, label in enumerate(cfg["data"]["labels"])}
+    x = to_matrix(page_set, featurizer, hash_features=cfg["features"]["hash_features"],
+                  neighbour_features=True)
+    forest = make_baseline("random_forest", 0, n_estimators=5).fit(
+        x, np.concatenate([label_indices(page, index) for page in pages]))
+    expected = np.zeros((len(x), len(index)))
+    expected[:, forest.classes_] = forest.predict_proba(x)
+    folder = save_model(tmp_path / "model", forest, cfg, featurizer)
+    loaded = load_model(folder)
+    assert loaded.builder.edge_attr_names == builder.edge_attr_names != ()
+    np.testing.assert_array_equal(np.vstack(loaded.predict_proba(pages)), expected)
+
+    manifest = json.loads((folder / MANIFEST).read_text())
+    manifest["edge_attr_names"] = manifest["edge_attr_names"][:-1]
+    (folder / MANIFEST).write_text(json.dumps(manifest))
+    with pytest.raises(SavedModelError, match="edge features"):
+        load_model(folder)
