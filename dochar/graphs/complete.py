@@ -1,7 +1,8 @@
 """Every ordered pair of distinct words of a page: whole-page attention's graph.
 
 The source ``j`` of an edge is any other word of the page, typed by the direction it lies in
-from the target ``i`` (dominant axis of the centre offset, :func:`dochar.graphs.base.direction_codes`).
+from the target ``i`` (dominant axis of the centre offset,
+:func:`dochar.graphs.base.direction_codes`).
 Two optional bounds keep long pages affordable:
 
 * ``radius``: keep pairs whose page-normalised centre distance ``sqrt((dx/W)^2 + (dy/H)^2)`` (the

@@ -74,6 +74,13 @@ def test_a_long_page_without_bounds_is_refused_with_the_options(monkeypatch):
     assert make_graph_builder("complete", max_neighbours=2)(page).num_edges == 10
 
 
+def test_a_pair_exactly_at_the_radius_is_kept():
+    # page 40 x 40: centres 10 apart along x are 10 / 40 = 0.25 apart, 0.25^2 exact in binary
+    page = make_page([(0, 0, 0, 0), (10, 0, 10, 0), (20, 0, 20, 0)], width=40, height=40)
+    got = edge_set(make_graph_builder("complete", radius=0.25)(page))
+    assert got == {(1, 0, "right"), (0, 1, "left"), (2, 1, "right"), (1, 2, "left")}
+
+
 def test_bad_bounds_are_refused():
     with pytest.raises(GraphBuilderError, match="radius must be a positive"):
         make_graph_builder("complete", radius=0)

@@ -43,7 +43,8 @@ def test_every_builder_config_starts_from_the_shared_one():
         text = yaml.safe_load(path.read_text())
         assert "common" in text["defaults"] or text["defaults"][0] in {
             p.stem for p in path.parent.glob("*.yaml")}, path.name
-        assert not {"self_loops", "reverse_edges", "gutter_min_width"} & set(text.get("options") or {})
+        shared = {"self_loops", "reverse_edges", "gutter_min_width"}
+        assert not shared & set(text.get("options") or {})
 
 
 def test_pruning_after_edge_features_keeps_attributes_aligned():
@@ -74,7 +75,8 @@ def test_from_config_reads_the_edges_section():
     edges = rich(page)
     assert rich.edge_attr_names == edges.edge_attr_names == (
         "direction_sin", "direction_cos", "reading_distance")
-    assert edge_set(edges) == edge_set(plain(page)) and edges.edge_attr.shape == (edges.num_edges, 3)
+    assert edge_set(edges) == edge_set(plain(page))
+    assert edges.edge_attr.shape == (edges.num_edges, 3)
 
 
 def test_gutter_options_are_checked_even_when_pruning_is_off():

@@ -9,15 +9,19 @@ import json
 import numpy as np
 import pytest
 
+import data_synth
 from dochar import graphs
+from dochar.data.word_table import iter_pages, validate_word_table
 from dochar.features import WordFeaturizer
 from dochar.models.baselines import make_baseline
 from dochar.models.inputs import PageSet, label_indices, to_matrix
 from dochar.models.saved import MANIFEST, SavedModelError, load_model, save_model
-from tests.models.test_saved import config, pages  # noqa: F401  (pages is a fixture)
+from tests.models.test_saved import config
 
 
-def test_a_forest_on_edge_attributes_is_applied_with_them(tmp_path, pages):  # noqa: F811
+def test_a_forest_on_edge_attributes_is_applied_with_them(tmp_path):
+    table = validate_word_table(data_synth.generate(4, seed=11), list(data_synth.LABELS)).table
+    pages = list(iter_pages(table))
     cfg = config("model=random_forest_neighbours", "features=geometry", "edges=geometry",
                  "graph=knn")
     builder = graphs.from_config(cfg["graph"], cfg["edges"])

@@ -29,7 +29,7 @@ class EdgeTransform:
 
     @classmethod
     def from_switch(cls, value: Any, **options: Any) -> EdgeTransform | None:
-        """The transform when ``value`` switches it on, else None; options are checked either way."""
+        """The transform when ``value`` switches it on, else None; options checked either way."""
         if not isinstance(value, (bool, np.bool_)):
             raise GraphBuilderError(f"graph option {cls.switch} must be true or false, "
                                     f"got {value!r}")

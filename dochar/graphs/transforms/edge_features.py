@@ -45,8 +45,8 @@ EDGE_FEATURE_GROUPS: dict[str, tuple[str, ...]] = {
     "alignment": ("same_line", "same_column"),
     "reading_order": ("reading_distance",),
 }
-MIN_EXTENT = 1e-3        # fraction of the page width (height) a box's width (height) counts as at least
-EDGES_PER_BLOCK = 500_000   # edges whose attributes are computed at once (bounds temporaries)
+MIN_EXTENT = 1e-3        # least width (height) a box counts as, a fraction of the page's
+EDGES_PER_BLOCK = 100_000   # edges whose attributes are computed at once (bounds temporaries)
 
 
 @dataclass(frozen=True)
