@@ -20,6 +20,7 @@ from pathlib import Path
 from threadpoolctl import threadpool_limits
 
 from benchmarks.builders import builder_figures
+from benchmarks.complete import complete_figures
 from benchmarks.inputs import FUNSD_PRESET, SYNTH_PRESET, run_inputs
 from benchmarks.report import markdown
 from benchmarks.scale import scale_figures
@@ -47,6 +48,7 @@ def main(argv: list[str] | None = None) -> int:
     scale = args.scale_sizes or ([20, 40] if args.smoke else [100, 1000, 10_000])
     with threadpool_limits(limits=1):
         figures = builder_figures(sizes["small"], sizes["large"], sizes["huge"], repeats, judged)
+        figures += complete_figures(sizes["small"], sizes["large"], judged)
         if args.smoke:
             inputs = run_inputs([*SYNTH_PRESET, "data.documents=12", "train.max_epochs=3"])
         else:

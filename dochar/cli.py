@@ -153,7 +153,7 @@ def _graph_stats_job(cfg) -> None:
     from dochar.graphs.diagnostics import candidate_recall, format_stats, graph_stats
 
     data = load_data(cfg.data, strict=bool(cfg.strict))
-    builder = graphs.from_config(cfg.graph)
+    builder = graphs.from_config(cfg.graph, cfg.get("edges"))
     pages = list(iter_pages(data.table))
     stats = graph_stats(pages, builder, list(cfg.data.table_labels))
     print(f"graph builder {cfg.graph.name} on {cfg.data.name}:")

@@ -111,6 +111,14 @@ class GraphSchema:
 
 
 @dataclass
+class EdgesSchema:
+    """Continuous edge attributes: groups of ``dochar.graphs.transforms.EDGE_FEATURE_GROUPS``."""
+
+    name: str = MISSING
+    groups: List[str] = field(default_factory=list)
+
+
+@dataclass
 class CharCnnSchema:
     embedding_dim: int = 16
     channels: int = 32
@@ -222,6 +230,7 @@ class DocharSchema:
 
     data: Any = MISSING
     graph: Any = MISSING
+    edges: Any = None          # continuous edge attributes; absent in configs older than them
     features: Any = MISSING
     model: Any = MISSING
     split: Any = MISSING
@@ -245,6 +254,7 @@ SCHEMAS: dict[tuple[str | None, str], type] = {
     ("data", "base_imported"): ImportedDataSchema,
     ("data", "base_pdf"): PdfDataSchema,
     ("graph", "base_graph"): GraphSchema,
+    ("edges", "base_edges"): EdgesSchema,
     ("features", "base_features"): FeaturesSchema,
     ("model", "base_gnn"): GnnModelSchema,
     ("model", "base_baseline"): BaselineModelSchema,
@@ -313,6 +323,8 @@ def check_config(cfg: Any) -> None:
         if group not in cfg:
             raise DocharError(f"config group {group!r} is missing from the composed config")
         walk(cfg._get_node(group), f"{group}.")
+    if cfg.get("edges") is not None:
+        walk(cfg._get_node("edges"), "edges.")
     unknown = set(cfg.keys()) - {f.name for f in dataclasses.fields(DocharSchema)}
     if unknown:
         raise DocharError(f"config key(s) {sorted(unknown)}: unknown at the top level")

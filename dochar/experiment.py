@@ -69,6 +69,9 @@ def run_name(cfg: DictConfig) -> str:
                          ("self_loops", "self")):
         if cfg.graph.get(option):
             graph += f"+{mark}"
+    edges = cfg.get("edges")
+    if edges is not None and list(edges.groups):
+        graph += f"+edges:{edges.name}"
     return f"{prefix}{system}/{graph}/{'+'.join(cfg.features.groups)}"
 
 
@@ -125,7 +128,7 @@ def run_experiment(cfg: DictConfig) -> tuple[RunBundle, FittedModel]:
     data = load_data(cfg.data, strict=bool(cfg.strict), progress=progress)
     split = split_run(data.table, cfg.split, int(cfg.seed))
     part_of = split.part_of()
-    builder = graphs.from_config(cfg.graph)
+    builder = graphs.from_config(cfg.graph, cfg.get("edges"))
     used = [page for page in iter_pages(split.table) if page.doc_id in part_of]
     task_pages = {part: [] for part in PARTS}   # a nested training subset leaves some out
     for page in task.pages(used, data.links):

@@ -15,10 +15,12 @@ def test_smoke_bench_writes_every_figure(tmp_path):
     assert main(["--smoke", "--out", str(out)]) == 0
     rows = [line for line in out.read_text(encoding="utf-8").splitlines()
             if line.startswith("| ") and not line.startswith("| figure")]
-    assert len(rows) == 22
+    assert len(rows) == 26
     identical = [r for r in rows if "edges identical" in r]
     assert len(identical) == 3 and all("| yes |" in r and r.endswith("| met |") for r in identical)
     same = [r for r in rows if "reference's function" in r]
     assert len(same) == 1 and same[0].endswith("| met |")
-    timed = [r for r in rows if ("≤" in r or "≥" in r) and r not in identical + same]
+    capped = [r for r in rows if "max_neighbours" in r and "edges against knn" in r]
+    assert len(capped) == 1 and capped[0].endswith("| met |")   # the cap bounds the edges
+    timed = [r for r in rows if ("≤" in r or "≥" in r) and r not in identical + same + capped]
     assert timed and all(r.endswith("| not judged (smoke) |") for r in timed)

@@ -4,7 +4,9 @@ something the code registers, and a wrong name fails early with a message that l
 Config groups mirror code modules: ``configs/graph/X.yaml`` names a builder in
 ``dochar.graphs.BUILDERS``, ``configs/model/X.yaml`` a layer in ``dochar.models.layers.LAYERS``
 or a baseline in ``dochar.models.baselines.BASELINES``, ``configs/features/X.yaml`` groups of
-``dochar.features.FEATURE_GROUPS`` (or ``OPTIONAL_GROUPS``, which need an extra). A variant file is named ``<registered name>_<variant>``.
+``dochar.features.FEATURE_GROUPS`` (or ``OPTIONAL_GROUPS``, which need an extra),
+``configs/edges/X.yaml`` groups of ``dochar.graphs.transforms.EDGE_FEATURE_GROUPS``
+(dochar/graphs/transforms/edge_features.py). A variant file is named ``<registered name>_<variant>``.
 """
 
 from __future__ import annotations
@@ -30,13 +32,14 @@ from dochar.features import (
 )
 from dochar.features.text_embedding import embedding_available
 from dochar.graphs import BUILDERS, GraphBuilderError, builder_options
+from dochar.graphs.transforms import EDGE_FEATURE_GROUPS
 from dochar.models.baselines import BASELINES, TEMPLATE_BASELINES, make_baseline, make_template
 from dochar.models.gnn import NORMS, GNNStack
 from dochar.models.layers import LAYERS, layer_options
 from tests.helpers import REPO
 
 CONFIGS = REPO / "configs"
-GROUPS = ("data", "graph", "features", "model", "split", "train")
+GROUPS = ("data", "graph", "edges", "features", "model", "split", "train")
 SHAPE_KEYS = ("hidden_dim", "depth", "dropout", "norm", "residual")
 
 
@@ -86,6 +89,22 @@ def test_graph_config_names_a_registered_builder(option) -> None:
 
 def test_every_registered_builder_has_its_config() -> None:
     assert set(BUILDERS) <= set(options("graph"))
+
+
+@pytest.mark.parametrize("option", options("edges"))
+def test_edges_config_names_registered_feature_groups(option) -> None:
+    cfg = composed(f"edges={option}")
+    assert cfg.edges.name == option and set(cfg.edges.groups) <= set(EDGE_FEATURE_GROUPS)
+    builder = graphs.from_config(cfg.graph, cfg.edges)
+    assert len(builder.edge_attr_names) == sum(len(EDGE_FEATURE_GROUPS[g])
+                                               for g in cfg.edges.groups)
+
+
+def test_edges_default_to_none_and_every_group_has_a_set() -> None:
+    assert composed().edges.groups == [] and graphs.from_config(
+        composed().graph, composed().edges).edge_attr_names == ()
+    chosen = {g for o in options("edges") for g in composed(f"edges={o}").edges.groups}
+    assert chosen == set(EDGE_FEATURE_GROUPS)
 
 
 def test_graph_options_combine_into_typed_relations() -> None:
@@ -162,7 +181,7 @@ def test_every_combination_of_feature_groups_has_a_config() -> None:
 def test_experiment_presets_name_registered_parts(option) -> None:
     cfg = composed(f"+experiment={option}")
     assert set(cfg.graph.options or {}) <= set(builder_options(cfg.graph.name))
-    graphs.from_config(cfg.graph)
+    graphs.from_config(cfg.graph, cfg.edges)
     assert set(cfg.features.groups) <= set(FEATURE_GROUPS + OPTIONAL_GROUPS)
     if cfg.model.kind == "gnn":
         gnn_stack(cfg.model)
@@ -170,7 +189,7 @@ def test_experiment_presets_name_registered_parts(option) -> None:
         make_baseline(cfg.model.estimator, 0, **dict(cfg.model.options or {}))
 
 
-@pytest.mark.parametrize("group", ["graph", "model", "features"])
+@pytest.mark.parametrize("group", ["graph", "edges", "model", "features"])
 def test_unknown_config_file_lists_the_choices(group) -> None:
     with pytest.raises(MissingConfigException) as caught:
         composed(f"{group}=no_such_option")

@@ -8,6 +8,9 @@ Conventions (all builders):
   brings the target a message from a word above it.
 * Edges come out canonical: no duplicate (source, target, type) triple, sorted by target, then
   source, then type. Builders never emit self-edges; the ``self_loops`` option adds them.
+* Continuous edge attributes, when a transform adds them (:mod:`dochar.graphs.transforms`), sit
+  in ``edge_attr`` (E, D) float32, one row per edge in edge order, columns named by
+  ``edge_attr_names``; without them ``edge_attr`` is None and the names are empty.
 """
 
 from __future__ import annotations
@@ -35,6 +38,8 @@ class TypedEdges:
     edge_index: np.ndarray   # (2, E) int64; row 0 = source j, row 1 = target i
     edge_type: np.ndarray    # (E,) int64 in [0, len(relations))
     relations: tuple[str, ...]
+    edge_attr: np.ndarray | None = None     # (E, D) float32, or None: no attributes
+    edge_attr_names: tuple[str, ...] = ()   # D names, empty when edge_attr is None
 
     def __post_init__(self) -> None:
         index = np.asarray(self.edge_index)
@@ -52,10 +57,30 @@ class TypedEdges:
         object.__setattr__(self, "edge_index", index.astype(np.int64, copy=False))
         object.__setattr__(self, "edge_type", types.astype(np.int64, copy=False))
         object.__setattr__(self, "relations", tuple(self.relations))
+        object.__setattr__(self, "edge_attr_names", tuple(self.edge_attr_names))
+        if self.edge_attr is None:
+            if self.edge_attr_names:
+                raise GraphBuilderError(f"edge_attr_names {self.edge_attr_names} given without "
+                                        f"edge_attr")
+            return
+        attr = np.asarray(self.edge_attr)
+        if attr.size == 0:
+            attr = attr.reshape(index.shape[1], len(self.edge_attr_names))
+        if attr.shape != (index.shape[1], len(self.edge_attr_names)):
+            raise GraphBuilderError(f"edge_attr must have shape ({index.shape[1]}, "
+                                    f"{len(self.edge_attr_names)}) for edge_attr_names "
+                                    f"{self.edge_attr_names}, got {attr.shape}")
+        object.__setattr__(self, "edge_attr", attr.astype(np.float32, copy=False))
 
     @property
     def num_edges(self) -> int:
         return int(self.edge_index.shape[1])
+
+    def subset(self, keep: np.ndarray) -> TypedEdges:
+        """The edges where ``keep`` (a mask or index array) selects, attributes kept aligned."""
+        return TypedEdges(self.edge_index[:, keep], self.edge_type[keep], self.relations,
+                          None if self.edge_attr is None else self.edge_attr[keep],
+                          self.edge_attr_names)
 
     def check_nodes(self, num_nodes: int, where: str) -> None:
         """Fail loudly when an edge points past the page's words."""

@@ -1,7 +1,8 @@
 """scikit-learn baselines on per-word feature matrices, and the neighbour features that feed them.
 
 A GNN only earns its place if it beats a tree ensemble given the same words *and* a fixed summary
-of each word's neighbourhood; `neighbour_aggregates` is that summary.
+of each word's neighbourhood; `neighbour_aggregates` is that summary, and `edge_attr_aggregates`
+adds the edges' own attributes when the graph carries them (the GNN sees those too).
 """
 
 from __future__ import annotations
@@ -96,6 +97,27 @@ def neighbour_aggregates(features: np.ndarray, edge_index: np.ndarray, edge_type
     blocks = np.concatenate([means.reshape(n, num_relations, d),
                              maxima.reshape(n, num_relations, d)], axis=2)
     return blocks.reshape(n, 2 * d * num_relations)
+
+
+def edge_attr_aggregates(edge_attr: np.ndarray, target: np.ndarray, num_nodes: int
+                         ) -> np.ndarray:
+    """Mean and max of each word's incoming edge attributes, over all its in-edges.
+
+    Returns (n, 2·D): columns [0, D) the mean, [D, 2D) the max; both 0 for a word with no
+    incoming edge.
+    """
+    edge_attr = np.asarray(edge_attr, dtype=np.float64)
+    target = np.asarray(target, dtype=np.int64)
+    if edge_attr.ndim != 2 or edge_attr.shape[0] != target.shape[0]:
+        raise ValueError(f"edge_attr_aggregates: edge_attr must have shape ({target.shape[0]}, D), "
+                         f"got {edge_attr.shape}")
+    counts = np.bincount(target, minlength=num_nodes)
+    sums = np.zeros((num_nodes, edge_attr.shape[1]))
+    np.add.at(sums, target, edge_attr)
+    maxima = np.full((num_nodes, edge_attr.shape[1]), -np.inf)
+    np.maximum.at(maxima, target, edge_attr)
+    maxima[counts == 0] = 0.0
+    return np.hstack([sums / np.maximum(counts, 1)[:, None], maxima])
 
 
 def _check_aggregate_inputs(features: np.ndarray, edge_index: np.ndarray, edge_type: np.ndarray,

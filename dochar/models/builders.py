@@ -27,7 +27,7 @@ def _plain(section: Any) -> Any:
 
 
 def gnn_arguments(cfg: Mapping[str, Any], featurizer: WordFeaturizer, task: Task,
-                  n_labels: int, n_relations: int) -> dict[str, Any]:
+                  n_labels: int, n_relations: int, edge_dim: int = 0) -> dict[str, Any]:
     """The stack's arguments (and the pair head's, for pair tasks) of a run."""
     model_cfg = cfg["model"]
     char_cnn = _plain(cfg["features"]["char_cnn"]) if featurizer.uses_char_cnn else None
@@ -38,7 +38,8 @@ def gnn_arguments(cfg: Mapping[str, Any], featurizer: WordFeaturizer, task: Task
              "hidden_dim": int(model_cfg["hidden_dim"]), "depth": int(model_cfg["depth"]),
              "dropout": float(model_cfg["dropout"]), "norm": str(model_cfg["norm"]),
              "residual": bool(model_cfg["residual"]),
-             "layer_options": dict(_plain(model_cfg.get("layer_options")) or {})}
+             "layer_options": dict(_plain(model_cfg.get("layer_options")) or {}),
+             "edge_dim": int(edge_dim)}
     return {"kind": "gnn", "stack": stack,
             "char_cnn": None if char_cnn is None else {
                 **char_cnn, "kernel_sizes": list(char_cnn["kernel_sizes"])},

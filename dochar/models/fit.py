@@ -91,7 +91,8 @@ def fit_gnn(cfg: DictConfig, inputs: FitInputs) -> FittedModel:
                                                           inputs.candidates[part])]
                   for part in PARTS}
     arguments = gnn_arguments(cfg, inputs.featurizer, inputs.task, len(inputs.labels),
-                              len(inputs.sets["train"].relations))
+                              len(inputs.sets["train"].relations),
+                              len(inputs.sets["train"].edge_attr_names))
     model = build_gnn(arguments)
     objective = objective_for(inputs.task.target, cfg.train, num_classes=len(inputs.labels),
                               seed=int(cfg.seed),

@@ -19,8 +19,9 @@ class _Block(torch.nn.Module):
         self.layer, self.norm, self.residual = layer, norm, residual
         self.dropout = torch.nn.Dropout(dropout)
 
-    def forward(self, h: Tensor, edge_index: Tensor, edge_type: Tensor) -> Tensor:
-        out = self.dropout(torch.relu(self.norm(self.layer(h, edge_index, edge_type))))
+    def forward(self, h: Tensor, edge_index: Tensor, edge_type: Tensor,
+                edge_attr: Tensor | None) -> Tensor:
+        out = self.dropout(torch.relu(self.norm(self.layer(h, edge_index, edge_type, edge_attr))))
         return h + out if self.residual else out
 
 
@@ -30,20 +31,29 @@ class GNNStack(torch.nn.Module):
     ``[char_encoder(chars) ‖ x] → Linear → depth × block → Linear-ReLU-dropout-Linear``.
     The input projection brings every feature set to ``hidden_dim`` so residual additions line up
     from the first block on, and the layer type is the only thing that changes between ablations.
+    ``edge_dim`` continuous edge attributes per edge (0: none) are batch-normalised once (their
+    scales differ by orders of magnitude: page fractions, line heights, flags) and reach every
+    block as ``edge_attr``; layers that do not read them ignore them.
     """
 
     def __init__(self, in_dim: int, num_classes: int, num_relations: int, layer: str = "relational",
                  hidden_dim: int = 64, depth: int = 2, dropout: float = 0.2, norm: str = "batch",
                  residual: bool = True, char_encoder: torch.nn.Module | None = None,
-                 char_dim: int = 0, layer_options: dict | None = None) -> None:
+                 char_dim: int = 0, layer_options: dict | None = None, edge_dim: int = 0) -> None:
         super().__init__()
         _check_arguments(in_dim, num_classes, num_relations, hidden_dim, depth, dropout, norm,
                          char_encoder, char_dim)
+        if "edge_dim" in (layer_options or {}):
+            raise ValueError("GNNStack: edge_dim is set by the graphs' edge attributes, not by "
+                             "layer_options")
         self.in_dim, self.num_classes, self.char_dim = in_dim, num_classes, char_dim
+        self.edge_dim = edge_dim
+        self.edge_norm = torch.nn.BatchNorm1d(edge_dim) if edge_dim else None
         self.char_encoder = char_encoder
         self.input_projection = torch.nn.Linear(in_dim + char_dim, hidden_dim)
         self.blocks = torch.nn.ModuleList(
-            _Block(make_layer(layer, hidden_dim, hidden_dim, num_relations, **(layer_options or {})),
+            _Block(make_layer(layer, hidden_dim, hidden_dim, num_relations, edge_dim=edge_dim,
+                              **(layer_options or {})),
                    _make_norm(norm, hidden_dim), dropout, residual)
             for _ in range(depth)
         )
@@ -53,20 +63,22 @@ class GNNStack(torch.nn.Module):
         )
 
     def forward(self, x: Tensor, edge_index: Tensor, edge_type: Tensor,
-                chars: Tensor | None = None) -> Tensor:
+                chars: Tensor | None = None, edge_attr: Tensor | None = None) -> Tensor:
         h = self.input_projection(self._node_inputs(x, chars))
+        if self.edge_norm is not None and edge_attr is not None and edge_attr.shape[0] > 0:
+            edge_attr = self.edge_norm(edge_attr)
         for block in self.blocks:
-            h = block(h, edge_index, edge_type)
+            h = block(h, edge_index, edge_type, edge_attr)
         return self.head(h)
 
     @torch.no_grad()
     def predict_proba(self, x: Tensor, edge_index: Tensor, edge_type: Tensor,
-                      chars: Tensor | None = None) -> Tensor:
+                      chars: Tensor | None = None, edge_attr: Tensor | None = None) -> Tensor:
         """Class probabilities in eval mode (no dropout, running norm statistics)."""
         was_training = self.training
         self.eval()
         try:
-            return torch.softmax(self(x, edge_index, edge_type, chars), dim=1)
+            return torch.softmax(self(x, edge_index, edge_type, chars, edge_attr), dim=1)
         finally:
             self.train(was_training)
 

@@ -26,6 +26,7 @@ class PageSet:
     pages: list[Page]
     edges: list[TypedEdges]
     relations: tuple[str, ...]
+    edge_attr_names: tuple[str, ...] = ()   # the builder's continuous edge attributes, if any
 
     @classmethod
     def build(cls, pages: Sequence[Page], builder: GraphBuilder, *, progress: bool = False,
@@ -33,7 +34,8 @@ class PageSet:
         pages = list(pages)
         edges = [builder(page) for page in tqdm(pages, desc=desc, disable=not progress,
                                                 leave=False)]
-        return cls(pages, edges, tuple(builder.relations))
+        return cls(pages, edges, tuple(builder.relations),
+                   tuple(getattr(builder, "edge_attr_names", ())))
 
 
 def label_indices(page: Page, label_index: dict[str, int]) -> np.ndarray:
@@ -55,14 +57,19 @@ def to_graphs(page_set: PageSet, featurizer: WordFeaturizer,
             data.y = torch.from_numpy(label_indices(page, label_index))
         if featurizer.uses_char_cnn:
             data.chars = torch.from_numpy(featurizer.char_ids(page))
+        edge_attr = getattr(edges, "edge_attr", None)
+        if edge_attr is not None:
+            data.edge_attr = torch.from_numpy(np.asarray(edge_attr, dtype=np.float32))
         graphs.append(data)
     return graphs
 
 
 def to_matrix(page_set: PageSet, featurizer: WordFeaturizer, *, hash_features: int,
               neighbour_features: bool) -> np.ndarray:
-    """Per-word rows for a baseline; hashed n-grams stand in for the char CNN."""
-    from dochar.models.baselines import neighbour_aggregates
+    """Per-word rows for a baseline; hashed n-grams stand in for the char CNN. With
+    ``neighbour_features``, the neighbours' aggregates follow, then those of the incoming edge
+    attributes when the edges carry any."""
+    from dochar.models.baselines import edge_attr_aggregates, neighbour_aggregates
 
     blocks = []
     for page, edges in zip(page_set.pages, page_set.edges):
@@ -74,5 +81,8 @@ def to_matrix(page_set: PageSet, featurizer: WordFeaturizer, *, hash_features: i
             dense = np.hstack([dense, neighbour_aggregates(dense, edges.edge_index,
                                                             edges.edge_type,
                                                             len(page_set.relations))])
+            if edges.edge_attr is not None:   # the edges' own attributes, as the GNN sees them
+                dense = np.hstack([dense, edge_attr_aggregates(edges.edge_attr, edges.edge_index[1],
+                                                               len(page))])
         blocks.append(dense)
     return np.vstack(blocks).astype(np.float32)

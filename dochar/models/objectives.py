@@ -44,8 +44,9 @@ def class_weights(graphs: Sequence[Data], num_classes: int, scheme: str) -> torc
 
 
 def node_inputs(batch: Data) -> tuple:
-    """The stack's inputs of a batch: features, edges, relation ids, char ids."""
-    return batch.x, batch.edge_index, batch.edge_type, getattr(batch, "chars", None)
+    """The stack's inputs of a batch: features, edges, relation ids, char ids, edge attributes."""
+    return (batch.x, batch.edge_index, batch.edge_type, getattr(batch, "chars", None),
+            getattr(batch, "edge_attr", None))
 
 
 class NodeClasses:

@@ -101,7 +101,8 @@ class PairScorer(torch.nn.Module):
             torch.nn.Linear(hidden_dim, 1))
 
     def forward(self, batch: Data) -> torch.Tensor:
-        h = self.encoder(batch.x, batch.edge_index, batch.edge_type, getattr(batch, "chars", None))
+        h = self.encoder(batch.x, batch.edge_index, batch.edge_type,
+                         getattr(batch, "chars", None), getattr(batch, "edge_attr", None))
         hs, ht = h[batch.pair_index[0]], h[batch.pair_index[1]]
         return self.head(torch.cat([hs, ht, hs * ht, batch.pair_geometry], dim=1)).squeeze(-1)
 

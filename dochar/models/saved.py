@@ -131,7 +131,7 @@ def save_model(destination: str | Path, fitted: FittedModel, config: Mapping[str
     featurizer = fitted.featurizer
     if featurizer is None:   # templates read positions only; the unit still records features
         featurizer = WordFeaturizer.from_config(config["features"], config["data"]).fit([])
-    builder = graphs.from_config(config["graph"])
+    builder = graphs.from_config(config["graph"], config.get("edges"))
     kind = str(fitted.arguments["kind"])
     task = dict(config.get("task") or {"name": "word_labels"})
     manifest: dict[str, Any] = {
@@ -140,6 +140,7 @@ def save_model(destination: str | Path, fitted: FittedModel, config: Mapping[str
         "data": {"name": str(config["data"].get("name", "")),
                  "labels": [str(label) for label in config["data"]["labels"]]},
         "graph": dict(config["graph"]), "relations": list(builder.relations),
+        "edges": dict(config.get("edges") or {}), "edge_attr_names": list(builder.edge_attr_names),
         "features": dict(config["features"]), "model": dict(config["model"]),
         "entity_ignore": list((config.get("evaluation") or {}).get("entity_ignore", ["other"])),
         "featurizer": featurizer_state(featurizer, int(config["features"]["hash_features"])),
@@ -416,7 +417,11 @@ def load_model(path: str | Path) -> SavedModel:
     _check_files(folder, manifest)
     labels = list(manifest["labels"])
     featurizer = featurizer_from_state(manifest["featurizer"])
-    builder = graphs.from_config(manifest["graph"])
+    builder = graphs.from_config(manifest["graph"], manifest.get("edges"))
+    if list(builder.edge_attr_names) != list(manifest.get("edge_attr_names", [])):
+        raise SavedModelError(f"{folder}: this dochar's edge features are "
+                              f"{list(builder.edge_attr_names)}, the model was trained on "
+                              f"{manifest.get('edge_attr_names', [])}")
     if list(builder.relations) != list(manifest["relations"]):
         raise SavedModelError(f"{folder}: this dochar's {manifest['graph']['name']} builder makes "
                               f"relations {list(builder.relations)}, the model was trained on "
@@ -427,6 +432,11 @@ def load_model(path: str | Path) -> SavedModel:
         if arguments["pair_head"] is None and outputs != len(labels):
             raise SavedModelError(f"{folder}: the network has {outputs} outputs for "
                                   f"{len(labels)} labels")
+        edge_dim = len(builder.edge_attr_names)
+        if int(arguments["stack"].get("edge_dim", 0)) != edge_dim:
+            raise SavedModelError(f"{folder}: the network reads "
+                                  f"{arguments['stack'].get('edge_dim', 0)} edge attributes, "
+                                  f"this dochar's graph config gives {edge_dim}")
         model = build_gnn(arguments)
         try:
             model.load_state_dict(_load_weights(folder / WEIGHTS), strict=True)

@@ -206,7 +206,7 @@ def gatv2_by_hand(layer, x, src, tgt, typ, variant="pyg"):
 
 @pytest.mark.parametrize("concat", [True, False])
 def test_attention_layer_is_gatv2_with_learned_self_loops(concat):
-    layer = make_layer("attention", 3, 4, num_relations=2, heads=2, concat=concat, edge_dim=3)
+    layer = make_layer("attention", 3, 4, num_relations=2, heads=2, concat=concat, type_dim=3)
     _randomise(layer)
     layer.eval()
     src, tgt, typ = SRC + [3], TGT + [3], TYP + [0]  # an existing self loop keeps its own type
@@ -224,7 +224,7 @@ def test_attention_layer_is_gatv2_with_learned_self_loops(concat):
 
 def test_attention_layer_mean_self_loops():
     # torch_geometric add_self_loops(fill_value="mean"): loop attribute = mean of incoming edges'
-    layer = make_layer("attention", 3, 2, num_relations=2, self_loops="mean", edge_dim=2)
+    layer = make_layer("attention", 3, 2, num_relations=2, self_loops="mean", type_dim=2)
     _randomise(layer, seed=4)
     x = _features(4, 3, seed=6)
     out = _np(layer(x, *_graph()))
@@ -323,7 +323,8 @@ def test_none_layer_ignores_edges():
 
 
 def test_registry_names_and_unknown_layer():
-    assert set(LAYERS) == {"relational", "attention", "max", "gcn", "none"}
+    assert set(LAYERS) == {"relational", "attention", "max", "gcn", "none", "edge_attention",
+                           "transformer", "gine", "gated_relational"}
     with pytest.raises(ValueError, match=r"unknown layer 'rgcn'.*attention.*gcn.*max.*none.*relational"):
         make_layer("rgcn", 3, 2, 2)
 

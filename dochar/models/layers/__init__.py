@@ -1,4 +1,9 @@
-"""Message-passing layers chosen by name; all share forward(x, edge_index, edge_type)."""
+"""Message-passing layers chosen by name; all share forward(x, edge_index, edge_type, edge_attr).
+
+``edge_attr`` holds the edges' continuous attributes, (E, edge_dim) floats, or None. Every layer
+takes ``edge_dim`` (0: no attributes); the edge-aware ones (edge_attention, transformer, gine,
+gated_relational) read the attributes, the others accept and ignore them.
+"""
 
 from __future__ import annotations
 
@@ -7,10 +12,14 @@ import inspect
 import torch
 
 from dochar.models.layers.attention import AttentionLayer
+from dochar.models.layers.edge_attention import EdgeAttentionLayer
+from dochar.models.layers.gated_relational import GatedRelationalLayer
 from dochar.models.layers.gcn import GCNLayer
+from dochar.models.layers.gine import GINELayer
 from dochar.models.layers.max import MaxLayer
 from dochar.models.layers.none import NoGraphLayer
 from dochar.models.layers.relational import RelationalLayer
+from dochar.models.layers.transformer import TransformerLayer
 
 LAYERS: dict[str, type] = {
     "relational": RelationalLayer,
@@ -18,19 +27,26 @@ LAYERS: dict[str, type] = {
     "max": MaxLayer,
     "gcn": GCNLayer,
     "none": NoGraphLayer,
+    "edge_attention": EdgeAttentionLayer,
+    "transformer": TransformerLayer,
+    "gine": GINELayer,
+    "gated_relational": GatedRelationalLayer,
 }
 
-_POSITIONAL = ("self", "in_dim", "out_dim", "num_relations")
+# set by the stack from the data, never by a layer's options
+_POSITIONAL = ("self", "in_dim", "out_dim", "num_relations", "edge_dim")
 
 
 def layer_options(name: str) -> tuple[str, ...]:
-    """Option names the layer `name` accepts beyond the three dimensions."""
+    """Option names the layer `name` accepts beyond its dimensions (in, out, relations, edge)."""
     cls = _lookup(name)
     return tuple(p for p in inspect.signature(cls.__init__).parameters if p not in _POSITIONAL)
 
 
-def make_layer(name: str, in_dim: int, out_dim: int, num_relations: int, **options) -> torch.nn.Module:
-    """Build layer `name`; unknown names or options fail here, listing what is valid."""
+def make_layer(name: str, in_dim: int, out_dim: int, num_relations: int, edge_dim: int = 0,
+               **options) -> torch.nn.Module:
+    """Build layer `name` for ``edge_dim`` continuous edge attributes (0: none); unknown names or
+    options fail here, listing what is valid."""
     cls = _lookup(name)
     valid = layer_options(name)
     unknown = sorted(set(options) - set(valid))
@@ -40,7 +56,9 @@ def make_layer(name: str, in_dim: int, out_dim: int, num_relations: int, **optio
     for label, value in (("in_dim", in_dim), ("out_dim", out_dim), ("num_relations", num_relations)):
         if not isinstance(value, int) or isinstance(value, bool) or value < 1:
             raise ValueError(f"layer {name!r}: {label} must be a positive int, got {value!r}")
-    return cls(in_dim, out_dim, num_relations, **options)
+    if not isinstance(edge_dim, int) or isinstance(edge_dim, bool) or edge_dim < 0:
+        raise ValueError(f"layer {name!r}: edge_dim must be an int >= 0, got {edge_dim!r}")
+    return cls(in_dim, out_dim, num_relations, edge_dim=edge_dim, **options)
 
 
 def _lookup(name: str) -> type:
@@ -49,5 +67,6 @@ def _lookup(name: str) -> type:
     return LAYERS[name]
 
 
-__all__ = ["LAYERS", "make_layer", "layer_options", "AttentionLayer", "GCNLayer", "MaxLayer",
-           "NoGraphLayer", "RelationalLayer"]
+__all__ = ["LAYERS", "make_layer", "layer_options", "AttentionLayer", "EdgeAttentionLayer",
+           "GatedRelationalLayer", "GCNLayer", "GINELayer", "MaxLayer", "NoGraphLayer",
+           "RelationalLayer", "TransformerLayer"]

@@ -20,8 +20,9 @@ class AttentionLayer(torch.nn.Module):
             \Theta_s x_i + \Theta_t x_j + \Theta_e e_{ij}\right), \qquad
         x_i' = \sum_{j \in \mathcal{N}(i)} \alpha_{ij}\, \Theta_t x_j + b
 
-    per head, with :math:`e_{ij}` = ``nn.Embedding(edge_type)`` of size ``edge_dim``, so a word can
-    weigh its right neighbour differently from the one above it.
+    per head, with :math:`e_{ij}` = ``nn.Embedding(edge_type)`` of size ``type_dim``, so a word can
+    weigh its right neighbour differently from the one above it. Continuous edge features
+    (``edge_attr``) are ignored here; ``edge_attention`` is the GATv2 layer that reads them.
     ``heads`` heads are concatenated (each ``out_dim // heads`` wide) or, with ``concat=False``,
     averaged (each ``out_dim`` wide).
 
@@ -36,8 +37,8 @@ class AttentionLayer(torch.nn.Module):
     """
 
     def __init__(self, in_dim: int, out_dim: int, num_relations: int, heads: int = 1,
-                 concat: bool = True, edge_dim: int = 16, self_loops: str = "learned",
-                 attention_dropout: float = 0.0) -> None:
+                 concat: bool = True, type_dim: int = 16, self_loops: str = "learned",
+                 attention_dropout: float = 0.0, edge_dim: int = 0) -> None:
         super().__init__()
         if self_loops not in SELF_LOOP_MODES:
             raise ValueError(f"attention layer: self_loops must be one of {SELF_LOOP_MODES}, "
@@ -50,13 +51,14 @@ class AttentionLayer(torch.nn.Module):
         self.in_dim, self.out_dim, self.num_relations = in_dim, out_dim, num_relations
         self.self_loops = self_loops
         extra = 1 if self_loops == "learned" else 0
-        self.edge_embedding = torch.nn.Embedding(num_relations + extra, edge_dim)
+        self.edge_embedding = torch.nn.Embedding(num_relations + extra, type_dim)
         self.conv = GATv2Conv(in_dim, out_dim // heads if concat else out_dim, heads=heads,
                               concat=concat, dropout=attention_dropout,
-                              add_self_loops=self_loops == "mean", edge_dim=edge_dim,
+                              add_self_loops=self_loops == "mean", edge_dim=type_dim,
                               fill_value="mean")
 
-    def forward(self, x: Tensor, edge_index: Tensor, edge_type: Tensor) -> Tensor:
+    def forward(self, x: Tensor, edge_index: Tensor, edge_type: Tensor,
+                edge_attr: Tensor | None = None) -> Tensor:
         check_graph_inputs("attention layer", x, edge_index, edge_type, self.in_dim,
                            self.num_relations)
         if self.self_loops == "learned":

@@ -33,11 +33,12 @@ class RelationalLayer(torch.nn.Module):
     :math:`[W_1; \dots; W_R]`, plus :math:`h_i W_0`. Same arithmetic as a loop over relations,
     one large product instead of R small ones and no per-relation masking. ``self.conv``
     (torch-geometric's ``RGCNConv``) holds the parameters, so initialisation and saved weights
-    are its.
+    are its. Continuous edge features (``edge_attr``) are ignored; ``gated_relational`` reads them.
     """
 
     def __init__(self, in_dim: int, out_dim: int, num_relations: int, num_bases: int | None = None,
-                 aggr: str = "mean", root_weight: bool = True, bias: bool = True) -> None:
+                 aggr: str = "mean", root_weight: bool = True, bias: bool = True,
+                 edge_dim: int = 0) -> None:
         super().__init__()
         if aggr not in AGGREGATIONS:
             raise ValueError(f"relational layer: aggr must be one of {AGGREGATIONS}, got {aggr!r}")
@@ -48,14 +49,39 @@ class RelationalLayer(torch.nn.Module):
         self.conv = RGCNConv(in_dim, out_dim, num_relations, num_bases=num_bases, aggr=aggr,
                              root_weight=root_weight, bias=bias)
 
-    def forward(self, x: Tensor, edge_index: Tensor, edge_type: Tensor) -> Tensor:
+    def forward(self, x: Tensor, edge_index: Tensor, edge_type: Tensor,
+                edge_attr: Tensor | None = None) -> Tensor:
         check_graph_inputs("relational layer", x, edge_index, edge_type, self.in_dim,
                            self.num_relations)
+        return self.propagate(x, edge_index, edge_type)
+
+    def propagate(self, x: Tensor, edge_index: Tensor, edge_type: Tensor,
+                  edge_weight: Tensor | None = None) -> Tensor:
+        """Eq. 2 on checked inputs; ``edge_weight`` (E,) scales each message W_r h_j inside the
+        sum (the normaliser c_{i,r} still counts edges), which is how a gated variant reuses it.
+        Weighted sums go through ``index_add`` (torch's CSR product has no reliable gradient for
+        its values)."""
         n, relations = x.shape[0], self.num_relations
         slot = edge_index[1] * relations + edge_type         # (target i, relation r) of each edge
+        counts = torch.bincount(slot, minlength=n * relations)
+        if edge_weight is None:
+            gathered = self._neighbour_means(x, edge_index[0], slot, counts)
+        else:
+            messages = x.index_select(0, edge_index[0]) * edge_weight.unsqueeze(1)
+            gathered = x.new_zeros(n * relations, x.shape[1]).index_add_(0, slot, messages)
+            if self.aggr == "mean":
+                gathered = gathered / counts.clamp(min=1).unsqueeze(1).to(x.dtype)
+        weights = self._relation_weights().reshape(relations * self.in_dim, self.out_dim)
+        out = gathered.view(n, relations * self.in_dim) @ weights
+        if self.conv.root is not None:
+            out = out + x @ self.conv.root
+        return out + self.conv.bias if self.conv.bias is not None else out
+
+    def _neighbour_means(self, x: Tensor, source: Tensor, slot: Tensor, counts: Tensor) -> Tensor:
+        """m_{i,r} for every (target, relation) row by one sparse (CSR) product."""
+        n, relations = x.shape[0], self.num_relations
         order = torch.argsort(slot, stable=True)
         slot = slot.index_select(0, order)
-        counts = torch.bincount(slot, minlength=n * relations)
         rows = torch.zeros(n * relations + 1, dtype=torch.long)
         torch.cumsum(counts, 0, out=rows[1:])
         norm = torch.ones_like(slot, dtype=x.dtype)
@@ -64,14 +90,9 @@ class RelationalLayer(torch.nn.Module):
         with warnings.catch_warnings():   # torch's one-time "CSR support is in beta" notice
             warnings.filterwarnings("ignore", "Sparse CSR tensor support", UserWarning)
             adjacency = torch.sparse_csr_tensor(  # indices checked above: no second check
-                rows, edge_index[0].index_select(0, order), norm, (n * relations, n),
+                rows, source.index_select(0, order), norm, (n * relations, n),
                 check_invariants=False)
-        gathered = adjacency @ x                              # row (i, r): m_{i,r}
-        weights = self._relation_weights().reshape(relations * self.in_dim, self.out_dim)
-        out = gathered.view(n, relations * self.in_dim) @ weights
-        if self.conv.root is not None:
-            out = out + x @ self.conv.root
-        return out + self.conv.bias if self.conv.bias is not None else out
+        return adjacency @ x                                  # row (i, r): m_{i,r}
 
     def _relation_weights(self) -> Tensor:
         """W_r for every relation, (R, in, out); eq. 3 when bases are shared."""

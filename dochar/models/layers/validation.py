@@ -41,3 +41,22 @@ def _describe(value: object) -> str:
     if isinstance(value, Tensor):
         return f"a tensor of shape {tuple(value.shape)} and dtype {value.dtype}"
     return f"a {type(value).__name__}"
+
+
+def check_edge_attr(where: str, edge_attr: Tensor | None, num_edges: int, edge_dim: int) -> None:
+    """An edge-aware layer built for ``edge_dim`` attributes needs exactly (E, edge_dim) floats;
+    a layer built without them (``edge_dim == 0``) must not be handed any."""
+    if edge_dim == 0:
+        if edge_attr is not None:
+            raise ValueError(f"{where}: was built without edge features (edge_dim = 0) but got "
+                             f"edge_attr {_describe(edge_attr)}; build it with edge_dim = "
+                             f"{edge_attr.shape[-1] if isinstance(edge_attr, Tensor) else '?'}")
+        return
+    if edge_attr is None:
+        raise ValueError(f"{where}: was built for {edge_dim} edge features per edge but got "
+                         "edge_attr=None; the graphs carry no edge attributes (choose an edge "
+                         "attribute set, or build the model with edge_dim = 0)")
+    if (not isinstance(edge_attr, Tensor) or not edge_attr.is_floating_point()
+            or tuple(edge_attr.shape) != (num_edges, edge_dim)):
+        raise ValueError(f"{where}: edge_attr must be a float tensor of shape ({num_edges}, "
+                         f"{edge_dim}) (one row per edge), got {_describe(edge_attr)}")
