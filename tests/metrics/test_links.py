@@ -101,3 +101,24 @@ def test_best_threshold_counts_missed_links():
     threshold, f1 = best_threshold(np.array([.9, .8, .3, .2]), np.array([1, 0, 1, 0], bool),
                                    missed=1, grid=[0.85, 0.5, 0.25, 0.1])
     assert threshold == 0.25 and f1 == pytest.approx(4 / 6)
+
+
+def test_precision_and_recall_differ_where_the_counts_say_so():
+    # the pooled case above has FP = FN, so precision and recall agree there; here they do not.
+    # rows: label    link link link none none
+    #       predict  link none none link none  ->  TP = 1, FP = 1, FN = 2
+    # precision = 1/2, recall = 1/3, F1 = 2/(2+1+2) = 0.4 (worked by hand)
+    from sklearn.metrics import f1_score, precision_score, recall_score
+
+    entities = {i: f"e{i}" for i in range(6)}
+    label = ["link", "link", "link", "none", "none"]
+    predicted = ["link", "none", "none", "link", "none"]
+    frame = _rows("d1", [(i, i + 1) for i in range(5)], entities, label, predicted, 6)
+    assert LinkScore("precision")(frame) == pytest.approx(1 / 2)
+    assert LinkScore("recall")(frame) == pytest.approx(1 / 3)
+    assert LinkScore("f1")(frame) == pytest.approx(0.4)
+    # reference: scikit-learn's binary scores with "link" as the positive class
+    for measure, reference in (("precision", precision_score), ("recall", recall_score),
+                               ("f1", f1_score)):
+        assert LinkScore(measure)(frame) == pytest.approx(
+            reference(label, predicted, pos_label="link"))
