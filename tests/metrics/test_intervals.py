@@ -128,8 +128,7 @@ def test_better_on_every_document_is_significant(method):
     result = paired_comparison(better, worse, WordF1(LABELS), method=method, n_resamples=2000)
     assert result.difference > 0
     assert result.low > 0
-    # no swap pattern or shifted resample reaches |δ|: p = 1/(1 + 2000)
-    # (Davison & Hinkley 1997, sec. 4.2: Monte Carlo p-value with the +1)
+    # the exact value 1/2001 is checked in test_monte_carlo_p_value_counts_the_observed_arrangement
     assert result.p_value < 0.01
     assert result.n_documents == 20
 
@@ -282,3 +281,23 @@ def test_randomisation_p_value_equals_scipy_permutation_test():
     assert result.exact
     assert 0.01 < reference.pvalue < 0.99
     assert result.p_value == pytest.approx(reference.pvalue, abs=1e-9)
+
+
+def test_monte_carlo_p_value_counts_the_observed_arrangement():
+    """Davison & Hinkley 1997, sec. 4.2: a Monte Carlo p-value is (1 + hits) / (1 + R), never 0.
+    System A is right on every word, B on none, 20 documents of 24 words each: with accuracy
+    (micro-F1 of single-label words), swapping a set S of documents gives A' - B' =
+    (n - 2|S|) / n documents' worth, so |A' - B'| >= |A - B| only when S is empty or every
+    document (2 of the 2^20 patterns). Among 2000 random patterns the chance of either is
+    2000 * 2 / 2^20 < 0.4%, so hits = 0 and p = 1 / 2001 (worked by hand)."""
+    frame = _predictions(20, seed=4, words=24)
+    better = frame.assign(predicted=frame["label"])
+    wrong = {label: LABELS[(i + 1) % len(LABELS)] for i, label in enumerate(LABELS)}
+    worse = frame.assign(predicted=frame["label"].map(wrong))
+    result = paired_comparison(better, worse, WordF1(LABELS, "micro"), method="randomisation",
+                               n_resamples=2000, seed=0)
+    assert not result.exact and result.difference == pytest.approx(1.0)
+    assert result.p_value == pytest.approx(1 / 2001, abs=1e-15)
+    # the paired bootstrap: every resample has the same difference 1, |δ* - δ| = 0 < |δ|
+    bootstrap = paired_comparison(better, worse, WordF1(LABELS, "micro"), n_resamples=2000)
+    assert bootstrap.p_value == pytest.approx(1 / 2001, abs=1e-15)
