@@ -130,3 +130,26 @@ def test_side_scores_and_intervals_match_a_recomputation_with_sklearn() -> None:
         assert np.isclose(metrics[f"{side}/macro_f1_low"], low)
         assert np.isclose(metrics[f"{side}/macro_f1_high"], high)
     assert metrics["seen/macro_f1"] > metrics["unseen/macro_f1"]   # 90% vs 50% right
+
+
+def test_a_side_of_two_documents_gets_its_interval() -> None:
+    # seen side: doc-a 4 words all right, doc-b 4 words 2 right; unseen side: one document.
+    # Word accuracy (micro-F1 of single-label words): seen = 6/8 = 0.75. Resampling 2 documents
+    # gives (a, a) 1.0 and (b, b) 0.5 with probability 1/4 each, mixed pairs 0.75: the 2.5th and
+    # 97.5th percentiles of 500 draws are 0.5 and 1.0 (worked by hand; a 1/4 mass at each end
+    # lies far beyond 2.5% of the draws).
+    from dochar.metrics.scorers import WordF1
+    from dochar.metrics.seen_unseen import side_metrics
+
+    rows = []
+    for doc, side, right in (("doc-a", "seen", 4), ("doc-b", "seen", 2), ("doc-c", "unseen", 3)):
+        for w in range(4):
+            rows.append({"doc_id": doc, "page": 1, "word_id": w, "label": "key",
+                         "predicted": "key" if w < right else "value", "layout_side": side})
+    metrics = side_metrics(pd.DataFrame(rows), {"accuracy": WordF1(["key", "value"], "micro")},
+                           {"bootstrap_resamples": 500, "confidence": 0.95}, seed=0)
+    assert metrics["seen/test_documents"] == 2 and metrics["seen/test_words"] == 8
+    assert (metrics["seen/accuracy"], metrics["seen/accuracy_low"],
+            metrics["seen/accuracy_high"]) == (0.75, 0.5, 1.0)
+    # one document: nothing to resample, so the score stands alone
+    assert metrics["unseen/accuracy"] == 0.75 and "unseen/accuracy_low" not in metrics
