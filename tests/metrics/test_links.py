@@ -122,3 +122,44 @@ def test_precision_and_recall_differ_where_the_counts_say_so():
                                ("f1", f1_score)):
         assert LinkScore(measure)(frame) == pytest.approx(
             reference(label, predicted, pos_label="link"))
+
+
+def test_empty_denominators_score_zero_and_a_denominator_of_one_divides():
+    # no predicted link: precision's denominator TP + FP = 0, so precision is 0 (module rule);
+    # one true link found and nothing else: every denominator is 1 or 2, every score 1
+    entities = {0: "a", 1: "a", 2: "b"}
+    silent = _rows("d1", [(0, 1), (1, 2)], entities, ["link", "none"], ["none", "none"], 3)
+    assert LinkScore("precision")(silent) == 0.0
+    assert LinkScore("recall")(silent) == 0.0 and LinkScore("f1")(silent) == 0.0
+    found = _rows("d1", [(0, 1)], entities, ["link"], ["link"], 3)
+    assert LinkScore("precision")(found) == 1.0 and LinkScore("recall")(found) == 1.0
+    nothing = _rows("d1", [(1, 2)], entities, ["none"], ["none"], 3)
+    assert [LinkScore(m)(nothing) for m in ("precision", "recall", "f1")] == [0.0, 0.0, 0.0]
+
+
+def test_grouping_of_a_page_without_predicted_links_and_of_one_row():
+    # words 0..3, true entities {0,1} {2} {3}; one candidate row (0, 1), predicted none:
+    # predicted entities {0} {1} {2} {3}: correct {2} {3} (words in no row count on both
+    # sides) = 2; predicted 4; true 3 -> F1 = 2*2 / (4 + 3) = 4/7 (worked by hand)
+    entities = {0: "a", 1: "a"}
+    frame = _rows("d1", [(0, 1)], entities, ["link"], ["none"], page_nodes=4)
+    assert GroupingF1()(frame) == pytest.approx(4 / 7)
+    assert GroupingF1().group_counts(frame, "doc_id")[1].tolist() == [[2, 4, 3]]
+    # the same row predicted a link: {0,1} {2} {3} on both sides: F1 = 1
+    assert GroupingF1()(frame.assign(predicted="link")) == 1.0
+    # the label column is not needed to group words (only predicted links and entity ids)
+    assert GroupingF1()(frame.drop(columns=["label"])) == pytest.approx(4 / 7)
+
+
+def test_link_scores_name_what_is_wrong():
+    from dochar.metrics.words import MetricInputError
+
+    with pytest.raises(MetricInputError, match="measure must be f1, precision or recall, not 'F1'"):
+        LinkScore("F1")
+    frame = _rows("d1", [(0, 1)], {0: "a", 1: "a"}, ["link"], ["link"], 2)
+    with pytest.raises(MetricInputError, match="link scores need column 'predicted'"):
+        LinkScore()(frame.drop(columns=["predicted"]))
+    with pytest.raises(MetricInputError, match=r"grouping scores need column\(s\) \['page_nodes'\]"):
+        GroupingF1()(frame.drop(columns=["page_nodes"]))
+    with pytest.raises(MetricInputError, match=r"grouping needs column 'layout'; the frame has \["):
+        LinkScore().group_counts(frame, "layout")

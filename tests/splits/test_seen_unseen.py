@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from sklearn.metrics import f1_score
@@ -132,6 +133,13 @@ def test_side_scores_and_intervals_match_a_recomputation_with_sklearn() -> None:
     assert metrics["seen/macro_f1"] > metrics["unseen/macro_f1"]   # 90% vs 50% right
 
 
+def _side_frame(documents) -> pd.DataFrame:
+    """(doc_id, side, words right out of 4) -> one row per word, true label ``key``."""
+    return pd.DataFrame([{"doc_id": doc, "page": 1, "word_id": w, "label": "key",
+                          "predicted": "key" if w < right else "value", "layout_side": side}
+                         for doc, side, right in documents for w in range(4)])
+
+
 def test_a_side_of_two_documents_gets_its_interval() -> None:
     # seen side: doc-a 4 words all right, doc-b 4 words 2 right; unseen side: one document.
     # Word accuracy (micro-F1 of single-label words): seen = 6/8 = 0.75. Resampling 2 documents
@@ -141,15 +149,35 @@ def test_a_side_of_two_documents_gets_its_interval() -> None:
     from dochar.metrics.scorers import WordF1
     from dochar.metrics.seen_unseen import side_metrics
 
-    rows = []
-    for doc, side, right in (("doc-a", "seen", 4), ("doc-b", "seen", 2), ("doc-c", "unseen", 3)):
-        for w in range(4):
-            rows.append({"doc_id": doc, "page": 1, "word_id": w, "label": "key",
-                         "predicted": "key" if w < right else "value", "layout_side": side})
-    metrics = side_metrics(pd.DataFrame(rows), {"accuracy": WordF1(["key", "value"], "micro")},
-                           {"bootstrap_resamples": 500, "confidence": 0.95}, seed=0)
+    accuracy = WordF1(["key", "value"], "micro")
+    scorers = {"accuracy": accuracy, "errors": lambda f: float((f.label != f.predicted).mean())}
+    frame = _side_frame([("doc-a", "seen", 4), ("doc-b", "seen", 2), ("doc-c", "unseen", 3)])
+    metrics = side_metrics(frame, scorers, {"bootstrap_resamples": 500, "confidence": 0.95},
+                           seed=0)
     assert metrics["seen/test_documents"] == 2 and metrics["seen/test_words"] == 8
     assert (metrics["seen/accuracy"], metrics["seen/accuracy_low"],
             metrics["seen/accuracy_high"]) == (0.75, 0.5, 1.0)
-    # one document: nothing to resample, so the score stands alone
-    assert metrics["unseen/accuracy"] == 0.75 and "unseen/accuracy_low" not in metrics
+    # one document: nothing to resample, so the scores stand alone
+    assert metrics["unseen/accuracy"] == 0.75 and metrics["unseen/errors"] == 0.25
+    assert "unseen/accuracy_low" not in metrics and metrics["unseen/test_documents"] == 1
+    # a side of one document first, and no seen side at all: the other side is still scored
+    swapped = frame.assign(layout_side=frame["layout_side"].map({"seen": "unseen",
+                                                                 "unseen": "seen"}))
+    swapped_metrics = side_metrics(swapped, scorers, {"bootstrap_resamples": 500,
+                                                      "confidence": 0.95}, seed=0)
+    assert swapped_metrics["seen/errors"] == 0.25
+    assert swapped_metrics["unseen/accuracy_high"] == 1.0
+    only_unseen = side_metrics(frame[frame["layout_side"] == "unseen"], scorers,
+                               {"bootstrap_resamples": 500, "confidence": 0.95}, seed=0)
+    assert only_unseen["unseen/test_documents"] == 1 and "seen/test_documents" not in only_unseen
+
+    # the interval follows the settings: five documents (accuracies 1, 3/4, 1/2, 1/4, 0), 9
+    # resamples, 50% interval, seed 3, against the documented draws default_rng(seed).integers
+    # over the sorted document ids, each resample's accuracy computed here
+    five = _side_frame([(f"doc-{right}", "seen", right) for right in range(5)])
+    metrics = side_metrics(five, {"accuracy": accuracy},
+                           {"bootstrap_resamples": 9, "confidence": 0.5}, seed=3)
+    draws = np.random.default_rng(3).integers(0, 5, size=(9, 5))    # doc-0 .. doc-4 sorted
+    low, high = np.percentile([np.mean(draw) / 4 for draw in draws], [25, 75])
+    assert (metrics["seen/accuracy_low"], metrics["seen/accuracy_high"]) == (
+        pytest.approx(low), pytest.approx(high))
