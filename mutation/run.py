@@ -28,7 +28,7 @@ from collections import Counter, defaultdict
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from mutation.targets import FULL, SMOKE
+from mutation.targets import DESELECTED, FULL, SMOKE
 
 ROOT = Path(__file__).resolve().parents[1]
 COPIED = ("dochar", "tests", "configs", "data_synth", "benchmarks", "pyproject.toml", "setup.py")
@@ -80,7 +80,8 @@ def prepare(workdir: Path, targets: dict[str, list[str]], isolation: str) -> Non
         f"only_mutate = {_toml_list(targets)}",
         f"also_copy = {_toml_list(['configs', 'data_synth', 'benchmarks', 'setup.py'])}",
         f"pytest_add_cli_args_test_selection = {_toml_list(tests)}",
-        'pytest_add_cli_args = ["-p", "no:cacheprovider", "-m", "not slow", "-q"]',
+        "pytest_add_cli_args = " + _toml_list(["-p", "no:cacheprovider", "-m", "not slow", "-q",
+                                               *(f"--deselect={t}" for t in DESELECTED)]),
         f'process_isolation = "{isolation}"',
         "use_git_change_detection = false", ""])
     with open(workdir / "pyproject.toml", "a", encoding="utf-8") as handle:

@@ -301,3 +301,25 @@ def test_monte_carlo_p_value_counts_the_observed_arrangement():
     # the paired bootstrap: every resample has the same difference 1, |δ* - δ| = 0 < |δ|
     bootstrap = paired_comparison(better, worse, WordF1(LABELS, "micro"), n_resamples=2000)
     assert bootstrap.p_value == pytest.approx(1 / 2001, abs=1e-15)
+
+
+@pytest.mark.parametrize("options,resamples,seed,confidence", [
+    ({}, 1000, 0, 0.95),                                          # the documented defaults
+    ({"n_resamples": 37, "seed": 5, "confidence": 0.8}, 37, 5, 0.8),
+])
+def test_percentile_interval_equals_the_documented_draws(options, resamples, seed, confidence):
+    """Efron & Tibshirani 1993, ch. 13: the (1-c)/2 and (1+c)/2 percentiles of the resampled
+    scores, with numpy's linear interpolation; the draws are default_rng(seed).integers(0, G,
+    (R, G)) over the sorted document ids (bootstrap_scores' docstring), rescored here."""
+    rng = np.random.default_rng(17)
+    doc_means = rng.normal(loc=0.6, scale=0.2, size=9)
+    frame = pd.DataFrame({"doc_id": np.repeat([f"d{i}" for i in range(9)], 2),
+                          "value": np.repeat(doc_means, 2)})
+    point, low, high = bootstrap_interval(frame, ColumnMean("value"), **options)
+    draws = np.random.default_rng(seed).integers(0, 9, size=(resamples, 9))
+    scores = doc_means[draws].mean(axis=1)
+    tail = (1 - confidence) / 2
+    expected = np.percentile(scores, [100 * tail, 100 * (1 - tail)])
+    assert point == pytest.approx(doc_means.mean())
+    assert (low, high) == (pytest.approx(expected[0], abs=1e-12),
+                           pytest.approx(expected[1], abs=1e-12))
