@@ -7,8 +7,9 @@ every mutant's outcome back (``mutmut results --all true``) and the diff of each
 an equivalent mutant (it cannot change any output; the entry says why) and leaves the count;
 every other survivor is listed in the report with its diff, as a test to write.
 
-Kill rate = killed / (mutants - equivalent). Mutants that no selected test reaches count as
-not killed. ``--min-rate`` makes the exit status 1 when a module falls below it.
+Kill rate = killed / (mutants - equivalent - not run). Mutants that no selected test reaches
+count as not killed; mutants of an interrupted run that were never tried count as not run
+(``--report-only`` writes the report of a run folder as it stands, e.g. after an interruption). ``--min-rate`` makes the exit status 1 when a module falls below it.
 
 Run: ``python -m mutation.run [--smoke] [--modules M ...] [--out reports/mutation.md]
 [--workers N] [--min-rate P]``.
@@ -54,7 +55,7 @@ class ModuleResult:
         return sum(self.counts.values())
 
     def rate(self) -> float:
-        scored = self.total - len(self.equivalent)
+        scored = self.total - len(self.equivalent) - self.counts["not checked"]
         return self.counts["killed"] / scored if scored else 1.0
 
 
@@ -153,9 +154,9 @@ def collect(workdir: Path, targets: dict[str, list[str]],
 def report(results: dict[str, ModuleResult], command: str, mode: str) -> str:
     lines = [f"# Mutation testing ({mode})", "",
              f"Generated {datetime.datetime.now(datetime.UTC):%Y-%m-%d %H:%M} UTC by `{command}` "
-             f"(mutmut). Kill rate = killed / (mutants - equivalent).", "",
-             "| module | mutants | killed | survived | equivalent | no tests | timeout | "
-             "kill rate |", "| --- | ---: | ---: | ---: | ---: | ---: | ---: | ---: |"]
+             f"(mutmut). Kill rate = killed / (mutants - equivalent - not run).", "",
+             "| module | mutants | killed | survived | equivalent | no tests | timeout | not run | "
+             "kill rate |", "| --- | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: |"]
     total = ModuleResult()
     for module, result in results.items():
         lines.append(_row(module, result))
@@ -178,7 +179,8 @@ def _row(name: str, result: ModuleResult) -> str:
     c = result.counts
     survived = c["survived"] - len(result.equivalent)
     return (f"| {name} | {result.total} | {c['killed']} | {survived} | {len(result.equivalent)} "
-            f"| {c['no tests']} | {c['timeout']} | {100 * result.rate():.1f}% |")
+            f"| {c['no tests']} | {c['timeout']} | {c['not checked']} "
+            f"| {100 * result.rate():.1f}% |")
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -189,6 +191,8 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--out", type=Path, default=None)
     parser.add_argument("--workdir", type=Path, default=None)
     parser.add_argument("--workers", type=int, default=2)
+    parser.add_argument("--report-only", action="store_true",
+                        help="no run: report the mutants of --workdir as they stand")
     parser.add_argument("--min-rate", type=float, default=None,
                         help="exit 1 when a module's kill rate (percent) is below this")
     args = parser.parse_args(argv)
@@ -201,10 +205,13 @@ def main(argv: list[str] | None = None) -> int:
         targets = {module: FULL[module] for module in args.modules}
     workdir = args.workdir or ROOT / ".mutation" / mode
     out = args.out or ROOT / "reports" / ("mutation-smoke.md" if args.smoke else "mutation.md")
-    prepare(workdir, targets, "fork" if args.smoke else "forkserver")
-    log = workdir / "mutmut-run.log"
-    print(f"mutmut over {len(targets)} module(s) in {workdir}; progress in {log}", flush=True)
-    mutmut(workdir, "run", "--max-children", str(args.workers), log=log)
+    if not args.report_only:
+        # the smoke test loads no torch, so its mutants fork straight from mutmut's process;
+        # torch is not fork-safe, so the full run forks them from a server that never ran it
+        prepare(workdir, targets, "fork" if args.smoke else "forkserver")
+        log = workdir / "mutmut-run.log"
+        print(f"mutmut over {len(targets)} module(s) in {workdir}; progress in {log}", flush=True)
+        mutmut(workdir, "run", "--max-children", str(args.workers), log=log)
     results = collect(workdir, targets, load_equivalents(ROOT / "mutation" / "equivalent.toml"))
     command = "python -m mutation.run " + " ".join(argv if argv is not None else sys.argv[1:])
     out.parent.mkdir(parents=True, exist_ok=True)

@@ -163,3 +163,14 @@ def test_link_scores_name_what_is_wrong():
         GroupingF1()(frame.drop(columns=["page_nodes"]))
     with pytest.raises(MetricInputError, match=r"grouping needs column 'layout'; the frame has \["):
         LinkScore().group_counts(frame, "layout")
+
+
+def test_link_scorers_follow_the_link_kind():
+    from dochar.metrics.links import link_scorers
+
+    # every links run gets link F1, precision and recall; word grouping adds entity F1
+    scorers = link_scorers("same_entity")
+    assert list(scorers) == ["link_f1", "link_precision", "link_recall", "entity_f1"]
+    assert [repr(s) for s in scorers.values()] == [
+        "LinkScore(f1)", "LinkScore(precision)", "LinkScore(recall)", "GroupingF1()"]
+    assert list(link_scorers("key_value")) == ["link_f1", "link_precision", "link_recall"]
