@@ -180,3 +180,33 @@ def test_tags_of_funsd_spell_its_annotated_entities(funsd_root, scheme):
 def test_headline_scorers_pick_the_tag_scorer_for_entity_tags():
     scorers = headline_scorers(tag_classes(LABELS, ["other"], "bioes"), task=EntityTags("bioes"))
     assert isinstance(scorers["entity_f1"], TagEntityF1) and scorers["entity_f1"].scheme == "bioes"
+
+
+def test_tag_chunks_read_the_label_and_predicted_columns_by_default():
+    from dochar.metrics.tags import tag_chunks
+
+    # the hand-made page of the first test: true chunks key, value, key, value; predicted key
+    # (correct), value (correct), value (wrong), key (correct), value (wrong: 5 alone)
+    true = ["B-key", "I-key", "B-value", "O", "B-key", "B-value", "I-value"]
+    pred = ["B-key", "I-key", "B-value", "B-value", "I-key", "B-value", "O"]
+    frame = frame_of([true], [pred], width=4)
+    truth, predicted = tag_chunks(frame, "bio")
+    assert truth["label"].tolist() == ["key", "value", "key", "value"]
+    assert predicted["label"].tolist() == ["key", "value", "value", "key", "value"]
+    assert predicted["correct"].tolist() == [True, True, False, True, False]
+    # one word is enough to score
+    one = tag_chunks(frame_of([["B-key"]], [["B-key"]]), "bio")[1]
+    assert one["correct"].tolist() == [True]
+
+
+def test_tag_chunks_name_what_is_missing():
+    from dochar.metrics.tags import tag_chunks
+    from dochar.metrics.words import MetricInputError
+
+    frame = frame_of([["B-key", "O"]], [["B-key", "O"]])
+    with pytest.raises(MetricInputError, match=r"tag scores need column\(s\) \['x0'\]"):
+        tag_chunks(frame.drop(columns=["x0"]), "bio")
+    with pytest.raises(MetricInputError, match=r"tag scores need column\(s\) \['layout'\]"):
+        tag_chunks(frame, "bio", group_col="layout")
+    with pytest.raises(MetricInputError, match="^no words to score$"):
+        tag_chunks(frame.iloc[:0], "bio")
