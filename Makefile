@@ -9,7 +9,7 @@ TORCH_SPEC ?= torch==2.13.0
 TORCH_INDEX ?= https://download.pytorch.org/whl/cpu
 DEMO_EXPERIMENT ?= dochar-demo
 
-.PHONY: install demo test test-all bench bench-smoke gate readme-figures clean
+.PHONY: install demo test test-all bench bench-smoke mutate mutate-smoke gate readme-figures clean
 
 install: $(STAMP)
 
@@ -19,7 +19,7 @@ $(STAMP): pyproject.toml
 	$(BIN)/pip install --quiet --timeout 10 --retries 0 --index-url $(TORCH_INDEX) "$(TORCH_SPEC)" \
 	  || { echo "note: $(TORCH_INDEX) could not be reached; installing $(TORCH_SPEC) from the default index"; \
 	       $(BIN)/pip install --quiet "$(TORCH_SPEC)"; }
-	$(BIN)/pip install --quiet -e '.[test,embed]' "$(TORCH_SPEC)"   # torch named: kept
+	$(BIN)/pip install --quiet -e '.[test,embed,mutate]' "$(TORCH_SPEC)"   # torch named: kept
 	touch $(STAMP)
 
 demo: $(STAMP)
@@ -45,6 +45,17 @@ bench: $(STAMP)
 bench-smoke: $(STAMP)
 	$(BIN)/python -m benchmarks.run --smoke --out reports/benchmarks-smoke.md
 
+# Mutation testing (mutation/run.py): every mutant of the scoring, decoding, splitting, resume and
+# loading modules against their tests; the survivors go to reports/mutation.md. Slow (an hour and
+# more on two cores); `make mutate-smoke` mutates one small module (a minute), as the tests do.
+# The mutate extra (mutmut) is installed with the others: the smoke run is a default-suite test.
+MUTATE ?=
+mutate: $(STAMP)
+	$(BIN)/python -m mutation.run $(MUTATE)
+
+mutate-smoke: $(STAMP)
+	$(BIN)/python -m mutation.run --smoke
+
 gate: $(STAMP)
 	$(BIN)/dochar gate
 
@@ -55,4 +66,4 @@ readme-figures: $(STAMP)
 	$(BIN)/python -m reports.readme_figures $(FIGURES)
 
 clean:
-	rm -rf outputs mlflow.db mlartifacts reports/*.html test-artifacts
+	rm -rf outputs mlflow.db mlartifacts reports/*.html test-artifacts .mutation

@@ -81,3 +81,60 @@ def test_missed_links_when_candidates_split_an_entity():
     true_links = np.array([[0, 1], [1, 2]])
     missed = missed_links(true_links, np.array([[0], [1]]), 4, False, entities)
     assert missed.T.tolist() == [[0, 2]]
+
+
+def _brute_force_gap(a, b) -> float:
+    """Shortest Euclidean distance between two boxes with integer corners: over every integer
+    point of both boxes (closest points of two axis-aligned boxes lie on integer coordinates
+    when the corners do), 0 when they share a point. Common practice: the distance of two sets
+    is the least distance of their points."""
+    from scipy.spatial.distance import cdist
+
+    def points(box):
+        xs, ys = np.arange(box[0], box[2] + 1), np.arange(box[1], box[3] + 1)
+        return np.array([(x, y) for x in xs for y in ys], dtype=float)
+
+    return float(cdist(points(a), points(b)).min())
+
+
+def test_distance_candidates_match_a_brute_force_euclidean_gap():
+    # by hand first: boxes 3 apart across and 4 apart down are 5 apart (Pythagoras), not 4
+    page = _page([[0, 0, 10, 10], [13, 14, 20, 20]], ["a", "b"])
+    diagonal = np.hypot(100, 100)
+    assert candidate_pairs(page, CandidateOptions("distance", 4.9 / diagonal),
+                           directed=False).shape == (2, 0)
+    assert candidate_pairs(page, CandidateOptions("distance", 5 / diagonal),
+                           directed=False).T.tolist() == [[0, 1]]
+    # random integer boxes against the brute-force gap
+    rng = np.random.default_rng(3)
+    corners = rng.integers(0, 80, size=(14, 2))
+    boxes = np.column_stack([corners, corners + rng.integers(1, 12, size=(14, 2))])
+    page = _page(boxes, [f"e{i}" for i in range(14)])
+    for reach in (0.0, 4.0, 9.0):
+        expected = [[i, j] for i, j in itertools.combinations(range(14), 2)
+                    if _brute_force_gap(boxes[i], boxes[j]) <= reach]
+        pairs = candidate_pairs(page, CandidateOptions("distance", reach / diagonal),
+                                directed=False)
+        assert pairs.T.tolist() == expected
+        assert len(expected) > 0
+
+
+def test_touching_boxes_are_candidates_at_distance_zero():
+    # boxes 0 and 1 share the edge x = 10, box 2 overlaps box 1; box 3 is 1 unit away.
+    # Their gap is 0 ("0 when they touch", module docstring), within a reach of 0.
+    page = _page([[0, 0, 10, 5], [10, 0, 20, 5], [15, 2, 25, 8], [26, 0, 30, 5]],
+                 ["a", "a", "a", "b"])
+    pairs = candidate_pairs(page, CandidateOptions("distance", 0.0), directed=False)
+    assert pairs.T.tolist() == [[0, 1], [1, 2]]
+
+
+def test_directed_candidates_hold_both_orientations_of_every_edge():
+    from dochar.graphs.base import TypedEdges
+
+    # the builder gave one orientation of each edge (0 -> 1, 2 -> 1) and a self-loop
+    page = _page([[0, 0, 10, 5], [20, 0, 30, 5], [40, 0, 50, 5]], ["a", "a", "b"])
+    edges = TypedEdges(np.array([[0, 2, 1], [1, 1, 1]]), np.zeros(3, dtype=np.int64), ("near",))
+    directed = candidate_pairs(page, CandidateOptions("graph"), directed=True, edges=edges)
+    assert sorted(map(tuple, directed.T.tolist())) == [(0, 1), (1, 0), (1, 2), (2, 1)]
+    undirected = candidate_pairs(page, CandidateOptions("graph"), directed=False, edges=edges)
+    assert undirected.T.tolist() == [[0, 1], [1, 2]]

@@ -128,8 +128,7 @@ def test_better_on_every_document_is_significant(method):
     result = paired_comparison(better, worse, WordF1(LABELS), method=method, n_resamples=2000)
     assert result.difference > 0
     assert result.low > 0
-    # no swap pattern or shifted resample reaches |δ|: p = 1/(1 + 2000)
-    # (Davison & Hinkley 1997, sec. 4.2: Monte Carlo p-value with the +1)
+    # the exact value 1/2001 is checked in test_monte_carlo_p_value_counts_the_observed_arrangement
     assert result.p_value < 0.01
     assert result.n_documents == 20
 
@@ -282,3 +281,45 @@ def test_randomisation_p_value_equals_scipy_permutation_test():
     assert result.exact
     assert 0.01 < reference.pvalue < 0.99
     assert result.p_value == pytest.approx(reference.pvalue, abs=1e-9)
+
+
+def test_monte_carlo_p_value_counts_the_observed_arrangement():
+    """Davison & Hinkley 1997, sec. 4.2: a Monte Carlo p-value is (1 + hits) / (1 + R), never 0.
+    System A is right on every word, B on none, 20 documents of 24 words each: with accuracy
+    (micro-F1 of single-label words), swapping a set S of documents gives A' - B' =
+    (n - 2|S|) / n documents' worth, so |A' - B'| >= |A - B| only when S is empty or every
+    document (2 of the 2^20 patterns). Among 2000 random patterns the chance of either is
+    2000 * 2 / 2^20 < 0.4%, so hits = 0 and p = 1 / 2001 (worked by hand)."""
+    frame = _predictions(20, seed=4, words=24)
+    better = frame.assign(predicted=frame["label"])
+    wrong = {label: LABELS[(i + 1) % len(LABELS)] for i, label in enumerate(LABELS)}
+    worse = frame.assign(predicted=frame["label"].map(wrong))
+    result = paired_comparison(better, worse, WordF1(LABELS, "micro"), method="randomisation",
+                               n_resamples=2000, seed=0)
+    assert not result.exact and result.difference == pytest.approx(1.0)
+    assert result.p_value == pytest.approx(1 / 2001, abs=1e-15)
+    # the paired bootstrap: every resample has the same difference 1, |δ* - δ| = 0 < |δ|
+    bootstrap = paired_comparison(better, worse, WordF1(LABELS, "micro"), n_resamples=2000)
+    assert bootstrap.p_value == pytest.approx(1 / 2001, abs=1e-15)
+
+
+@pytest.mark.parametrize("options,resamples,seed,confidence", [
+    ({}, 1000, 0, 0.95),                                          # the documented defaults
+    ({"n_resamples": 37, "seed": 5, "confidence": 0.8}, 37, 5, 0.8),
+])
+def test_percentile_interval_equals_the_documented_draws(options, resamples, seed, confidence):
+    """Efron & Tibshirani 1993, ch. 13: the (1-c)/2 and (1+c)/2 percentiles of the resampled
+    scores, with numpy's linear interpolation; the draws are default_rng(seed).integers(0, G,
+    (R, G)) over the sorted document ids (bootstrap_scores' docstring), rescored here."""
+    rng = np.random.default_rng(17)
+    doc_means = rng.normal(loc=0.6, scale=0.2, size=9)
+    frame = pd.DataFrame({"doc_id": np.repeat([f"d{i}" for i in range(9)], 2),
+                          "value": np.repeat(doc_means, 2)})
+    point, low, high = bootstrap_interval(frame, ColumnMean("value"), **options)
+    draws = np.random.default_rng(seed).integers(0, 9, size=(resamples, 9))
+    scores = doc_means[draws].mean(axis=1)
+    tail = (1 - confidence) / 2
+    expected = np.percentile(scores, [100 * tail, 100 * (1 - tail)])
+    assert point == pytest.approx(doc_means.mean())
+    assert (low, high) == (pytest.approx(expected[0], abs=1e-12),
+                           pytest.approx(expected[1], abs=1e-12))

@@ -101,3 +101,76 @@ def test_best_threshold_counts_missed_links():
     threshold, f1 = best_threshold(np.array([.9, .8, .3, .2]), np.array([1, 0, 1, 0], bool),
                                    missed=1, grid=[0.85, 0.5, 0.25, 0.1])
     assert threshold == 0.25 and f1 == pytest.approx(4 / 6)
+
+
+def test_precision_and_recall_differ_where_the_counts_say_so():
+    # the pooled case above has FP = FN, so precision and recall agree there; here they do not.
+    # rows: label    link link link none none
+    #       predict  link none none link none  ->  TP = 1, FP = 1, FN = 2
+    # precision = 1/2, recall = 1/3, F1 = 2/(2+1+2) = 0.4 (worked by hand)
+    from sklearn.metrics import f1_score, precision_score, recall_score
+
+    entities = {i: f"e{i}" for i in range(6)}
+    label = ["link", "link", "link", "none", "none"]
+    predicted = ["link", "none", "none", "link", "none"]
+    frame = _rows("d1", [(i, i + 1) for i in range(5)], entities, label, predicted, 6)
+    assert LinkScore("precision")(frame) == pytest.approx(1 / 2)
+    assert LinkScore("recall")(frame) == pytest.approx(1 / 3)
+    assert LinkScore("f1")(frame) == pytest.approx(0.4)
+    # reference: scikit-learn's binary scores with "link" as the positive class
+    for measure, reference in (("precision", precision_score), ("recall", recall_score),
+                               ("f1", f1_score)):
+        assert LinkScore(measure)(frame) == pytest.approx(
+            reference(label, predicted, pos_label="link"))
+
+
+def test_empty_denominators_score_zero_and_a_denominator_of_one_divides():
+    # no predicted link: precision's denominator TP + FP = 0, so precision is 0 (module rule);
+    # one true link found and nothing else: every denominator is 1 or 2, every score 1
+    entities = {0: "a", 1: "a", 2: "b"}
+    silent = _rows("d1", [(0, 1), (1, 2)], entities, ["link", "none"], ["none", "none"], 3)
+    assert LinkScore("precision")(silent) == 0.0
+    assert LinkScore("recall")(silent) == 0.0 and LinkScore("f1")(silent) == 0.0
+    found = _rows("d1", [(0, 1)], entities, ["link"], ["link"], 3)
+    assert LinkScore("precision")(found) == 1.0 and LinkScore("recall")(found) == 1.0
+    nothing = _rows("d1", [(1, 2)], entities, ["none"], ["none"], 3)
+    assert [LinkScore(m)(nothing) for m in ("precision", "recall", "f1")] == [0.0, 0.0, 0.0]
+
+
+def test_grouping_of_a_page_without_predicted_links_and_of_one_row():
+    # words 0..3, true entities {0,1} {2} {3}; one candidate row (0, 1), predicted none:
+    # predicted entities {0} {1} {2} {3}: correct {2} {3} (words in no row count on both
+    # sides) = 2; predicted 4; true 3 -> F1 = 2*2 / (4 + 3) = 4/7 (worked by hand)
+    entities = {0: "a", 1: "a"}
+    frame = _rows("d1", [(0, 1)], entities, ["link"], ["none"], page_nodes=4)
+    assert GroupingF1()(frame) == pytest.approx(4 / 7)
+    assert GroupingF1().group_counts(frame, "doc_id")[1].tolist() == [[2, 4, 3]]
+    # the same row predicted a link: {0,1} {2} {3} on both sides: F1 = 1
+    assert GroupingF1()(frame.assign(predicted="link")) == 1.0
+    # the label column is not needed to group words (only predicted links and entity ids)
+    assert GroupingF1()(frame.drop(columns=["label"])) == pytest.approx(4 / 7)
+
+
+def test_link_scores_name_what_is_wrong():
+    from dochar.metrics.words import MetricInputError
+
+    with pytest.raises(MetricInputError, match="measure must be f1, precision or recall, not 'F1'"):
+        LinkScore("F1")
+    frame = _rows("d1", [(0, 1)], {0: "a", 1: "a"}, ["link"], ["link"], 2)
+    with pytest.raises(MetricInputError, match="link scores need column 'predicted'"):
+        LinkScore()(frame.drop(columns=["predicted"]))
+    with pytest.raises(MetricInputError, match=r"grouping scores need column\(s\) \['page_nodes'\]"):
+        GroupingF1()(frame.drop(columns=["page_nodes"]))
+    with pytest.raises(MetricInputError, match=r"grouping needs column 'layout'; the frame has \["):
+        LinkScore().group_counts(frame, "layout")
+
+
+def test_link_scorers_follow_the_link_kind():
+    from dochar.metrics.links import link_scorers
+
+    # every links run gets link F1, precision and recall; word grouping adds entity F1
+    scorers = link_scorers("same_entity")
+    assert list(scorers) == ["link_f1", "link_precision", "link_recall", "entity_f1"]
+    assert [repr(s) for s in scorers.values()] == [
+        "LinkScore(f1)", "LinkScore(precision)", "LinkScore(recall)", "GroupingF1()"]
+    assert list(link_scorers("key_value")) == ["link_f1", "link_precision", "link_recall"]

@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-from seqeval.metrics import classification_report, f1_score
+from seqeval.metrics import classification_report, f1_score, precision_score, recall_score
 from seqeval.scheme import IOB2, IOBES
 
 from dochar.metrics.evaluate import headline_scorers
@@ -46,7 +46,13 @@ def test_hand_made_page_against_seqeval_strict():
     frame = frame_of([true], [pred], width=4)
     scores = tag_entity_scores(frame, tag_classes(LABELS, ["other"], "bio"), "bio")
     assert (scores.n_true, scores.n_pred, scores.n_correct) == (4, 5, 3)
+    assert (scores.precision, scores.recall) == (pytest.approx(3 / 5), pytest.approx(3 / 4))
     assert scores.f1 == pytest.approx(2 / 3)
+    # per label, by hand: key true {0-1, 4}, predicted {0-1, 4}: P = R = 1; value true {2, 5-6},
+    # predicted {2, 3, 5}: 1 correct, P = 1/3, R = 1/2
+    value = scores.per_class.loc["value"]
+    assert (value["precision"], value["recall"]) == (pytest.approx(1 / 3), pytest.approx(1 / 2))
+    assert TagEntityF1("bio")(frame) == pytest.approx(2 / 3)
     assert scores.f1 == pytest.approx(f1_score([true], [repair(pred, "bio")], mode="strict",
                                                scheme=IOB2))
     assert scores.f1 == pytest.approx(f1_score([true], [pred]))        # default mode, raw
@@ -84,12 +90,27 @@ def test_random_pages_match_seqeval(scheme, seed):
     repaired = [repair(g, scheme) for g in guesses]
     strict = dict(mode="strict", scheme=SCHEMES[scheme])
     assert ours.f1 == pytest.approx(f1_score(truth, repaired, **strict))
+    assert ours.precision == pytest.approx(precision_score(truth, repaired, **strict))
+    assert ours.recall == pytest.approx(recall_score(truth, repaired, **strict))
+    assert ours.precision != pytest.approx(ours.recall)       # a swap of the two would show
     report = classification_report(truth, repaired, output_dict=True, zero_division=0, **strict)
     for label in ("key", "value"):
-        assert ours.per_class.loc[label, "f1"] == pytest.approx(report[label]["f1-score"])
+        for ours_name, seqeval_name in (("f1", "f1-score"), ("precision", "precision"),
+                                        ("recall", "recall")):
+            assert ours.per_class.loc[label, ours_name] == pytest.approx(
+                report[label][seqeval_name])
         assert ours.per_class.loc[label, "support"] == report[label]["support"]
-    # the additive scorer gives the same figure from per-document counts
-    assert TagEntityF1(scheme)(frame) == pytest.approx(ours.f1)
+    # the additive scorer against seqeval itself, pooled and document by document (pages 2d
+    # and 2d + 1 are document coa-d): its (correct, predicted, true) counts give seqeval's F1
+    assert TagEntityF1(scheme)(frame) == pytest.approx(f1_score(truth, repaired, **strict))
+    groups, counts = TagEntityF1(scheme).group_counts(frame, "doc_id")
+    assert list(groups) == [f"coa-{d}" for d in range(len(truth) // 2)]
+    for d, (correct, predicted, true) in enumerate(counts):
+        pages = slice(2 * d, 2 * d + 2)
+        expected = f1_score(truth[pages], repaired[pages], **strict)
+        assert 2 * correct / (predicted + true) == pytest.approx(expected)
+        assert correct / predicted == pytest.approx(
+            precision_score(truth[pages], repaired[pages], **strict))
 
 
 @pytest.mark.parametrize("scheme", ["bio", "bioes"])
@@ -102,26 +123,90 @@ def test_perfect_predictions_score_exactly_one(scheme):
 
 
 @pytest.mark.parametrize("scheme", ["bio", "bioes"])
-def test_perfect_tags_of_funsd_score_exactly_one(funsd_root, scheme):
+def test_tags_of_funsd_spell_its_annotated_entities(funsd_root, scheme):
+    """The encoder against FUNSD's own annotations, read by seqeval's chunking: in dochar's
+    reading order, the chunks seqeval finds in the tags are exactly the runs of consecutive
+    words of one annotated entity (label not ``other``), with that entity's label. Then a
+    prediction that cuts the last word off every answer is scored against seqeval."""
+    from itertools import groupby
+
+    from seqeval.metrics.sequence_labeling import get_entities
+
     from dochar.data.importers.form_json import import_form_json
-    from dochar.data.word_table import iter_pages, validate_word_table
+    from dochar.data.word_table import iter_pages, reading_order, validate_word_table
 
     frame, _ = import_form_json([funsd_root / "testing_data" / "annotations"])
     table = validate_word_table(frame).table
     task = EntityTags(scheme)
-    frames = []
+    truth, guesses, frames, n_entities = [], [], [], 0
     for page in list(iter_pages(table))[:15]:
-        tags = task.nodes(page).labels
-        frames.append(pd.DataFrame({"doc_id": page.doc_id, "page": page.page,
-                                    "word_id": page.word_ids, "x0": page.boxes[:, 0],
-                                    "y0": page.boxes[:, 1], "x1": page.boxes[:, 2],
-                                    "y1": page.boxes[:, 3], "label": tags, "predicted": tags}))
-    frame = pd.concat(frames, ignore_index=True)
-    scores = tag_entity_scores(frame, task.classes(["header", "question", "answer", "other"]),
-                               scheme)
-    assert scores.n_true > 100 and scores.f1 == 1.0
+        order = reading_order(page.boxes, page.word_ids)
+        tags = [task.nodes(page).labels[i] for i in order]
+        entities = [page.entity_ids[i] for i in order]
+        labels = [page.labels[i] for i in order]
+        runs = []
+        for entity, members in groupby(range(len(order)), key=lambda i: entities[i]):
+            members = list(members)
+            if labels[members[0]] != "other":
+                runs.append((labels[members[0]], members[0], members[-1]))
+        found = sorted(get_entities(tags))
+        assert found == sorted(runs), page.doc_id
+        n_entities += len({e for e, label in zip(entities, labels) if label != "other"})
+        # the prediction: every answer chunk loses its last word (a one-word answer vanishes)
+        guess = list(tags)
+        for label, first, last in found:
+            if label == "answer":
+                guess[last] = "O"
+                if last > first and scheme == "bioes":
+                    guess[last - 1] = "S-answer" if last - 1 == first else "E-answer"
+        truth.append(tags)
+        guesses.append(guess)
+        words = [page.word_ids[i] for i in order]
+        frames.append(pd.DataFrame({"doc_id": page.doc_id, "page": page.page, "word_id": words,
+                                    "x0": page.boxes[order, 0], "y0": page.boxes[order, 1],
+                                    "x1": page.boxes[order, 2], "y1": page.boxes[order, 3],
+                                    "label": tags, "predicted": guess}))
+    assert n_entities > 100
+    scored = tag_entity_scores(pd.concat(frames, ignore_index=True),
+                               task.classes(["header", "question", "answer", "other"]), scheme)
+    strict = dict(mode="strict", scheme=SCHEMES[scheme])
+    assert scored.n_true == sum(len(get_entities(tags)) for tags in truth)
+    assert scored.f1 == pytest.approx(f1_score(truth, guesses, **strict))
+    assert scored.precision == pytest.approx(precision_score(truth, guesses, **strict))
+    assert scored.recall == pytest.approx(recall_score(truth, guesses, **strict))
+    assert 0.3 < scored.f1 < 0.95         # not a degenerate case
 
 
 def test_headline_scorers_pick_the_tag_scorer_for_entity_tags():
     scorers = headline_scorers(tag_classes(LABELS, ["other"], "bioes"), task=EntityTags("bioes"))
     assert isinstance(scorers["entity_f1"], TagEntityF1) and scorers["entity_f1"].scheme == "bioes"
+
+
+def test_tag_chunks_read_the_label_and_predicted_columns_by_default():
+    from dochar.metrics.tags import tag_chunks
+
+    # the hand-made page of the first test: true chunks key, value, key, value; predicted key
+    # (correct), value (correct), value (wrong), key (correct), value (wrong: 5 alone)
+    true = ["B-key", "I-key", "B-value", "O", "B-key", "B-value", "I-value"]
+    pred = ["B-key", "I-key", "B-value", "B-value", "I-key", "B-value", "O"]
+    frame = frame_of([true], [pred], width=4)
+    truth, predicted = tag_chunks(frame, "bio")
+    assert truth["label"].tolist() == ["key", "value", "key", "value"]
+    assert predicted["label"].tolist() == ["key", "value", "value", "key", "value"]
+    assert predicted["correct"].tolist() == [True, True, False, True, False]
+    # one word is enough to score
+    one = tag_chunks(frame_of([["B-key"]], [["B-key"]]), "bio")[1]
+    assert one["correct"].tolist() == [True]
+
+
+def test_tag_chunks_name_what_is_missing():
+    from dochar.metrics.tags import tag_chunks
+    from dochar.metrics.words import MetricInputError
+
+    frame = frame_of([["B-key", "O"]], [["B-key", "O"]])
+    with pytest.raises(MetricInputError, match=r"tag scores need column\(s\) \['x0'\]"):
+        tag_chunks(frame.drop(columns=["x0"]), "bio")
+    with pytest.raises(MetricInputError, match=r"tag scores need column\(s\) \['layout'\]"):
+        tag_chunks(frame, "bio", group_col="layout")
+    with pytest.raises(MetricInputError, match="^no words to score$"):
+        tag_chunks(frame.iloc[:0], "bio")

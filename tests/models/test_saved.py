@@ -241,3 +241,24 @@ def test_a_skops_file_with_an_untrusted_type_is_refused(saved_forest, tmp_path):
 def test_a_folder_without_a_model_says_so(tmp_path):
     with pytest.raises(SavedModelError, match="no dochar model here"):
         load_model(tmp_path)
+
+
+@pytest.mark.parametrize("offset,refused", [(0, False), (1, True)], ids=["last-label", "one-past"])
+def test_estimator_classes_must_index_the_labels(pages, tmp_path, offset, refused):
+    # the labels are positions 0 .. L-1 of the manifest's list (common practice for class
+    # indices); a forest trained on class L - 1 + offset either indexes the last label or none
+    cfg = config("model=random_forest", "features=all")
+    featurizer = WordFeaturizer.from_config(cfg["features"], cfg["data"]).fit(pages)
+    n_labels = len(cfg["data"]["labels"])
+    x = np.random.default_rng(0).normal(size=(8, 3))
+    y = np.array([0, 1] * 3 + [n_labels - 1 + offset] * 2)
+    arguments = {**baseline_arguments({**cfg, "seed": 0}), "options": {"n_estimators": 3}}
+    forest = build_baseline(arguments).fit(x, y)
+    folder = save_model(tmp_path / "model",
+                        FittedModel(forest, arguments, [], {}, featurizer=featurizer), cfg)
+    if refused:
+        with pytest.raises(SavedModelError, match=rf"classes \[0, 1, {n_labels}\] do not index "
+                                                  rf"the {n_labels} labels"):
+            load_model(folder)
+    else:
+        assert list(load_model(folder).model.classes_) == [0, 1, n_labels - 1]

@@ -149,3 +149,24 @@ def test_bad_input_gets_a_located_error() -> None:
         LayoutTemplateClassifier(classes=CLASSES).fit([pages[0], {"doc_id": "x"}])
     with pytest.raises(TemplateInputError, match=r"call fit before predict"):
         LayoutTemplateClassifier().predict(pages)
+
+
+def test_the_fallback_needs_a_distance_strictly_below_the_threshold() -> None:
+    import dataclasses
+
+    # one training page per family: each template's signature is that page's own signature, so
+    # a copy of the page under a new layout id is at cosine distance 0 from it (identical
+    # vectors). "Closer than fallback_threshold" (module docstring): at threshold 0 nothing is
+    # closer than 0, so the copy gets no template; at any positive threshold it borrows its twin.
+    train = _pages(1, seed=1)
+    twins = [dataclasses.replace(page, doc_id=f"{page.doc_id}-copy",
+                                 layout_id=f"{page.layout_id}_v2") for page in train]
+    strict = LayoutTemplateClassifier(classes=CLASSES, fallback_threshold=0.0).fit(train)
+    matches = strict.match_pages(twins)
+    assert (matches["distance"] == 0.0).all()
+    assert (matches["outcome"] == "no_template").all()
+    assert set(strict.predict(twins)) == {"other"}
+    loose = LayoutTemplateClassifier(classes=CLASSES, fallback_threshold=1e-9).fit(train)
+    matches = loose.match_pages(twins)
+    assert (matches["outcome"] == "fallback").all()
+    assert matches["template"].tolist() == [page.layout_id for page in train]

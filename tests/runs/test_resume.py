@@ -16,6 +16,7 @@ import sys
 import time
 from pathlib import Path
 
+import numpy as np
 import pytest
 import torch
 
@@ -118,15 +119,61 @@ def test_resumed_training_repeats_the_uninterrupted_history(tmp_path, stop_at):
     assert all(torch.equal(model.state_dict()[k], v) for k, v in reference_weights.items())
 
 
-def test_a_checkpoint_of_other_inputs_is_not_resumed(tmp_path):
+@pytest.mark.parametrize("stop_at", [4, 6])
+def test_resume_keeps_the_best_weights_of_an_earlier_epoch(tmp_path, stop_at):
+    """Best epoch 4 of 8 (see tiny_training): stopped at or after it, the resumed run must
+    still end on epoch 4's weights, which only the checkpoint holds."""
+    from sklearn.metrics import f1_score
+
+    from tests.runs.training_inputs import tiny_training
+
+    model, graphs, cfg = tiny_training(learning_rate=0.2)
+    reference = training.train(model, graphs["train"], graphs["val"], NodeClasses(4), cfg, seed=0)
+    reference_weights = {k: v.clone() for k, v in model.state_dict().items()}
+    assert reference.best_epoch == 4 < cfg["max_epochs"] == reference.epochs_run
+
+    model, graphs, cfg = tiny_training(learning_rate=0.2)
+    with pytest.raises(Stopped):
+        training.train(model, graphs["train"], graphs["val"], NodeClasses(4), cfg, seed=0,
+                       checkpoint=StopAfter(tmp_path, stop_at))
+    model, graphs, cfg = tiny_training(learning_rate=0.2)
+    resumed = training.train(model, graphs["train"], graphs["val"], NodeClasses(4), cfg, seed=0,
+                             checkpoint=EpochCheckpoint(tmp_path, "k", "inputs"))
+    assert resumed == reference
+    assert all(torch.equal(model.state_dict()[k], v) for k, v in reference_weights.items())
+    # the kept weights score the best validation macro-F1 (scikit-learn's f1_score), not the
+    # last epoch's
+    predicted = np.concatenate(training.predict_proba(model, graphs["val"])).argmax(axis=1)
+    truth = torch.cat([graph.y for graph in graphs["val"]]).numpy()
+    score = f1_score(truth, predicted, average="macro", zero_division=0)
+    assert score == pytest.approx(max(reference.val_scores))
+    assert score != pytest.approx(reference.val_scores[-1])
+
+
+def test_a_checkpoint_of_other_inputs_is_not_resumed(tmp_path, capsys):
+    """A checkpoint left by training on other pages (data seed 8) under the same file name:
+    training on the seed-7 pages must start afresh and end as an uninterrupted run on them."""
+    from dochar.models.checkpoints import inputs_digest
     from tests.runs.training_inputs import tiny_training
 
     model, graphs, cfg = tiny_training()
+    reference = training.train(model, graphs["train"], graphs["val"], NodeClasses(4), cfg, seed=0)
+    reference_weights = {k: v.clone() for k, v in model.state_dict().items()}
+
+    model, other, cfg = tiny_training(data_seed=8)
+    digest_other = inputs_digest(other["train"], other["val"])
+    stopping = StopAfter(tmp_path, 2)
+    stopping.inputs = digest_other
     with pytest.raises(Stopped):
-        training.train(model, graphs["train"], graphs["val"], NodeClasses(4), cfg, seed=0,
-                       checkpoint=StopAfter(tmp_path, 2))
-    other = EpochCheckpoint(tmp_path, "k", "other inputs")
+        training.train(model, other["train"], other["val"], NodeClasses(4), cfg, seed=0,
+                       checkpoint=stopping)
+    capsys.readouterr()
+
     model, graphs, cfg = tiny_training()
+    digest = inputs_digest(graphs["train"], graphs["val"])
+    assert digest != digest_other
     history = training.train(model, graphs["train"], graphs["val"], NodeClasses(4), cfg, seed=0,
-                             checkpoint=other)
-    assert history.epochs_run == cfg["max_epochs"] and len(history.losses) == cfg["max_epochs"]
+                             checkpoint=EpochCheckpoint(tmp_path, "k", digest))
+    assert "resuming" not in capsys.readouterr().out
+    assert history == reference
+    assert all(torch.equal(model.state_dict()[k], v) for k, v in reference_weights.items())

@@ -20,11 +20,14 @@ def _page(generator: torch.Generator, words: int = 12) -> Data:
     return Data(x=x, y=y, edge_index=edge_index, edge_type=edge_type)
 
 
-def tiny_training():
+def tiny_training(data_seed: int = 7, learning_rate: float = 0.01):
+    """Model, pages and loop settings. With ``learning_rate=0.2`` the validation macro-F1 peaks
+    at epoch 4 of 8 (0.12, 0.45, 0.46, 0.50, 0.49, 0.42, 0.47, 0.46): a best epoch that is not
+    the last, so the kept weights are not the final ones."""
     seed_everything(0, 1)
-    generator = torch.Generator().manual_seed(7)
+    generator = torch.Generator().manual_seed(data_seed)
     graphs = {"train": [_page(generator) for _ in range(6)],
               "val": [_page(generator) for _ in range(2)]}
     model = GNNStack(in_dim=5, num_classes=4, num_relations=2, layer="relational", hidden_dim=8,
                      depth=1, dropout=0.3, norm="batch", residual=True)
-    return model, graphs, dict(CFG)
+    return model, graphs, {**CFG, "learning_rate": learning_rate}

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from sklearn.metrics import f1_score
@@ -130,3 +131,55 @@ def test_side_scores_and_intervals_match_a_recomputation_with_sklearn() -> None:
         assert np.isclose(metrics[f"{side}/macro_f1_low"], low)
         assert np.isclose(metrics[f"{side}/macro_f1_high"], high)
     assert metrics["seen/macro_f1"] > metrics["unseen/macro_f1"]   # 90% vs 50% right
+
+
+def _side_frame(documents) -> pd.DataFrame:
+    """(doc_id, side, words right out of 4) -> one row per word, true label ``key``."""
+    return pd.DataFrame([{"doc_id": doc, "page": 1, "word_id": w, "label": "key",
+                          "predicted": "key" if w < right else "value", "layout_side": side}
+                         for doc, side, right in documents for w in range(4)])
+
+
+def test_a_side_of_two_documents_gets_its_interval() -> None:
+    # seen side: doc-a 4 words all right, doc-b 4 words 2 right; unseen side: one document.
+    # Word accuracy (micro-F1 of single-label words): seen = 6/8 = 0.75. Resampling 2 documents
+    # gives (a, a) 1.0 and (b, b) 0.5 with probability 1/4 each, mixed pairs 0.75: the 2.5th and
+    # 97.5th percentiles of 500 draws are 0.5 and 1.0 (worked by hand; a 1/4 mass at each end
+    # lies far beyond 2.5% of the draws).
+    from dochar.metrics.scorers import WordF1
+    from dochar.metrics.seen_unseen import side_metrics
+
+    accuracy = WordF1(["key", "value"], "micro")
+    scorers = {"accuracy": accuracy, "errors": lambda f: float((f.label != f.predicted).mean())}
+    frame = _side_frame([("doc-a", "seen", 4), ("doc-b", "seen", 2), ("doc-c", "unseen", 3)])
+    metrics = side_metrics(frame, scorers, {"bootstrap_resamples": 500, "confidence": 0.95},
+                           seed=0)
+    assert metrics["seen/test_documents"] == 2 and metrics["seen/test_words"] == 8
+    assert (metrics["seen/accuracy"], metrics["seen/accuracy_low"],
+            metrics["seen/accuracy_high"]) == (0.75, 0.5, 1.0)
+    # one document: nothing to resample, so the scores stand alone
+    assert metrics["unseen/accuracy"] == 0.75 and metrics["unseen/errors"] == 0.25
+    assert "unseen/accuracy_low" not in metrics and metrics["unseen/test_documents"] == 1
+    # a side of one document first, and no seen side at all: the other side is still scored
+    swapped = frame.assign(layout_side=frame["layout_side"].map({"seen": "unseen",
+                                                                 "unseen": "seen"}))
+    swapped_metrics = side_metrics(swapped, scorers, {"bootstrap_resamples": 500,
+                                                      "confidence": 0.95}, seed=0)
+    assert swapped_metrics["seen/errors"] == 0.25
+    assert swapped_metrics["unseen/accuracy_high"] == 1.0
+    only_unseen = side_metrics(frame[frame["layout_side"] == "unseen"], scorers,
+                               {"bootstrap_resamples": 500, "confidence": 0.95}, seed=0)
+    assert only_unseen["unseen/test_documents"] == 1 and "seen/test_documents" not in only_unseen
+
+    # the interval follows the settings: five documents (accuracies 1, 3/4, 1/2, 1/4, 0), 10
+    # resamples, 50% interval, seeds 3 and 4, against the documented draws
+    # default_rng(seed).integers over the sorted document ids, each resample's accuracy
+    # computed here (numpy's percentile interpolates between the 3rd/4th and 7th/8th draws)
+    five = _side_frame([(f"doc-{right}", "seen", right) for right in range(5)])
+    for seed in (3, 4):
+        metrics = side_metrics(five, {"accuracy": accuracy},
+                               {"bootstrap_resamples": 10, "confidence": 0.5}, seed=seed)
+        draws = np.random.default_rng(seed).integers(0, 5, size=(10, 5))  # doc-0 .. doc-4
+        low, high = np.percentile([np.mean(draw) / 4 for draw in draws], [25, 75])
+        assert (metrics["seen/accuracy_low"], metrics["seen/accuracy_high"]) == (
+            pytest.approx(low), pytest.approx(high))

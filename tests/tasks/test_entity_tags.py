@@ -82,3 +82,35 @@ def test_from_config_refuses_unknown_names_and_options():
         from_config({"name": "entity_tags", "schema": "bio"})
     with pytest.raises(TaskError, match="scheme must be one of"):
         from_config({"name": "entity_tags", "scheme": "iob1"})
+
+
+def test_words_with_a_blank_entity_id_are_chunks_of_their_own():
+    # one line: "Lot" "No." (both key, no entity id) then "42" "mg" (value, entity v). By the
+    # module rule a blank id stands alone: two one-word key chunks, one two-word value chunk.
+    boxes = np.array([[0, 0, 20, 10], [25, 0, 45, 10], [50, 0, 70, 10], [75, 0, 95, 10]], float)
+    page = Page("coa-2", 1, np.arange(4), ["Lot", "No.", "42", "mg"], boxes, 100.0, 100.0,
+                labels=["key", "key", "value", "value"], entity_ids=["", "", "v", "v"])
+    bio = EntityTags("bio").tags(page)
+    assert bio == ["B-key", "B-key", "B-value", "I-value"]
+    assert EntityTags("bioes").tags(page) == ["S-key", "S-key", "B-value", "E-value"]
+    # reference: seqeval's chunking of those tags finds the three chunks
+    assert sorted(get_entities(bio)) == [("key", 0, 0), ("key", 1, 1), ("value", 2, 3)]
+
+
+def test_word_predictions_give_every_word_of_a_decoded_chunk_its_label():
+    # one page, one line of six words listed out of reading order (word ids 5, 3, 0, 1, 4, 2;
+    # x positions put them in the order of their ids). Predicted tags in reading order:
+    #   word 0 B-key, 1 I-key, 2 O, 3 I-value (opens a chunk), 4 I-value, 5 B-key
+    # decoded chunks: key {0, 1}, value {3, 4}, key {5}: word labels by hand below
+    import pandas as pd
+
+    ids = [5, 3, 0, 1, 4, 2]
+    tags = {0: "B-key", 1: "I-key", 2: "O", 3: "I-value", 4: "I-value", 5: "B-key"}
+    truth = {0: "B-key", 1: "I-key", 2: "B-value", 3: "I-value", 4: "I-value", 5: "O"}
+    frame = pd.DataFrame({"doc_id": "coa-3", "page": 1, "word_id": ids,
+                          "x0": [15.0 * w for w in ids], "y0": 0.0,
+                          "x1": [15.0 * w + 10 for w in ids], "y1": 10.0,
+                          "label": [truth[w] for w in ids], "predicted": [tags[w] for w in ids]})
+    words = EntityTags("bio").word_predictions([], frame).set_index("word_id").sort_index()
+    assert words["predicted"].tolist() == ["key", "key", "other", "value", "value", "key"]
+    assert words["label"].tolist() == ["key", "key", "value", "value", "value", "other"]

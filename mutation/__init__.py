@@ -1,0 +1,1 @@
+"""`make mutate`: mutation testing of the code that computes scores and restores runs."""

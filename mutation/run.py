@@ -1,0 +1,230 @@
+"""`make mutate`: mutmut over the modules of mutation/targets.py, summed up in a report.
+
+Steps: copy the project's tracked sources into a scratch folder (``.mutation/<mode>/``, wiped
+first so no result is reused), write mutmut's settings there, run ``mutmut run``, then read
+every mutant's outcome back (``mutmut results --all true``) and the diff of each survivor
+(``mutmut show``). A survivor whose diff matches an entry of ``mutation/equivalent.toml`` is
+an equivalent mutant (it cannot change any output; the entry says why) and leaves the count;
+every other survivor is listed in the report with its diff, as a test to write.
+
+Kill rate = killed / (mutants - equivalent - not run). Mutants that no selected test reaches
+count as not killed; mutants of an interrupted run that were never tried count as not run
+(``--report-only`` writes the report of a run folder as it stands, e.g. after an interruption). ``--min-rate`` makes the exit status 1 when a module falls below it.
+
+Run: ``python -m mutation.run [--smoke] [--modules M ...] [--out reports/mutation.md]
+[--workers N] [--min-rate P]``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import datetime
+import os
+import re
+import shutil
+import subprocess
+import sys
+import tomllib
+from collections import Counter, defaultdict
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from mutation.targets import DESELECTED, FULL, SMOKE
+
+ROOT = Path(__file__).resolve().parents[1]
+COPIED = ("dochar", "tests", "configs", "data_synth", "benchmarks", "pyproject.toml", "setup.py")
+STATUSES = ("killed", "survived", "no tests", "timeout", "suspicious", "skipped", "segfault")
+
+
+@dataclass
+class Equivalent:
+    module: str
+    original: str
+    mutated: str
+    reason: str
+
+
+@dataclass
+class ModuleResult:
+    counts: Counter = field(default_factory=Counter)
+    survivors: list[tuple[str, str]] = field(default_factory=list)   # (mutant, diff)
+    equivalent: list[tuple[str, str]] = field(default_factory=list)  # (mutant, reason)
+
+    @property
+    def total(self) -> int:
+        return sum(self.counts.values())
+
+    def rate(self) -> float:
+        scored = self.total - len(self.equivalent) - self.counts["not checked"]
+        return self.counts["killed"] / scored if scored else 1.0
+
+
+def load_equivalents(path: Path) -> list[Equivalent]:
+    data = tomllib.loads(path.read_text(encoding="utf-8")) if path.exists() else {}
+    return [Equivalent(**entry) for entry in data.get("equivalent", [])]
+
+
+def prepare(workdir: Path, targets: dict[str, list[str]], isolation: str) -> None:
+    """A scratch copy of the tracked sources plus mutmut's settings for these targets."""
+    shutil.rmtree(workdir, ignore_errors=True)
+    workdir.mkdir(parents=True)
+    tracked = subprocess.run(["git", "ls-files", *COPIED], cwd=ROOT, check=True,
+                             capture_output=True, text=True).stdout.split()
+    for name in tracked:
+        target = workdir / name
+        target.parent.mkdir(parents=True, exist_ok=True)
+        shutil.copy2(ROOT / name, target)
+    tests = list(dict.fromkeys(t for paths in targets.values() for t in paths))
+    settings = "\n".join([
+        "", "[tool.mutmut]",
+        'source_paths = ["dochar"]',
+        f"only_mutate = {_toml_list(targets)}",
+        f"also_copy = {_toml_list(['configs', 'data_synth', 'benchmarks', 'setup.py'])}",
+        f"pytest_add_cli_args_test_selection = {_toml_list(tests)}",
+        "pytest_add_cli_args = " + _toml_list(["-p", "no:cacheprovider", "-m", "not slow", "-q",
+                                               *(f"--deselect={t}" for t in DESELECTED)]),
+        f'process_isolation = "{isolation}"',
+        "use_git_change_detection = false", ""])
+    with open(workdir / "pyproject.toml", "a", encoding="utf-8") as handle:
+        handle.write(settings)
+
+
+def _toml_list(items) -> str:
+    return "[" + ", ".join(f'"{item}"' for item in items) + "]"
+
+
+def mutmut(workdir: Path, *args: str, log: Path | None = None) -> str:
+    """Run a mutmut command in ``workdir``; with ``log``, its output goes to that file."""
+    env = {**os.environ, "OMP_NUM_THREADS": "1", "PYTHONPATH": ""}
+    command = [sys.executable, "-m", "mutmut", *args]
+    if log is not None:
+        with open(log, "w", encoding="utf-8") as handle:
+            code = subprocess.run(command, cwd=workdir, env=env, stdout=handle,
+                                  stderr=subprocess.STDOUT).returncode
+        if code != 0:
+            tail = log.read_text(encoding="utf-8", errors="replace")[-3000:]
+            raise SystemExit(f"{' '.join(command)} failed ({code}); end of {log}:\n{tail}")
+        return ""
+    done = subprocess.run(command, cwd=workdir, env=env, capture_output=True, text=True)
+    if done.returncode != 0:
+        raise SystemExit(f"{' '.join(command)} failed ({done.returncode}):\n"
+                         f"{done.stdout[-3000:]}\n{done.stderr[-3000:]}")
+    return done.stdout
+
+
+def module_of(mutant: str, modules: list[str]) -> str:
+    for module in modules:
+        if mutant.startswith(module.removesuffix(".py").replace("/", ".") + "."):
+            return module
+    raise ValueError(f"mutant {mutant} belongs to no target module")
+
+
+def changed_lines(diff: str) -> tuple[str, str]:
+    """The removed and the added lines of a mutant's diff, each joined and stripped."""
+    lines = diff.splitlines()
+    removed = " ".join(l[1:].strip() for l in lines if l.startswith("-") and not l.startswith("---"))
+    added = " ".join(l[1:].strip() for l in lines if l.startswith("+") and not l.startswith("+++"))
+    return removed, added
+
+
+def collect(workdir: Path, targets: dict[str, list[str]],
+            equivalents: list[Equivalent]) -> dict[str, ModuleResult]:
+    results: dict[str, ModuleResult] = defaultdict(ModuleResult)
+    modules = list(targets)
+    for line in mutmut(workdir, "results", "--all", "true").splitlines():
+        match = re.match(r"\s*(\S+): (.+)$", line)
+        if not match:
+            continue
+        mutant, status = match.groups()
+        result = results[module_of(mutant, modules)]
+        result.counts[status] += 1
+        if status != "survived":
+            continue
+        diff = mutmut(workdir, "show", mutant)
+        removed, added = changed_lines(diff)
+        reason = next((e.reason for e in equivalents if e.module == module_of(mutant, modules)
+                       and e.original in removed and e.mutated in added), None)
+        if reason is None:
+            result.survivors.append((mutant, diff))
+        else:
+            result.equivalent.append((mutant, reason))
+    return {module: results[module] for module in modules if module in results}
+
+
+def report(results: dict[str, ModuleResult], command: str, mode: str) -> str:
+    lines = [f"# Mutation testing ({mode})", "",
+             f"Generated {datetime.datetime.now(datetime.UTC):%Y-%m-%d %H:%M} UTC by `{command}` "
+             f"(mutmut). Kill rate = killed / (mutants - equivalent - not run).", "",
+             "| module | mutants | killed | survived | equivalent | no tests | timeout | not run | "
+             "kill rate |", "| --- | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: |"]
+    total = ModuleResult()
+    for module, result in results.items():
+        lines.append(_row(module, result))
+        total.counts.update(result.counts)
+        total.survivors += result.survivors
+        total.equivalent += result.equivalent
+    lines += [_row("**all**", total), "",
+              f"Surviving mutants (not marked equivalent): {len(total.survivors)}", ""]
+    for module, result in results.items():
+        for mutant, diff in result.survivors:
+            lines += [f"### {mutant}", "", "```diff", *diff.splitlines()[1:], "```", ""]
+    if total.equivalent:
+        lines += ["## Marked equivalent (mutation/equivalent.toml)", ""]
+        lines += [f"- `{mutant}`: {reason}" for result in results.values()
+                  for mutant, reason in result.equivalent]
+    return "\n".join(lines) + "\n"
+
+
+def _row(name: str, result: ModuleResult) -> str:
+    c = result.counts
+    survived = c["survived"] - len(result.equivalent)
+    return (f"| {name} | {result.total} | {c['killed']} | {survived} | {len(result.equivalent)} "
+            f"| {c['no tests']} | {c['timeout']} | {c['not checked']} "
+            f"| {100 * result.rate():.1f}% |")
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(prog="python -m mutation.run", description=__doc__)
+    parser.add_argument("--smoke", action="store_true", help="one small module, few mutants")
+    parser.add_argument("--modules", nargs="+", default=None,
+                        help="only these modules of the full run (paths as in targets.py)")
+    parser.add_argument("--out", type=Path, default=None)
+    parser.add_argument("--workdir", type=Path, default=None)
+    parser.add_argument("--workers", type=int, default=2)
+    parser.add_argument("--report-only", action="store_true",
+                        help="no run: report the mutants of --workdir as they stand")
+    parser.add_argument("--min-rate", type=float, default=None,
+                        help="exit 1 when a module's kill rate (percent) is below this")
+    args = parser.parse_args(argv)
+    mode = "smoke" if args.smoke else "full"
+    targets = SMOKE if args.smoke else FULL
+    if args.modules:
+        unknown = sorted(set(args.modules) - set(FULL))
+        if unknown:
+            parser.error(f"--modules {unknown}: not in mutation/targets.py FULL")
+        targets = {module: FULL[module] for module in args.modules}
+    workdir = args.workdir or ROOT / ".mutation" / mode
+    out = args.out or ROOT / "reports" / ("mutation-smoke.md" if args.smoke else "mutation.md")
+    if not args.report_only:
+        # the smoke test loads no torch, so its mutants fork straight from mutmut's process;
+        # torch is not fork-safe, so the full run forks them from a server that never ran it
+        prepare(workdir, targets, "fork" if args.smoke else "forkserver")
+        log = workdir / "mutmut-run.log"
+        print(f"mutmut over {len(targets)} module(s) in {workdir}; progress in {log}", flush=True)
+        mutmut(workdir, "run", "--max-children", str(args.workers), log=log)
+    results = collect(workdir, targets, load_equivalents(ROOT / "mutation" / "equivalent.toml"))
+    command = "python -m mutation.run " + " ".join(argv if argv is not None else sys.argv[1:])
+    out.parent.mkdir(parents=True, exist_ok=True)
+    out.write_text(report(results, command.strip(), mode), encoding="utf-8")
+    survivors = sum(len(r.survivors) for r in results.values())
+    print(f"{survivors} surviving mutant(s); report: {out}")
+    low = [m for m, result in results.items() if args.min_rate is not None
+           and 100 * result.rate() < args.min_rate]
+    if low:
+        print(f"kill rate below {args.min_rate}%: {low}")
+        return 1
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
