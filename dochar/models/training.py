@@ -18,6 +18,8 @@ from torch_geometric.data import Batch, Data
 from torch_geometric.loader import DataLoader
 from tqdm import tqdm
 
+from dochar.errors import DocharError
+
 _THREAD_LIMITS: list = []  # held for the life of the process: OpenMP/BLAS pools stay capped
 
 
@@ -36,12 +38,17 @@ def seed_everything(seed: int, threads: int) -> None:
     os.environ.setdefault("CUBLAS_WORKSPACE_CONFIG", ":4096:8")
 
 
+class TrainOptionError(DocharError):
+    """A ``train.*`` option the loop cannot run with; the message names its key."""
+
+
 def class_weights(graphs: Sequence[Data], num_classes: int, scheme: str) -> torch.Tensor:
     """Inverse-frequency weights n / (C * n_c) (scikit-learn's 'balanced'); absent classes get 1."""
     if scheme == "none":
         return torch.ones(num_classes)
     if scheme != "balanced":
-        raise ValueError(f"train.class_weighting: expected 'balanced' or 'none', got {scheme!r}")
+        raise TrainOptionError(f"config key train.class_weighting={scheme!r}: expected "
+                               f"'balanced' or 'none'")
     counts = torch.bincount(torch.cat([g.y for g in graphs]), minlength=num_classes).double()
     weights = counts.sum() / (num_classes * counts.clamp(min=1))
     weights[counts == 0] = 1.0
