@@ -203,3 +203,24 @@ def test_a_checkpoint_of_other_inputs_is_not_resumed(tmp_path):
     history = training.train(model, other["train"], other["val"], 4, cfg, seed=0,
                              checkpoint=found)
     assert history == fresh
+
+
+def test_stale_partial_writes_go_and_a_live_writers_stays(tmp_path):
+    """A partial file is stale when the process named in it no longer runs (or is this one,
+    between saves); starting training and removing the checkpoint both clear them."""
+    finished = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"],
+                              capture_output=True, text=True, check=True)
+    dead, alive = int(finished.stdout), os.getppid()   # the pid of an exited child, and a parent
+    names = {pid: tmp_path / f"other.pt.{pid}.partial" for pid in (dead, alive, os.getpid())}
+    for path in names.values():
+        path.write_bytes(b"PK")
+    checkpoint = EpochCheckpoint(tmp_path, "k", "inputs")
+    from tests.runs.training_inputs import tiny_training
+
+    model, graphs, cfg = tiny_training()
+    training.train(model, graphs["train"], graphs["val"], 4, {**cfg, "max_epochs": 1}, seed=0,
+                   checkpoint=checkpoint)
+    assert sorted(tmp_path.iterdir()) == sorted([names[alive], checkpoint.path])
+    names[dead].write_bytes(b"PK")                      # a writer killed during this run
+    checkpoint.remove()
+    assert list(tmp_path.iterdir()) == [names[alive]]
