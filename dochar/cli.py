@@ -25,7 +25,7 @@ import os
 import sys
 from pathlib import Path
 
-from dochar.config import CONFIG_DIR, check_config, config_error_message
+from dochar.config import CONFIG_DIR, config_error_message
 from dochar.errors import DocharError
 
 log = logging.getLogger("dochar")
@@ -183,12 +183,14 @@ def _report_error(command: str, error: DocharError) -> int:
 
 
 def _reported(task):
-    """Check the composed config against its schemas, then run the job; input and config
-    problems end it with one located message and exit code 2."""
+    """Check the composed config (schemas and every stage's options), then run the job; input
+    and config problems end it with one located message and exit code 2."""
     from omegaconf.errors import OmegaConfBaseException
 
     def job(cfg):
         try:
+            from dochar.runs.checks import check_config
+
             check_config(cfg)
             try:
                 return task(cfg)

@@ -11,7 +11,8 @@ schema does not name and a value of the wrong type before any data is loaded, an
 ``config_error_message`` turns Hydra's and OmegaConf's errors into one line naming the key, the
 value and what was expected. Open-ended options of one builder, layer or estimator stay a
 ``Dict[str, Any]`` (``graph.options``, ``model.layer_options``, ``model.options``): the module
-that reads them checks their names.
+that reads them checks them, and :func:`dochar.runs.checks.check_config` has it do so before any
+data loads.
 """
 
 from __future__ import annotations
@@ -294,7 +295,7 @@ def config_error_message(error: BaseException) -> str:
     return f"{where}: {message}{expected}"
 
 
-def check_config(cfg: Any) -> None:
+def check_schema(cfg: Any) -> None:
     """What composition lets through: keys forced in with ``+key=`` that no schema names, a
     model kind that does not fit its model file, an unknown ``data.repair``. Raises DocharError
     naming the key."""

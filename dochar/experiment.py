@@ -13,6 +13,7 @@ import torch
 from omegaconf import DictConfig, OmegaConf
 
 from dochar import graphs, tasks
+from dochar.runs.checks import check_config
 from dochar.data.sources import load_data
 from dochar.data.word_table import iter_pages, table_fingerprint
 from dochar.features import WordFeaturizer
@@ -32,6 +33,7 @@ log = logging.getLogger(__name__)
 
 def check_names(cfg: DictConfig) -> None:
     """Fail on an unknown task, builder, layer or estimator before any data is loaded."""
+    check_config(cfg)
     from dochar.models.baselines import BASELINES, TEMPLATE_BASELINES
     from dochar.models.layers import LAYERS
 

@@ -138,3 +138,75 @@ def test_a_store_failing_while_logging_keeps_the_run_and_says_why(capsys, monkey
     assert "UniqueViolation" in err and "ana:***@db.lab" in err and "Wr0ng" not in err
     kept = Path(err.split("the finished run is kept in ")[1].split()[0])
     assert (kept / "summary.json").is_file() and kept.is_relative_to(tmp_path)
+
+
+# A word table that does not exist: a check made after loading would report the missing file
+# instead, so each message below also shows that the option was checked first.
+NO_DATA = ("data=word_table", "data.path=no/such/words.csv", "data.labels=[analyte,value]")
+
+
+@pytest.mark.parametrize("overrides, expected", [
+    # model.layer_options, tried on the layer the stack would build (dochar/models/layers)
+    (["model=attention", "+model.layer_options.temperature=2"],
+     "config key model.layer_options: layer 'attention' has no option(s) ['temperature']"),
+    (["model=attention", "model.layer_options.heads=3"],      # 64 = model.hidden_dim
+     "config key model.layer_options.heads=3: attention layer: out_dim 64"),
+    (["model=attention", "model.layer_options.heads=0"], "config key model.layer_options.heads=0"),
+    (["model=attention", "+model.layer_options.self_loops=twice"],
+     "config key model.layer_options.self_loops='twice'"),
+    (["model=relational", "+model.layer_options.aggr=median"],
+     "config key model.layer_options.aggr='median'"),
+    (["model=relational", "+model.layer_options.num_bases=0"],
+     "config key model.layer_options.num_bases=0"),
+    (["model=attention", "model.layer_options.heads=two"],
+     "config key model.layer_options={'heads': 'two'}: layer 'attention' cannot be built"),
+    (["model.layer=sage"], "config key model.layer='sage': unknown layer"),
+    (["model.norm=group"], "config key model.norm='group': unknown norm"),
+    (["model.depth=0"], "config key model.depth=0: must be an int >= 1"),
+    (["model.dropout=1.5"], "config key model.dropout=1.5: must lie in [0, 1)"),
+    # model.options, against the estimator's get_params() and its parameter constraints
+    (["model=random_forest", "+model.options.depth=3"],
+     "config key model.options: baseline 'random_forest' has no option(s) ['depth']"),
+    (["model=random_forest", "model.options.n_estimators=0"],
+     "config key model.options: The 'n_estimators' parameter of RandomForestClassifier"),
+    (["model=random_forest", "+model.options.random_state=1"],
+     "config key model.options.random_state"),
+    (["model=random_forest", "model.estimator=svm"],
+     "config key model.estimator='svm': unknown baseline"),
+    # features.*
+    (["features.pool_words=[mean,median]"], "config key features.pool_words=['mean', 'median']"),
+    (["features.groups=[geometry,colour]"], "config key features.groups=['geometry', 'colour']"),
+    (["features.max_chars=0"], "config key features.max_chars=0"),
+    (["features.groups=[geometry,char_cnn]", "features.char_cnn.kernel_sizes=[3,0]"],
+     "config key features.char_cnn.kernel_sizes=[3, 0]"),
+    (["features.groups=[geometry,char_cnn]", "features.char_cnn.channels=0"],
+     "config key features.char_cnn.channels=0"),
+    (["features.groups=[geometry,char_cnn]", "features.char_cnn.out_dim=-4"],
+     "config key features.char_cnn.out_dim=-4"),
+    (["features.groups=[geometry,text_flags]", "+data.lexicons.units=['mg per L']"],
+     "config key data.lexicons.units[0]: 'mg per L' holds a space"),
+    # train.*
+    (["train.class_weighting=inverse"], "config key train.class_weighting='inverse'"),
+    (["train.pages_per_batch=0"], "config key train.pages_per_batch=0"),
+    (["train.learning_rate=0"], "config key train.learning_rate=0"),
+])
+def test_an_option_no_stage_can_use_fails_before_any_data_loads(capsys, monkeypatch, tmp_path,
+                                                                 overrides, expected):
+    code, err = run(capsys, monkeypatch, tmp_path, "run", *NO_DATA, *overrides,
+                    "tracking.enabled=false")
+    assert code == 2, err
+    lines = err.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("dochar run: error: "), err
+    assert expected in lines[0]
+    assert "no/such/words.csv" not in err and "Traceback" not in err
+
+
+def test_the_gate_checks_its_experiment_config_the_same_way(tmp_path):
+    """The gate composes its reference config itself; an option no stage can use is a config
+    error of the gate (exit 2 material), found before the reference run loads its data."""
+    from dochar.gate.command import GateError, run_reference
+
+    with pytest.raises(GateError, match=r"bad experiment config .*\]: config key "
+                                        r"features\.pool_words=\['median'\]"):
+        run_reference([*NO_DATA, "features.pool_words=[median]", "tracking.enabled=false",
+                       f"train.checkpoint_dir={tmp_path}"])

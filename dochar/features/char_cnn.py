@@ -23,6 +23,7 @@ import torch.nn.functional as F
 from torch import nn
 
 from dochar.features.chars import CHAR_VOCAB_SIZE, PAD_ID
+from dochar.features.options import FeatureOptionError
 
 
 class CharCNNEncoder(nn.Module):
@@ -33,13 +34,16 @@ class CharCNNEncoder(nn.Module):
                  dropout: float = 0.0) -> None:
         super().__init__()
         if not kernel_sizes or any(int(k) < 1 for k in kernel_sizes):
-            raise ValueError(f"CharCNNEncoder: kernel_sizes must be positive, got {kernel_sizes}")
+            raise FeatureOptionError(f"config key features.char_cnn.kernel_sizes="
+                                     f"{list(kernel_sizes)}: give one or more sizes, each at "
+                                     f"least 1")
         for name, value in (("vocab_size", vocab_size), ("embedding_dim", embedding_dim),
                             ("channels", channels), ("out_dim", out_dim)):
             if int(value) < 1:
-                raise ValueError(f"CharCNNEncoder: {name} must be at least 1, got {value}")
+                raise FeatureOptionError(f"config key features.char_cnn.{name}={value}: must be "
+                                         f"at least 1")
         if not 0.0 <= dropout < 1.0:
-            raise ValueError(f"CharCNNEncoder: dropout must be in [0, 1), got {dropout}")
+            raise FeatureOptionError(f"char CNN dropout={dropout}: must be in [0, 1)")
         self.vocab_size = int(vocab_size)
         self.kernel_sizes = tuple(int(k) for k in kernel_sizes)
         self.embedding = nn.Embedding(self.vocab_size, embedding_dim, padding_idx=PAD_ID)

@@ -31,6 +31,7 @@ from dochar.features.context import (
 )
 from dochar.features.geometry import GEOMETRY_NAMES, geometry_features
 from dochar.features.lexicons import compile_lexicons, lexicon_features
+from dochar.features.options import FeatureOptionError
 from dochar.features.text_embedding import EMBEDDING_DIM, TextEmbedder
 from dochar.features.text_flags import TEXT_FLAG_NAMES, text_flag_features
 
@@ -63,6 +64,22 @@ def check_page(page: Page) -> None:
                          f"or has x1 < x0 / y1 < y0 ({int(bad.sum())} such box(es) on the page)")
 
 
+def check_options(groups: Sequence[str], max_chars: int, pool_words: Sequence[str]) -> None:
+    """The featurizer's own options, named by their config keys (no data needed)."""
+    unknown = [g for g in groups if g not in FEATURE_GROUPS + OPTIONAL_GROUPS]
+    if unknown or not groups:
+        raise FeatureOptionError(f"config key features.groups={list(groups)}: unknown or no "
+                                 f"feature group(s) {unknown}; choose from "
+                                 f"{list(FEATURE_GROUPS + OPTIONAL_GROUPS)}")
+    if max_chars < 1:
+        raise FeatureOptionError(f"config key features.max_chars={max_chars}: must be at "
+                                 f"least 1")
+    unknown_pooling = sorted(set(pool_words) - set(POOLINGS))
+    if unknown_pooling:
+        raise FeatureOptionError(f"config key features.pool_words={list(pool_words)}: "
+                                 f"{unknown_pooling} unknown; choose from {list(POOLINGS)}")
+
+
 class WordFeaturizer:
     """scikit-learn style featurizer for the words of a page."""
 
@@ -73,20 +90,11 @@ class WordFeaturizer:
                  ) -> None:
         if isinstance(groups, str):
             groups = (groups,)
-        unknown = [g for g in groups if g not in FEATURE_GROUPS + OPTIONAL_GROUPS]
-        if unknown or not groups:
-            raise ValueError(f"WordFeaturizer: unknown or no feature group(s) {unknown}; "
-                             f"choose from {list(FEATURE_GROUPS + OPTIONAL_GROUPS)}")
-        if max_chars < 1:
-            raise ValueError(f"WordFeaturizer: max_chars must be at least 1, got {max_chars}")
+        check_options(groups, max_chars, pool_words)
         self.groups = tuple(dict.fromkeys(groups))
         self.embedding_cache = embedding_cache
         self.embedder = (TextEmbedder(embedding_cache) if "text_embedding" in self.groups
                          else None)
-        unknown_pooling = sorted(set(pool_words) - set(POOLINGS))
-        if unknown_pooling:
-            raise ValueError(f"WordFeaturizer: pool_words {unknown_pooling} unknown; choose "
-                             f"from {list(POOLINGS)}")
         self.line_context = bool(line_context)
         self.pool_words = tuple(dict.fromkeys(pool_words))
         self.lexicons = compile_lexicons(lexicons)

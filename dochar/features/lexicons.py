@@ -15,6 +15,8 @@ from functools import lru_cache
 
 import numpy as np
 
+from dochar.features.options import FeatureOptionError
+
 # Common trade words on certificates of analysis (common practice); configs pick their own lists.
 DEFAULT_LEXICONS: dict[str, tuple[str, ...]] = {
     "units": ("mg/L", "µg/L", "ng/L", "g/L", "mg/kg", "µg/kg", "g/kg", "g/100g", "mL", "%",
@@ -62,21 +64,23 @@ def compile_lexicons(lexicons: Mapping[str, Sequence[str]] | None) -> dict[str, 
     compiled: dict[str, frozenset[str]] = {}
     for name, entries in lexicons.items():
         if not isinstance(name, str) or not name.strip():
-            raise ValueError(f"lexicons: list name {name!r} must be a non-empty string")
+            raise FeatureOptionError(f"config key data.lexicons: list name {name!r} must be a "
+                                     f"non-empty string")
         if isinstance(entries, str) or not isinstance(entries, Sequence):
-            raise TypeError(f"lexicons['{name}']: expected a list of words, "
+            raise TypeError(f"config key data.lexicons.{name}: expected a list of words, "
                             f"got {type(entries).__name__} {entries!r}")
         keys = set()
         for position, entry in enumerate(entries):
             if not isinstance(entry, str) or not entry.strip():
-                raise ValueError(f"lexicons['{name}'][{position}]: {entry!r} is not a "
-                                 f"non-empty string")
+                raise FeatureOptionError(f"config key data.lexicons.{name}[{position}]: "
+                                         f"{entry!r} is not a non-empty string")
             if any(ch.isspace() for ch in entry.strip()):
-                raise ValueError(f"lexicons['{name}'][{position}]: {entry!r} holds a space; "
-                                 f"entries are single words, list each word separately")
+                raise FeatureOptionError(f"config key data.lexicons.{name}[{position}]: "
+                                         f"{entry!r} holds a space; entries are single words, "
+                                         f"list each word separately")
             keys.add(lexicon_key(entry.strip()))
         if not keys:
-            raise ValueError(f"lexicons['{name}']: the list is empty")
+            raise FeatureOptionError(f"config key data.lexicons.{name}: the list is empty")
         compiled[name] = frozenset(keys)
     return compiled
 

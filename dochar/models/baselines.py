@@ -16,7 +16,13 @@ from sklearn.linear_model import LogisticRegression
 from sklearn.pipeline import make_pipeline
 from sklearn.preprocessing import StandardScaler
 
+from dochar.errors import DocharError
 from dochar.models.template import LayoutTemplateClassifier, TemplateInputError
+
+
+class EstimatorOptionError(DocharError):
+    """An estimator name or option scikit-learn cannot build or fit; names its config key."""
+
 
 BASELINES: dict[str, type] = {
     "random_forest": RandomForestClassifier,
@@ -39,18 +45,35 @@ _DEFAULTS: dict[str, dict[str, Any]] = {
 def make_baseline(name: str, seed: int, **options: Any) -> BaseEstimator:
     """A fresh, seeded estimator; logistic regression is wrapped in a StandardScaler pipeline."""
     if name not in BASELINES:
-        raise ValueError(f"unknown baseline {name!r}; valid baselines: {sorted(BASELINES)}")
+        raise EstimatorOptionError(f"config key model.estimator={name!r}: unknown baseline "
+                                   f"{name!r}; valid baselines: {sorted(BASELINES)}")
     cls = BASELINES[name]
     valid = set(cls().get_params()) - {"random_state"}
     if "random_state" in options:
-        raise ValueError(f"baseline {name!r}: pass the seed as seed=, not random_state=")
+        raise EstimatorOptionError(f"config key model.options.random_state: baseline {name!r} "
+                                   f"takes its seed from the config key seed")
     unknown = sorted(set(options) - valid)
     if unknown:
-        raise ValueError(f"baseline {name!r} has no option(s) {unknown}; valid options: {sorted(valid)}")
+        raise EstimatorOptionError(f"config key model.options: baseline {name!r} has no "
+                                   f"option(s) {unknown}; valid options: {sorted(valid)}")
     estimator = cls(**{**_DEFAULTS[name], **options, "random_state": seed})
     if name == "logistic_regression":
         return make_pipeline(StandardScaler(), estimator)
     return estimator
+
+
+def check_baseline_options(name: str, options: dict[str, Any]) -> None:
+    """Names and values of a baseline's options, checked as scikit-learn's ``fit`` would
+    (its parameter constraints) but before any data exists."""
+    estimator = make_baseline(name, 0, **options)
+    for step in getattr(estimator, "steps", [(name, estimator)]):
+        validate = getattr(step[1], "_validate_params", None)   # scikit-learn >= 1.2
+        if validate is None:
+            continue
+        try:
+            validate()
+        except ValueError as error:     # sklearn's InvalidParameterError
+            raise EstimatorOptionError(f"config key model.options: {error}") from None
 
 
 def make_template(name: str, options: dict[str, Any], classes: list[str],

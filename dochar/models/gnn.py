@@ -5,7 +5,7 @@ from __future__ import annotations
 import torch
 from torch import Tensor
 
-from dochar.models.layers import make_layer
+from dochar.models.layers import LayerOptionError, make_layer
 
 NORMS = ("batch", "layer", "none")
 
@@ -116,14 +116,17 @@ def _check_arguments(in_dim: int, num_classes: int, num_relations: int, hidden_d
                      depth: int, dropout: float, norm: str, char_encoder: torch.nn.Module | None,
                      char_dim: int) -> None:
     for name, value, low in (("in_dim", in_dim, 0), ("num_classes", num_classes, 1),
-                             ("num_relations", num_relations, 1), ("hidden_dim", hidden_dim, 1),
-                             ("depth", depth, 1), ("char_dim", char_dim, 0)):
+                             ("num_relations", num_relations, 1), ("char_dim", char_dim, 0)):
         if not isinstance(value, int) or isinstance(value, bool) or value < low:
             raise ValueError(f"GNNStack: {name} must be an int >= {low}, got {value!r}")
+    for name, value in (("hidden_dim", hidden_dim), ("depth", depth)):
+        if not isinstance(value, int) or isinstance(value, bool) or value < 1:
+            raise LayerOptionError(f"config key model.{name}={value!r}: must be an int >= 1")
     if not 0.0 <= dropout < 1.0:
-        raise ValueError(f"GNNStack: dropout must lie in [0, 1), got {dropout!r}")
+        raise LayerOptionError(f"config key model.dropout={dropout!r}: must lie in [0, 1)")
     if norm not in NORMS:
-        raise ValueError(f"GNNStack: unknown norm {norm!r}; valid norms: {list(NORMS)}")
+        raise LayerOptionError(f"config key model.norm={norm!r}: unknown norm; valid norms: "
+                               f"{list(NORMS)}")
     if (char_encoder is None) != (char_dim == 0):
         raise ValueError("GNNStack: give char_encoder and char_dim > 0 together, or neither "
                          f"(got char_encoder={type(char_encoder).__name__}, char_dim={char_dim})")

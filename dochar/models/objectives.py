@@ -22,14 +22,14 @@ from dochar.errors import DocharError
 CLASS_WEIGHTINGS = ("balanced", "none")
 
 
-class TrainingOptionError(DocharError):
-    """A ``train`` option the loop cannot use."""
+class TrainOptionError(DocharError):
+    """A ``train.*`` option the loop cannot run with; the message names its key."""
 
 
 def check_class_weighting(scheme: str) -> str:
     if scheme not in CLASS_WEIGHTINGS:
-        raise TrainingOptionError(f"train.class_weighting: expected one of "
-                                  f"{list(CLASS_WEIGHTINGS)}, got {scheme!r}")
+        raise TrainOptionError(f"config key train.class_weighting={scheme!r}: expected one of "
+                               f"{list(CLASS_WEIGHTINGS)}")
     return scheme
 
 

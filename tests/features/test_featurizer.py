@@ -34,6 +34,7 @@ from dochar.features import (
     char_ids,
     char_ngram_hashes,
 )
+from dochar.features.options import FeatureOptionError
 from dochar.features.geometry import geometry_features
 from dochar.features.text_flags import text_flag_row
 from tests.helpers import datasets_root
@@ -189,11 +190,11 @@ def test_lexicon_membership():
 
 
 @pytest.mark.parametrize("bad,error", [
-    ({"verdicts": ["not detected"]}, ValueError), ({"units": "mg/L"}, TypeError),
-    ({"units": []}, ValueError), ({"units": ["mg/L", ""]}, ValueError),
+    ({"verdicts": ["not detected"]}, FeatureOptionError), ({"units": "mg/L"}, TypeError),
+    ({"units": []}, FeatureOptionError), ({"units": ["mg/L", ""]}, FeatureOptionError),
 ])
 def test_lexicon_errors_name_the_entry(bad, error):
-    with pytest.raises(error, match=r"lexicons\['(units|verdicts)'\]"):
+    with pytest.raises(error, match=r"data\.lexicons\.(units|verdicts)"):
         WordFeaturizer(lexicons=bad)
 
 

@@ -152,11 +152,11 @@ def test_bad_arguments_are_reported():
     x, edge_index, edge_type, chars = _graph()
     with pytest.raises(ValueError, match=r"unknown layer 'sage'.*attention.*gcn.*max.*none.*relational"):
         GNNStack(5, 4, NUM_RELATIONS, layer="sage")
-    with pytest.raises(ValueError, match=r"unknown norm 'group'.*batch.*layer.*none"):
+    with pytest.raises(ValueError, match=r"model.norm='group': unknown norm.*batch.*layer.*none"):
         GNNStack(5, 4, NUM_RELATIONS, norm="group")
     with pytest.raises(ValueError, match="char_encoder and char_dim"):
         GNNStack(5, 4, NUM_RELATIONS, char_encoder=TinyCharEncoder())
-    with pytest.raises(ValueError, match="depth must be an int >= 1"):
+    with pytest.raises(ValueError, match="model.depth=0: must be an int >= 1"):
         GNNStack(5, 4, NUM_RELATIONS, depth=0)
     with pytest.raises(ValueError, match="no option"):
         GNNStack(5, 4, NUM_RELATIONS, layer="gcn", layer_options={"heads": 2})
@@ -265,5 +265,5 @@ def test_baseline_bad_names():
         make_baseline("svm", seed=0)
     with pytest.raises(ValueError, match=r"no option\(s\) \['depth'\]"):
         make_baseline("random_forest", seed=0, depth=3)
-    with pytest.raises(ValueError, match="seed="):
+    with pytest.raises(ValueError, match="model.options.random_state.*config key seed"):
         make_baseline("random_forest", seed=0, random_state=1)

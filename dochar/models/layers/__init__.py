@@ -20,6 +20,7 @@ from dochar.models.layers.max import MaxLayer
 from dochar.models.layers.none import NoGraphLayer
 from dochar.models.layers.relational import RelationalLayer
 from dochar.models.layers.transformer import TransformerLayer
+from dochar.models.layers.validation import LayerOptionError
 
 LAYERS: dict[str, type] = {
     "relational": RelationalLayer,
@@ -51,22 +52,25 @@ def make_layer(name: str, in_dim: int, out_dim: int, num_relations: int, edge_di
     valid = layer_options(name)
     unknown = sorted(set(options) - set(valid))
     if unknown:
-        raise ValueError(f"layer {name!r} has no option(s) {unknown}; valid options: "
-                         f"{list(valid) or 'none'}")
+        raise LayerOptionError(f"config key model.layer_options: layer {name!r} has no "
+                               f"option(s) {unknown}; valid options: {list(valid) or 'none'}")
     for label, value in (("in_dim", in_dim), ("out_dim", out_dim), ("num_relations", num_relations)):
         if not isinstance(value, int) or isinstance(value, bool) or value < 1:
-            raise ValueError(f"layer {name!r}: {label} must be a positive int, got {value!r}")
+            raise LayerOptionError(f"layer {name!r}: {label} must be a positive int, "
+                                   f"got {value!r}")
     if not isinstance(edge_dim, int) or isinstance(edge_dim, bool) or edge_dim < 0:
-        raise ValueError(f"layer {name!r}: edge_dim must be an int >= 0, got {edge_dim!r}")
+        raise LayerOptionError(f"layer {name!r}: edge_dim must be an int >= 0, got {edge_dim!r}")
     return cls(in_dim, out_dim, num_relations, edge_dim=edge_dim, **options)
 
 
 def _lookup(name: str) -> type:
     if name not in LAYERS:
-        raise ValueError(f"unknown layer {name!r}; valid layers: {sorted(LAYERS)}")
+        raise LayerOptionError(f"config key model.layer={name!r}: unknown layer {name!r}; "
+                               f"valid layers: {sorted(LAYERS)}")
     return LAYERS[name]
 
 
-__all__ = ["LAYERS", "make_layer", "layer_options", "AttentionLayer", "EdgeAttentionLayer",
+__all__ = ["LAYERS", "make_layer", "layer_options", "LayerOptionError", "AttentionLayer",
+           "EdgeAttentionLayer",
            "GatedRelationalLayer", "GCNLayer", "GINELayer", "MaxLayer", "NoGraphLayer",
            "RelationalLayer", "TransformerLayer"]

@@ -6,7 +6,7 @@ import torch
 from torch import Tensor
 from torch_geometric.nn import GATv2Conv
 
-from dochar.models.layers.validation import check_graph_inputs
+from dochar.models.layers.validation import LayerOptionError, check_graph_inputs
 
 SELF_LOOP_MODES = ("learned", "mean", "none")
 
@@ -41,13 +41,17 @@ class AttentionLayer(torch.nn.Module):
                  attention_dropout: float = 0.0, edge_dim: int = 0) -> None:
         super().__init__()
         if self_loops not in SELF_LOOP_MODES:
-            raise ValueError(f"attention layer: self_loops must be one of {SELF_LOOP_MODES}, "
-                             f"got {self_loops!r}")
+            raise LayerOptionError(f"config key model.layer_options.self_loops={self_loops!r}: "
+                                   f"attention layer: self_loops must be one of "
+                                   f"{SELF_LOOP_MODES}")
         if heads < 1:
-            raise ValueError(f"attention layer: heads must be >= 1, got {heads}")
+            raise LayerOptionError(f"config key model.layer_options.heads={heads!r}: attention "
+                                   f"layer: heads must be >= 1")
         if concat and out_dim % heads:
-            raise ValueError(f"attention layer: out_dim {out_dim} is not divisible by heads {heads} "
-                             "(concatenated heads split out_dim evenly)")
+            raise LayerOptionError(f"config key model.layer_options.heads={heads!r}: attention "
+                                   f"layer: out_dim {out_dim} (model.hidden_dim) is not "
+                                   f"divisible by heads {heads} (concatenated heads split "
+                                   f"out_dim evenly)")
         self.in_dim, self.out_dim, self.num_relations = in_dim, out_dim, num_relations
         self.self_loops = self_loops
         extra = 1 if self_loops == "learned" else 0

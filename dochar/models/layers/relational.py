@@ -8,7 +8,7 @@ import torch
 from torch import Tensor
 from torch_geometric.nn import RGCNConv
 
-from dochar.models.layers.validation import check_graph_inputs
+from dochar.models.layers.validation import LayerOptionError, check_graph_inputs
 
 AGGREGATIONS = ("mean", "add")
 
@@ -41,9 +41,11 @@ class RelationalLayer(torch.nn.Module):
                  edge_dim: int = 0) -> None:
         super().__init__()
         if aggr not in AGGREGATIONS:
-            raise ValueError(f"relational layer: aggr must be one of {AGGREGATIONS}, got {aggr!r}")
+            raise LayerOptionError(f"config key model.layer_options.aggr={aggr!r}: relational "
+                                   f"layer: aggr must be one of {AGGREGATIONS}")
         if num_bases is not None and not 1 <= num_bases:
-            raise ValueError(f"relational layer: num_bases must be None or >= 1, got {num_bases}")
+            raise LayerOptionError(f"config key model.layer_options.num_bases={num_bases!r}: "
+                                   f"relational layer: num_bases must be null or >= 1")
         self.in_dim, self.out_dim, self.num_relations = in_dim, out_dim, num_relations
         self.aggr = aggr
         self.conv = RGCNConv(in_dim, out_dim, num_relations, num_bases=num_bases, aggr=aggr,

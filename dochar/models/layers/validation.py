@@ -1,9 +1,17 @@
-"""Input checks shared by every layer, so a malformed graph fails at the layer that received it."""
+"""Checks shared by every layer: its options (from the config) when it is built, and its
+inputs, so a malformed graph fails at the layer that received it."""
 
 from __future__ import annotations
 
 import torch
 from torch import Tensor
+
+from dochar.errors import DocharError
+
+
+class LayerOptionError(DocharError):
+    """A GNN option no stack can be built from (its layer, the layer's options, its sizes);
+    the message names the config key."""
 
 
 def check_graph_inputs(
