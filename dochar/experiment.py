@@ -105,7 +105,8 @@ def run_experiment(cfg: DictConfig) -> tuple[RunBundle, Any]:
             pages[part_of[page.doc_id]].append(task.nodes(page))
     sets = {part: PageSet.build(pages[part], builder, progress=progress,
                                 desc=f"graphs ({part})") for part in PARTS}
-    featurizer = WordFeaturizer.from_config(cfg.features, cfg.data).fit(sets["train"].pages)
+    featurizer = WordFeaturizer.from_config(cfg.features, cfg.data, strict=bool(cfg.strict)
+                                            ).fit(sets["train"].pages)
     torch.manual_seed(int(cfg.seed))
     fitted = fit_model(cfg, sets, featurizer, labels)
     predictions = prediction_frame(sets["test"].pages, fitted.probabilities, labels,
@@ -121,6 +122,8 @@ def run_experiment(cfg: DictConfig) -> tuple[RunBundle, Any]:
     metrics.update({f"data/{k}": float(v) for k, v in data.notes.items()})
     metrics.update(split.notes)
     metrics.update(fitted.notes)
+    if featurizer.images is not None:   # pages whose image features fell back to 0
+        metrics["data/page_images_missing"] = float(featurizer.missing_image_pages)
     if not split.leakage.empty:
         scores.tables["leakage"] = split.leakage
     scores.tables["documents"] = document_table(split.table, part_of)

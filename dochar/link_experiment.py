@@ -20,6 +20,7 @@ from omegaconf import DictConfig, OmegaConf
 from dochar import graphs
 from dochar.data.sources import load_data
 from dochar.data.word_table import iter_pages, table_fingerprint
+from dochar.errors import DocharError
 from dochar.features import CharCNNEncoder, WordFeaturizer, char_ngram_hashes
 from dochar.graphs.candidates import (
     CandidateOptions,
@@ -186,7 +187,10 @@ def run_links(cfg: DictConfig) -> tuple[RunBundle, Any]:
         by_part[part_of[page.nodes.doc_id]].append(page)
     builder = graphs.from_config(cfg.graph)
     options = CandidateOptions(str(task.candidates.source), float(task.candidates.max_distance))
-    featurizer = WordFeaturizer.from_config(cfg.features, cfg.data).fit(
+    if "crop_cnn" in cfg.features.groups:
+        raise DocharError("features.groups: crop_cnn is not available for task=links yet; "
+                          "use the page_image group (the same crops as dense columns)")
+    featurizer = WordFeaturizer.from_config(cfg.features, cfg.data, strict=bool(cfg.strict)).fit(
         [p.nodes for p in by_part["train"]])
     inputs, missed, candidate_counts = {}, {}, np.zeros(2)
     for part in PARTS:

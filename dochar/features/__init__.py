@@ -1,7 +1,8 @@
 """Word features: geometry, text flags and lexicons as dense columns; characters for the char CNN;
-optionally a pretrained text embedding (the ``embed`` extra).
+optionally a pretrained text embedding (the ``embed`` extra); page-image crops and their
+features.
 
-``CharCNNEncoder`` is loaded on first use so baselines that never touch torch stay light.
+``CharCNNEncoder`` and ``CropCNNEncoder`` are loaded on first use so baselines that never touch torch stay light.
 """
 
 from __future__ import annotations
@@ -21,10 +22,12 @@ from dochar.features.text_flags import TEXT_FLAG_NAMES
 
 if TYPE_CHECKING:
     from dochar.features.char_cnn import CharCNNEncoder
+    from dochar.features.crop_cnn import CropCNNEncoder
 
 __all__ = [
     "CHAR_VOCAB", "CHAR_VOCAB_SIZE", "DEFAULT_LEXICONS", "FEATURE_GROUPS", "GEOMETRY_NAMES", "OPTIONAL_GROUPS",
-    "TEXT_FLAG_NAMES", "CharCNNEncoder", "WordFeaturizer", "char_ids", "char_ngram_hashes",
+    "TEXT_FLAG_NAMES", "CharCNNEncoder", "CropCNNEncoder", "WordFeaturizer", "char_ids",
+    "char_ngram_hashes",
 ]
 
 
@@ -33,4 +36,8 @@ def __getattr__(name: str):
         from dochar.features.char_cnn import CharCNNEncoder
 
         return CharCNNEncoder
+    if name == "CropCNNEncoder":
+        from dochar.features.crop_cnn import CropCNNEncoder
+
+        return CropCNNEncoder
     raise AttributeError(f"module 'dochar.features' has no attribute '{name}'")

@@ -16,7 +16,7 @@ import pandas as pd
 from omegaconf import DictConfig, OmegaConf
 from sklearn.metrics import f1_score
 
-from dochar.features import CharCNNEncoder, WordFeaturizer
+from dochar.features import CharCNNEncoder, CropCNNEncoder, WordFeaturizer
 from dochar.models.baselines import make_baseline, make_template
 from dochar.models.checkpoints import EpochCheckpoint, inputs_digest, training_key
 from dochar.models.gnn import GNNStack, count_parameters
@@ -55,7 +55,8 @@ def fit_gnn(cfg: DictConfig, sets: dict[str, PageSet], featurizer: WordFeaturize
                      dropout=model_cfg.dropout, norm=model_cfg.norm,
                      residual=model_cfg.residual, char_encoder=encoder,
                      char_dim=int(cfg.features.char_cnn.out_dim) if encoder else 0,
-                     layer_options=dict(model_cfg.layer_options or {}))
+                     layer_options=dict(model_cfg.layer_options or {}),
+                     **crop_encoder(cfg.features, featurizer))
     checkpoint = _checkpoint(cfg, graphs)
     started = time.perf_counter()
     history = train(model, graphs["train"], graphs["val"], len(labels), cfg.train, int(cfg.seed),
@@ -74,6 +75,14 @@ def fit_gnn(cfg: DictConfig, sets: dict[str, PageSet], featurizer: WordFeaturize
     return FittedModel(model, probabilities, cost, tables={"training_curve": history.curve()})
 
 
+def crop_encoder(features_cfg: Mapping[str, Any], featurizer: WordFeaturizer) -> dict[str, Any]:
+    """The GNNStack arguments of the crop CNN (none when the features leave it out)."""
+    if not featurizer.uses_crop_cnn:
+        return {}
+    settings = dict(features_cfg["crop_cnn"])
+    return {"crop_encoder": CropCNNEncoder(**settings), "crop_dim": int(settings["out_dim"])}
+
+
 def _checkpoint(cfg: DictConfig, graphs: dict[str, list]) -> EpochCheckpoint | None:
     """Epoch checkpoints under ``train.checkpoint_dir`` (null: none), keyed by what training
     depends on, so the same config on the same data resumes a killed run."""
@@ -83,7 +92,10 @@ def _checkpoint(cfg: DictConfig, graphs: dict[str, list]) -> EpochCheckpoint | N
     inputs = inputs_digest(graphs["train"], graphs["val"])
     encoder = (OmegaConf.to_container(cfg.features.char_cnn, resolve=True)
                if "char_cnn" in cfg.features else {})
-    key = training_key({**OmegaConf.to_container(cfg.model, resolve=True), "char_cnn": encoder},
+    crops = (OmegaConf.to_container(cfg.features.crop_cnn, resolve=True)
+             if "crop_cnn" in cfg.features.groups else {})
+    key = training_key({**OmegaConf.to_container(cfg.model, resolve=True), "char_cnn": encoder,
+                        **({"crop_cnn": crops} if crops else {})},
                        cfg.train, int(cfg.seed), inputs)
     return EpochCheckpoint(folder, key, inputs)
 

@@ -27,7 +27,8 @@ class _Block(torch.nn.Module):
 class GNNStack(torch.nn.Module):
     """Per-word classifier over a typed word graph; returns logits, callers apply the softmax.
 
-    ``[char_encoder(chars) ‖ x] → Linear → depth × block → Linear-ReLU-dropout-Linear``.
+    ``[x ‖ char_encoder(chars) ‖ crop_encoder(crops)] → Linear → depth × block →
+    Linear-ReLU-dropout-Linear``; each encoder is optional and trained with the stack.
     The input projection brings every feature set to ``hidden_dim`` so residual additions line up
     from the first block on, and the layer type is the only thing that changes between ablations.
     """
@@ -35,13 +36,16 @@ class GNNStack(torch.nn.Module):
     def __init__(self, in_dim: int, num_classes: int, num_relations: int, layer: str = "relational",
                  hidden_dim: int = 64, depth: int = 2, dropout: float = 0.2, norm: str = "batch",
                  residual: bool = True, char_encoder: torch.nn.Module | None = None,
-                 char_dim: int = 0, layer_options: dict | None = None) -> None:
+                 char_dim: int = 0, layer_options: dict | None = None,
+                 crop_encoder: torch.nn.Module | None = None, crop_dim: int = 0) -> None:
         super().__init__()
         _check_arguments(in_dim, num_classes, num_relations, hidden_dim, depth, dropout, norm,
                          char_encoder, char_dim)
+        _check_encoder("crop", crop_encoder, crop_dim)
         self.in_dim, self.num_classes, self.char_dim = in_dim, num_classes, char_dim
         self.char_encoder = char_encoder
-        self.input_projection = torch.nn.Linear(in_dim + char_dim, hidden_dim)
+        self.crop_encoder, self.crop_dim = crop_encoder, crop_dim
+        self.input_projection = torch.nn.Linear(in_dim + char_dim + crop_dim, hidden_dim)
         self.blocks = torch.nn.ModuleList(
             _Block(make_layer(layer, hidden_dim, hidden_dim, num_relations, **(layer_options or {})),
                    _make_norm(norm, hidden_dim), dropout, residual)
@@ -53,20 +57,20 @@ class GNNStack(torch.nn.Module):
         )
 
     def forward(self, x: Tensor, edge_index: Tensor, edge_type: Tensor,
-                chars: Tensor | None = None) -> Tensor:
-        h = self.input_projection(self._node_inputs(x, chars))
+                chars: Tensor | None = None, crops: Tensor | None = None) -> Tensor:
+        h = self.input_projection(self._with_crops(self._node_inputs(x, chars), crops))
         for block in self.blocks:
             h = block(h, edge_index, edge_type)
         return self.head(h)
 
     @torch.no_grad()
     def predict_proba(self, x: Tensor, edge_index: Tensor, edge_type: Tensor,
-                      chars: Tensor | None = None) -> Tensor:
+                      chars: Tensor | None = None, crops: Tensor | None = None) -> Tensor:
         """Class probabilities in eval mode (no dropout, running norm statistics)."""
         was_training = self.training
         self.eval()
         try:
-            return torch.softmax(self(x, edge_index, edge_type, chars), dim=1)
+            return torch.softmax(self(x, edge_index, edge_type, chars, crops=crops), dim=1)
         finally:
             self.train(was_training)
 
@@ -85,6 +89,20 @@ class GNNStack(torch.nn.Module):
             raise ValueError(f"GNNStack: char_encoder returned shape {tuple(encoded.shape)}, "
                              f"expected ({x.shape[0]}, {self.char_dim}) (one row per node, char_dim)")
         return torch.cat([x, encoded], dim=1)
+
+
+    def _with_crops(self, inputs: Tensor, crops: Tensor | None) -> Tensor:
+        if self.crop_encoder is None:
+            if crops is not None:
+                raise ValueError("GNNStack: crops were given but the model has no crop_encoder")
+            return inputs
+        if crops is None:
+            raise ValueError("GNNStack: the model has a crop_encoder, so forward needs crops")
+        encoded = self.crop_encoder(crops)
+        if encoded.shape != (inputs.shape[0], self.crop_dim):
+            raise ValueError(f"GNNStack: crop_encoder returned shape {tuple(encoded.shape)}, "
+                             f"expected ({inputs.shape[0]}, {self.crop_dim}) (one row per node)")
+        return torch.cat([inputs, encoded], dim=1)
 
 
 def count_parameters(model: torch.nn.Module) -> int:
@@ -117,3 +135,12 @@ def _check_arguments(in_dim: int, num_classes: int, num_relations: int, hidden_d
                          f"(got char_encoder={type(char_encoder).__name__}, char_dim={char_dim})")
     if in_dim + char_dim == 0:
         raise ValueError("GNNStack: no inputs (in_dim = 0 and no char_encoder)")
+
+
+def _check_encoder(name: str, encoder: torch.nn.Module | None, dim: int) -> None:
+    if not isinstance(dim, int) or isinstance(dim, bool) or dim < 0:
+        raise ValueError(f"GNNStack: {name}_dim must be an int >= 0, got {dim!r}")
+    if (encoder is None) != (dim == 0):
+        raise ValueError(f"GNNStack: give {name}_encoder and {name}_dim > 0 together, or "
+                         f"neither (got {name}_encoder={type(encoder).__name__}, "
+                         f"{name}_dim={dim})")

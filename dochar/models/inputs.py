@@ -53,13 +53,16 @@ def to_graphs(page_set: PageSet, featurizer: WordFeaturizer, label_index: dict[s
                     num_nodes=len(page))
         if featurizer.uses_char_cnn:
             data.chars = torch.from_numpy(featurizer.char_ids(page))
+        if featurizer.uses_crop_cnn:
+            data.crops = torch.from_numpy(featurizer.crops(page))
         graphs.append(data)
     return graphs
 
 
 def to_matrix(page_set: PageSet, featurizer: WordFeaturizer, *, hash_features: int,
               neighbour_features: bool) -> np.ndarray:
-    """Per-word rows for a baseline; hashed n-grams stand in for the char CNN."""
+    """Per-word rows for a baseline; hashed n-grams stand in for the char CNN, the
+    ``page_image`` columns for the crop CNN (unless already among the features)."""
     from dochar.models.baselines import neighbour_aggregates
 
     blocks = []
@@ -67,6 +70,8 @@ def to_matrix(page_set: PageSet, featurizer: WordFeaturizer, *, hash_features: i
         parts = [featurizer.transform(page)]
         if featurizer.uses_char_cnn:
             parts.append(char_ngram_hashes(page.texts, n_features=hash_features))
+        if featurizer.uses_crop_cnn and "page_image" not in featurizer.groups:
+            parts.append(featurizer.image_features(page))
         dense = np.hstack(parts)
         if neighbour_features:
             dense = np.hstack([dense, neighbour_aggregates(dense, edges.edge_index,

@@ -41,7 +41,7 @@ import torch
 from dochar import graphs
 from dochar.data.word_table import Page, iter_pages
 from dochar.errors import DocharError
-from dochar.features import CHAR_VOCAB, CharCNNEncoder, WordFeaturizer
+from dochar.features import CHAR_VOCAB, CharCNNEncoder, CropCNNEncoder, WordFeaturizer
 from dochar.models.gnn import GNNStack
 from dochar.models.inputs import PageSet, to_graphs, to_matrix
 from dochar.models.training import predict_proba
@@ -118,15 +118,19 @@ def _architecture(model_cfg: Mapping[str, Any], features_cfg: Mapping[str, Any],
             "residual": bool(model_cfg["residual"]),
             "layer_options": dict(model_cfg.get("layer_options") or {}),
             "char_cnn": None if char_cnn is None else {
-                **char_cnn, "kernel_sizes": list(char_cnn["kernel_sizes"])}}
+                **char_cnn, "kernel_sizes": list(char_cnn["kernel_sizes"])},
+            **({"crop_cnn": dict(features_cfg["crop_cnn"])} if featurizer.uses_crop_cnn else {})}
 
 
 def _build_gnn(architecture: Mapping[str, Any]) -> GNNStack:
     arguments = dict(architecture)
     char_cnn = arguments.pop("char_cnn")
     encoder = CharCNNEncoder(**char_cnn) if char_cnn else None
+    crop_cnn = arguments.pop("crop_cnn", None)   # absent in models saved without one
+    crops = ({"crop_encoder": CropCNNEncoder(**crop_cnn), "crop_dim": int(crop_cnn["out_dim"])}
+             if crop_cnn else {})
     return GNNStack(**arguments, char_encoder=encoder,
-                    char_dim=int(char_cnn["out_dim"]) if char_cnn else 0)
+                    char_dim=int(char_cnn["out_dim"]) if char_cnn else 0, **crops)
 
 
 def _sha256(path: Path) -> str:

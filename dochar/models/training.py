@@ -49,13 +49,14 @@ def class_weights(graphs: Sequence[Data], num_classes: int, scheme: str) -> torc
 
 
 def forward(model: torch.nn.Module, batch: Data) -> torch.Tensor:
-    return model(batch.x, batch.edge_index, batch.edge_type, getattr(batch, "chars", None))
+    return model(batch.x, batch.edge_index, batch.edge_type, getattr(batch, "chars", None),
+                 crops=getattr(batch, "crops", None))
 
 
 def predict_batch(model: torch.nn.Module, batch: Batch) -> torch.Tensor:
     """Class probabilities of every word of a batch (the stack's eval-mode prediction)."""
     return model.predict_proba(batch.x, batch.edge_index, batch.edge_type,
-                               getattr(batch, "chars", None))
+                               getattr(batch, "chars", None), crops=getattr(batch, "crops", None))
 
 
 def predict_proba(model: torch.nn.Module, graphs: Sequence[Data]) -> list[np.ndarray]:
