@@ -79,3 +79,20 @@ def test_rendered_certificates_name_their_png_and_it_has_ink_under_the_words(tmp
     features = np.concatenate([PageImageReader(None)(page).features for page in pages])
     assert (features[:, PAGE_IMAGE_NAMES.index("ink_share")] > 0).mean() > 0.99
     assert features[:, PAGE_IMAGE_NAMES.index("page_image_missing")].sum() == 0
+
+
+def test_a_single_frame_image_is_its_pages_image_and_a_tiff_frame_is_not(tmp_path, monkeypatch):
+    """Tesseract is replaced by one fixed word, so the test needs no OCR engine."""
+    from PIL import Image
+
+    from dochar.data.importers import image as image_importer
+
+    monkeypatch.setattr(image_importer, "ocr_words",
+                        lambda picture, settings: [("Lead", 1.0, 1.0, 5.0, 5.0, 0.9)])
+    Image.new("L", (20, 10), 255).save(tmp_path / "scan.png")
+    frames = [Image.new("L", (20, 10), 255), Image.new("L", (20, 10), 0)]
+    frames[0].save(tmp_path / "stack.tif", save_all=True, append_images=frames[1:])
+    table, _ = import_sources([tmp_path / "scan.png", tmp_path / "stack.tif"], format="image")
+    images = table.groupby(["doc_id", "page"])["page_image"].first().to_dict()
+    assert images == {("scan", 1): str((tmp_path / "scan.png").resolve()),
+                      ("stack", 1): "", ("stack", 2): ""}
