@@ -15,7 +15,12 @@ from dochar.features.chars import (
     char_ids,
     char_ngram_hashes,
 )
-from dochar.features.featurizer import FEATURE_GROUPS, OPTIONAL_GROUPS, WordFeaturizer
+from dochar.features.featurizer import (
+    FEATURE_GROUPS,
+    IMAGE_GROUPS,
+    OPTIONAL_GROUPS,
+    WordFeaturizer,
+)
 from dochar.features.geometry import GEOMETRY_NAMES
 from dochar.features.lexicons import DEFAULT_LEXICONS
 from dochar.features.text_flags import TEXT_FLAG_NAMES
@@ -25,7 +30,8 @@ if TYPE_CHECKING:
     from dochar.features.crop_cnn import CropCNNEncoder
 
 __all__ = [
-    "CHAR_VOCAB", "CHAR_VOCAB_SIZE", "DEFAULT_LEXICONS", "FEATURE_GROUPS", "GEOMETRY_NAMES", "OPTIONAL_GROUPS",
+    "CHAR_VOCAB", "CHAR_VOCAB_SIZE", "DEFAULT_LEXICONS", "FEATURE_GROUPS", "GEOMETRY_NAMES",
+    "IMAGE_GROUPS", "OPTIONAL_GROUPS",
     "TEXT_FLAG_NAMES", "CharCNNEncoder", "CropCNNEncoder", "WordFeaturizer", "char_ids",
     "char_ngram_hashes",
 ]

@@ -36,8 +36,8 @@ from dochar.features.page_image import PAGE_IMAGE_NAMES, PageImageReader
 from dochar.features.text_embedding import EMBEDDING_DIM, TextEmbedder, default_cache_dir
 from dochar.features.text_flags import TEXT_FLAG_NAMES, text_flag_features
 
-FEATURE_GROUPS: tuple[str, ...] = ("geometry", "text_flags", "char_cnn", "page_image", "crop_cnn")
-IMAGE_GROUPS: tuple[str, ...] = ("page_image", "crop_cnn")   # read the page image
+FEATURE_GROUPS: tuple[str, ...] = ("geometry", "text_flags", "char_cnn")
+IMAGE_GROUPS: tuple[str, ...] = ("page_image", "crop_cnn")   # read the page image (page_image)
 OPTIONAL_GROUPS: tuple[str, ...] = ("text_embedding",)   # need an optional extra installed
 _MIN_STD = 1e-6
 
@@ -76,10 +76,11 @@ class WordFeaturizer:
                  image_cache: str | None = "default", strict_images: bool = False) -> None:
         if isinstance(groups, str):
             groups = (groups,)
-        unknown = [g for g in groups if g not in FEATURE_GROUPS + OPTIONAL_GROUPS]
+        known = FEATURE_GROUPS + IMAGE_GROUPS + OPTIONAL_GROUPS
+        unknown = [g for g in groups if g not in known]
         if unknown or not groups:
             raise ValueError(f"WordFeaturizer: unknown or no feature group(s) {unknown}; "
-                             f"choose from {list(FEATURE_GROUPS + OPTIONAL_GROUPS)}")
+                             f"choose from {list(known)}")
         if max_chars < 1:
             raise ValueError(f"WordFeaturizer: max_chars must be at least 1, got {max_chars}")
         self.groups = tuple(dict.fromkeys(groups))
