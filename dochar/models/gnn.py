@@ -39,9 +39,9 @@ class GNNStack(torch.nn.Module):
                  char_dim: int = 0, layer_options: dict | None = None,
                  crop_encoder: torch.nn.Module | None = None, crop_dim: int = 0) -> None:
         super().__init__()
-        _check_arguments(in_dim, num_classes, num_relations, hidden_dim, depth, dropout, norm,
-                         char_encoder, char_dim)
         _check_encoder("crop", crop_encoder, crop_dim)
+        _check_arguments(in_dim, num_classes, num_relations, hidden_dim, depth, dropout, norm,
+                         char_encoder, char_dim, crop_dim)
         self.in_dim, self.num_classes, self.char_dim = in_dim, num_classes, char_dim
         self.char_encoder = char_encoder
         self.crop_encoder, self.crop_dim = crop_encoder, crop_dim
@@ -120,7 +120,7 @@ def _make_norm(norm: str, dim: int) -> torch.nn.Module:
 
 def _check_arguments(in_dim: int, num_classes: int, num_relations: int, hidden_dim: int,
                      depth: int, dropout: float, norm: str, char_encoder: torch.nn.Module | None,
-                     char_dim: int) -> None:
+                     char_dim: int, crop_dim: int = 0) -> None:
     for name, value, low in (("in_dim", in_dim, 0), ("num_classes", num_classes, 1),
                              ("num_relations", num_relations, 1), ("hidden_dim", hidden_dim, 1),
                              ("depth", depth, 1), ("char_dim", char_dim, 0)):
@@ -133,8 +133,8 @@ def _check_arguments(in_dim: int, num_classes: int, num_relations: int, hidden_d
     if (char_encoder is None) != (char_dim == 0):
         raise ValueError("GNNStack: give char_encoder and char_dim > 0 together, or neither "
                          f"(got char_encoder={type(char_encoder).__name__}, char_dim={char_dim})")
-    if in_dim + char_dim == 0:
-        raise ValueError("GNNStack: no inputs (in_dim = 0 and no char_encoder)")
+    if in_dim + char_dim + crop_dim == 0:
+        raise ValueError("GNNStack: no inputs (in_dim = 0 and no char_encoder or crop_encoder)")
 
 
 def _check_encoder(name: str, encoder: torch.nn.Module | None, dim: int) -> None:
