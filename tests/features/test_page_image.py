@@ -116,13 +116,17 @@ def test_otsu_threshold_minimises_the_within_class_variance():
 
 
 def test_a_missing_image_gives_zeros_an_indicator_and_a_count(tmp_path):
+    (tmp_path / "text.png").write_text("not an image")
     featurizer = WordFeaturizer(groups=["geometry", "page_image"], image_cache=None)
-    pages = [_page(None), _page(str(tmp_path / "gone.png"))]
+    pages = [_page(None), _page(str(tmp_path / "gone.png")), _page(str(tmp_path / "text.png"))]
+    for index, page in enumerate(pages):
+        page.doc_id = f"coa-{index}"
     rows = [featurizer.fit(pages).transform(page) for page in pages]
     image_columns = [i for i, n in enumerate(featurizer.feature_names) if n.startswith("image:")]
     for row in rows:
         assert row[0, image_columns].tolist() == [0.0] * (len(PAGE_IMAGE_NAMES) - 1) + [1.0]
-    assert featurizer.missing_image_pages == 1     # both pages share the key coa-1#p1
+    assert featurizer.missing_image_pages == 3
+    assert "not readable" in featurizer.images.missing_pages["coa-2#p1"]
 
 
 def test_strict_mode_names_the_page_without_an_image(tmp_path):
