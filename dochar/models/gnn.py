@@ -58,7 +58,7 @@ class GNNStack(torch.nn.Module):
 
     def forward(self, x: Tensor, edge_index: Tensor, edge_type: Tensor,
                 chars: Tensor | None = None, crops: Tensor | None = None) -> Tensor:
-        h = self.input_projection(self._with_crops(self._node_inputs(x, chars), crops))
+        h = self.input_projection(self._node_inputs(x, chars, crops))
         for block in self.blocks:
             h = block(h, edge_index, edge_type)
         return self.head(h)
@@ -74,35 +74,29 @@ class GNNStack(torch.nn.Module):
         finally:
             self.train(was_training)
 
-    def _node_inputs(self, x: Tensor, chars: Tensor | None) -> Tensor:
+    def _node_inputs(self, x: Tensor, chars: Tensor | None,
+                     crops: Tensor | None = None) -> Tensor:
         if not isinstance(x, Tensor) or x.dim() != 2 or x.shape[1] != self.in_dim:
             shape = tuple(x.shape) if isinstance(x, Tensor) else type(x).__name__
             raise ValueError(f"GNNStack: x must have shape (nodes, {self.in_dim}), got {shape}")
-        if self.char_encoder is None:
-            if chars is not None:
-                raise ValueError("GNNStack: chars were given but the model has no char_encoder")
-            return x
-        if chars is None:
-            raise ValueError("GNNStack: the model has a char_encoder, so forward needs chars")
-        encoded = self.char_encoder(chars)
-        if encoded.shape != (x.shape[0], self.char_dim):
-            raise ValueError(f"GNNStack: char_encoder returned shape {tuple(encoded.shape)}, "
-                             f"expected ({x.shape[0]}, {self.char_dim}) (one row per node, char_dim)")
-        return torch.cat([x, encoded], dim=1)
-
-
-    def _with_crops(self, inputs: Tensor, crops: Tensor | None) -> Tensor:
-        if self.crop_encoder is None:
-            if crops is not None:
-                raise ValueError("GNNStack: crops were given but the model has no crop_encoder")
-            return inputs
-        if crops is None:
-            raise ValueError("GNNStack: the model has a crop_encoder, so forward needs crops")
-        encoded = self.crop_encoder(crops)
-        if encoded.shape != (inputs.shape[0], self.crop_dim):
-            raise ValueError(f"GNNStack: crop_encoder returned shape {tuple(encoded.shape)}, "
-                             f"expected ({inputs.shape[0]}, {self.crop_dim}) (one row per node)")
-        return torch.cat([inputs, encoded], dim=1)
+        parts = [x]
+        for name, encoder, values, dim in (("char", self.char_encoder, chars, self.char_dim),
+                                           ("crop", self.crop_encoder, crops, self.crop_dim)):
+            if encoder is None:
+                if values is not None:
+                    raise ValueError(f"GNNStack: {name}s were given but the model has no "
+                                     f"{name}_encoder")
+                continue
+            if values is None:
+                raise ValueError(f"GNNStack: the model has a {name}_encoder, so forward needs "
+                                 f"{name}s")
+            encoded = encoder(values)
+            if encoded.shape != (x.shape[0], dim):
+                raise ValueError(f"GNNStack: {name}_encoder returned shape "
+                                 f"{tuple(encoded.shape)}, expected ({x.shape[0]}, {dim}) "
+                                 f"(one row per node, {name}_dim)")
+            parts.append(encoded)
+        return torch.cat(parts, dim=1)
 
 
 def count_parameters(model: torch.nn.Module) -> int:
