@@ -7,8 +7,10 @@ the font's own metrics), which is where a PDF text extractor that takes a glyph 
 font size tall, starting at the descent below the baseline (pdfminer's convention), puts its top.
 
 Page images are the PDF rendered by pdfium at ``dpi``; their truth boxes are the word boxes in
-image pixels (``points * dpi / 72``). Optional scan noise: Gaussian blur, a small skew (the truth
-boxes become the axis-aligned hull of their rotated corners) and salt-and-pepper speckle.
+image pixels (``points * dpi / 72``) and their ``page_image`` names the PNG, relative to the
+folder of ``truth_images.parquet`` beside it. Optional scan noise: Gaussian blur, a small skew
+(the truth boxes become the axis-aligned hull of their rotated corners) and salt-and-pepper
+speckle.
 """
 
 from __future__ import annotations
@@ -143,6 +145,7 @@ def render_page_images(pdf_path: str | Path, document: pd.DataFrame, out_dir: st
             page = words.copy()
             page[["x0", "y0", "x1", "y1"]] = np.round(boxes, 2)
             page["page_width"], page["page_height"] = float(image.width), float(image.height)
+            page["page_image"] = name   # relative: resolved against the truth table's folder
             truth.append(page)
     finally:
         pdf.close()

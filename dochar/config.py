@@ -128,14 +128,22 @@ class CharCnnSchema:
 
 
 @dataclass
+class CropCnnSchema:
+    channels: int = 8
+    out_dim: int = 16
+
+
+@dataclass
 class FeaturesSchema:
     groups: List[str] = MISSING
     max_chars: int = 16
     char_cnn: CharCnnSchema = field(default_factory=CharCnnSchema)
+    crop_cnn: CropCnnSchema = field(default_factory=CropCnnSchema)
     hash_features: int = 256
     line_context: bool = False
     pool_words: List[str] = field(default_factory=list)
     embedding_cache: Optional[str] = None
+    image_cache: Optional[str] = None
 
 
 @dataclass

@@ -137,7 +137,8 @@ def run_experiment(cfg: DictConfig) -> tuple[RunBundle, FittedModel]:
         task_pages[part_of[task.graph_page(page).doc_id]].append(page)
     sets = {part: PageSet.build([task.graph_page(p) for p in task_pages[part]], builder,
                                 progress=progress, desc=f"graphs ({part})") for part in PARTS}
-    featurizer = WordFeaturizer.from_config(cfg.features, cfg.data).fit(sets["train"].pages)
+    featurizer = WordFeaturizer.from_config(cfg.features, cfg.data, strict=bool(cfg.strict)
+                                            ).fit(sets["train"].pages)
     inputs = FitInputs(sets, featurizer, labels, task, _candidates(task, task_pages, sets))
     torch.manual_seed(int(cfg.seed))
     fitted = fit_model(cfg, inputs)
@@ -155,6 +156,8 @@ def run_experiment(cfg: DictConfig) -> tuple[RunBundle, FittedModel]:
     metrics.update({f"data/{k}": float(v) for k, v in data.notes.items()})
     metrics.update(split.notes)
     metrics.update(fitted.notes)
+    if featurizer.images is not None:   # pages whose image features fell back to 0
+        metrics["data/page_images_missing"] = float(featurizer.missing_image_pages)
     if not split.leakage.empty:
         scores.tables["leakage"] = split.leakage
     scores.tables["documents"] = document_table(split.table, part_of)

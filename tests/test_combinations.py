@@ -31,6 +31,7 @@ from dochar.data.sources import load_data
 from dochar.data.word_table import iter_pages
 from dochar.experiment import run_experiment
 from dochar.features import FEATURE_GROUPS, WordFeaturizer
+from dochar.features.page_image import PAGE_IMAGE_NAMES, PageImageError
 from dochar.features.text_embedding import embedding_available
 from dochar.models.gnn import GNNStack, count_parameters
 from dochar.models.inputs import PageSet, to_graphs
@@ -146,6 +147,8 @@ def expected_baseline_width(cfg: DictConfig, relations: int) -> int:
     width = len(featurizer.feature_names)
     if featurizer.uses_char_cnn:
         width += int(cfg.features.hash_features)
+    if featurizer.uses_crop_cnn and "page_image" not in featurizer.groups:
+        width += len(PAGE_IMAGE_NAMES)     # the crop CNN's stand-in for a baseline
     return width * (1 + 2 * relations) if cfg.model.neighbour_features else width
 
 
@@ -190,6 +193,7 @@ def check_run(cfg: DictConfig, bundle, fitted) -> None:
                 assert conv.weight.shape[0] == bases
                 assert tuple(conv.comp.shape) == (relations, bases)
         assert (model.char_encoder is not None) == ("char_cnn" in cfg.features.groups)
+        assert (model.crop_encoder is not None) == ("crop_cnn" in cfg.features.groups)
     else:
         assert bundle.cost["parameters"] > 0
         assert model.n_features_in_ == expected_baseline_width(cfg, relations)
@@ -287,6 +291,16 @@ def test_optional_feature_sets_run(dataset, graph, model, features, request) -> 
     cfg = make_config(graph, model, features, dataset_overrides(dataset, request))
     bundle, fitted = run_experiment(cfg)
     check_run(cfg, bundle, fitted)
+    if set(cfg.features.groups) & {"page_image", "crop_cnn"}:
+        # FUNSD names a scan for every form; generated certificates have none, every page counts
+        missing = bundle.metrics["data/page_images_missing"]
+        assert missing == 0 if dataset == "funsd" else missing > 0
+
+
+def test_strict_mode_stops_at_a_page_without_image() -> None:
+    cfg = make_config("knn", "relational", "page_image", [*SYNTH, "strict=true"])
+    with pytest.raises(PageImageError, match=r"page coa-\d+#p1: page image missing"):
+        run_experiment(cfg)
 
 
 @pytest.mark.slow

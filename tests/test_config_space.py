@@ -4,9 +4,10 @@ something the code registers, and a wrong name fails early with a message that l
 Config groups mirror code modules: ``configs/graph/X.yaml`` names a builder in
 ``dochar.graphs.BUILDERS``, ``configs/model/X.yaml`` a layer in ``dochar.models.layers.LAYERS``
 or a baseline in ``dochar.models.baselines.BASELINES``, ``configs/features/X.yaml`` groups of
-``dochar.features.FEATURE_GROUPS`` (or ``OPTIONAL_GROUPS``, which need an extra),
-``configs/edges/X.yaml`` groups of ``dochar.graphs.transforms.EDGE_FEATURE_GROUPS``
-(dochar/graphs/transforms/edge_features.py). A variant file is named ``<registered name>_<variant>``.
+``dochar.features.FEATURE_GROUPS`` (or ``IMAGE_GROUPS``, which read page images, or
+``OPTIONAL_GROUPS``, which need an extra), ``configs/edges/X.yaml`` groups of
+``dochar.graphs.transforms.EDGE_FEATURE_GROUPS`` (dochar/graphs/transforms/edge_features.py).
+A variant file is named ``<registered name>_<variant>``.
 """
 
 from __future__ import annotations
@@ -26,8 +27,10 @@ from omegaconf import DictConfig, OmegaConf
 from dochar import graphs
 from dochar.features import (
     FEATURE_GROUPS,
+    IMAGE_GROUPS,
     OPTIONAL_GROUPS,
     CharCNNEncoder,
+    CropCNNEncoder,
     WordFeaturizer,
 )
 from dochar.features.text_embedding import embedding_available
@@ -161,12 +164,15 @@ def test_model_shape_keys_reach_the_network() -> None:
 @pytest.mark.parametrize("option", options("features"))
 def test_feature_config_names_registered_groups(option) -> None:
     features = composed(f"features={option}").features
-    assert features.groups and set(features.groups) <= set(FEATURE_GROUPS + OPTIONAL_GROUPS)
-    if set(features.groups) <= set(FEATURE_GROUPS) or embedding_available():
+    assert features.groups and set(features.groups) <= set(FEATURE_GROUPS + IMAGE_GROUPS
+                                                           + OPTIONAL_GROUPS)
+    if not set(features.groups) & set(OPTIONAL_GROUPS) or embedding_available():
         WordFeaturizer(groups=list(features.groups))
     encoder = CharCNNEncoder(**OmegaConf.to_container(features.char_cnn))
     chars = torch.zeros((3, int(features.max_chars)), dtype=torch.long)
     assert encoder(chars).shape == (3, features.char_cnn.out_dim)
+    crops = CropCNNEncoder(**OmegaConf.to_container(features.crop_cnn))
+    assert crops(torch.zeros((3, 16, 64), dtype=torch.uint8)).shape == (3, features.crop_cnn.out_dim)
 
 
 def test_every_combination_of_feature_groups_has_a_config() -> None:

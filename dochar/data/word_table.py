@@ -23,7 +23,8 @@ from dochar.errors import DocharError
 REQUIRED_COLUMNS: tuple[str, ...] = (
     "doc_id", "page", "word_id", "text", "x0", "y0", "x1", "y1", "page_width", "page_height",
 )
-OPTIONAL_COLUMNS: tuple[str, ...] = ("label", "entity_id", "layout_id", "split")
+OPTIONAL_COLUMNS: tuple[str, ...] = ("label", "entity_id", "layout_id", "split", "page_image")
+PAGE_IMAGE = "page_image"   # path of the page's image (or PDF); relative to the table's folder
 COORDINATE_COLUMNS: tuple[str, ...] = ("x0", "y0", "x1", "y1", "page_width", "page_height")
 BOX_TOLERANCE = 0.5  # page units a box may overhang the page edge (scanner rounding)
 LINE_OVERLAP = 0.5   # share of the smaller height two words must overlap by to share a line
@@ -108,7 +109,7 @@ def read_word_table(path: str | Path) -> pd.DataFrame:
                 header = next(csv.reader(handle, delimiter=sep), [])
             _check_header(path, header)
             text_columns = {c: "string" for c in ("doc_id", "text", "label", "entity_id",
-                                                   "layout_id", "split")}
+                                                   "layout_id", "split", PAGE_IMAGE)}
             frame = pd.read_csv(path, sep=sep, dtype=text_columns, keep_default_na=False,
                                 na_values={c: [""] for c in COORDINATE_COLUMNS})
     except WordTableError:
@@ -127,8 +128,18 @@ def read_word_table(path: str | Path) -> pd.DataFrame:
         if type(error).__module__.startswith("pyarrow"):
             raise WordTableError(f"{path}: not a readable Parquet file ({error})") from None
         raise
+    if PAGE_IMAGE in frame.columns:
+        frame[PAGE_IMAGE] = resolve_page_images(frame[PAGE_IMAGE], path.parent)
     frame.attrs["source"] = str(path)
     return frame
+
+
+def resolve_page_images(values: pd.Series, folder: Path) -> pd.Series:
+    """``page_image`` values with relative paths made absolute against ``folder`` (the word
+    table's own folder), so a table and its images move together; empty stays empty."""
+    values = values.astype("string").fillna("")
+    return values.map(lambda v: v if not v or Path(v).is_absolute() else str(folder / v)
+                      ).astype("string")
 
 
 TABLE_SUFFIXES = (".parquet", ".csv")   # what write_word_table writes (Parquet, else CSV)
@@ -225,6 +236,7 @@ def validate_word_table(frame: pd.DataFrame, labels: Sequence[str] | None = None
             flag(size > MAX_PAGE_SIZE, column,
                  lambda i, s=size: f"{s[i]:g} is larger than {MAX_PAGE_SIZE:.0e} page units")
         _check_page_sizes(frame, numbers, flag)
+        _check_page_images(frame, numbers["page"], flag)
         if repair == "clip":
             _clip_boxes(frame, numbers, bad_rows, clip_tolerance, repairs)
             x0, y0, x1, y1 = (numbers[c] for c in ("x0", "y0", "x1", "y1"))
@@ -283,6 +295,18 @@ def _check_page_sizes(frame: pd.DataFrame, numbers: dict[str, np.ndarray], flag)
             f"{column} {v[i]:g} differs from {f[i]:g} on an earlier row of this page"))
 
 
+def _check_page_images(frame: pd.DataFrame, pages: np.ndarray, flag) -> None:
+    """One ``page_image`` per page: every row of a page repeats its first row's value."""
+    if PAGE_IMAGE not in frame.columns:
+        return
+    values = frame[PAGE_IMAGE].astype("string").fillna("")
+    first = values.groupby([frame["doc_id"], pd.Series(pages)], dropna=False).transform("first")
+    differs = (values != first).to_numpy(dtype=bool)
+    flag(differs, PAGE_IMAGE, lambda i: (
+        f"page {pages[i]:g}: page_image {values[i]!r} differs from {first[i]!r} on an earlier "
+        f"row of this page (one image per page)"))
+
+
 def _clip_boxes(frame: pd.DataFrame, numbers: dict[str, np.ndarray], bad_rows: np.ndarray,
                 tolerance: float, repairs: Counter) -> None:
     """Clip boxes that overhang the page by no more than ``tolerance`` of its size (counted)."""
@@ -327,6 +351,7 @@ class Page:
     entity_ids: list[str] | None = None
     layout_id: str | None = None
     split: str | None = None
+    image: str | None = None      # the page image's path (``page_image``), None when unknown
 
     def __len__(self) -> int:
         return len(self.texts)
@@ -350,6 +375,7 @@ def iter_pages(table: pd.DataFrame) -> Iterator[Page]:
 
         layouts = column("layout_id")
         splits = column("split")
+        images = column(PAGE_IMAGE)
         yield Page(
             doc_id=str(doc_id), page=int(page_no),
             word_ids=words["word_id"].to_numpy(dtype=np.int64),
@@ -358,6 +384,7 @@ def iter_pages(table: pd.DataFrame) -> Iterator[Page]:
             width=float(words["page_width"].iloc[0]), height=float(words["page_height"].iloc[0]),
             labels=column("label"), entity_ids=column("entity_id"),
             layout_id=layouts[0] if layouts else None, split=splits[0] if splits else None,
+            image=(images[0] or None) if images else None,
         )
 
 

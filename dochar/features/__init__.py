@@ -1,7 +1,8 @@
 """Word features: geometry, text flags and lexicons as dense columns; characters for the char CNN;
-optionally a pretrained text embedding (the ``embed`` extra).
+optionally a pretrained text embedding (the ``embed`` extra); page-image crops and their
+features.
 
-``CharCNNEncoder`` is loaded on first use so baselines that never touch torch stay light.
+``CharCNNEncoder`` and ``CropCNNEncoder`` are loaded on first use so baselines that never touch torch stay light.
 """
 
 from __future__ import annotations
@@ -14,17 +15,25 @@ from dochar.features.chars import (
     char_ids,
     char_ngram_hashes,
 )
-from dochar.features.featurizer import FEATURE_GROUPS, OPTIONAL_GROUPS, WordFeaturizer
+from dochar.features.featurizer import (
+    FEATURE_GROUPS,
+    IMAGE_GROUPS,
+    OPTIONAL_GROUPS,
+    WordFeaturizer,
+)
 from dochar.features.geometry import GEOMETRY_NAMES
 from dochar.features.lexicons import DEFAULT_LEXICONS
 from dochar.features.text_flags import TEXT_FLAG_NAMES
 
 if TYPE_CHECKING:
     from dochar.features.char_cnn import CharCNNEncoder
+    from dochar.features.crop_cnn import CropCNNEncoder
 
 __all__ = [
-    "CHAR_VOCAB", "CHAR_VOCAB_SIZE", "DEFAULT_LEXICONS", "FEATURE_GROUPS", "GEOMETRY_NAMES", "OPTIONAL_GROUPS",
-    "TEXT_FLAG_NAMES", "CharCNNEncoder", "WordFeaturizer", "char_ids", "char_ngram_hashes",
+    "CHAR_VOCAB", "CHAR_VOCAB_SIZE", "DEFAULT_LEXICONS", "FEATURE_GROUPS", "GEOMETRY_NAMES",
+    "IMAGE_GROUPS", "OPTIONAL_GROUPS",
+    "TEXT_FLAG_NAMES", "CharCNNEncoder", "CropCNNEncoder", "WordFeaturizer", "char_ids",
+    "char_ngram_hashes",
 ]
 
 
@@ -33,4 +42,8 @@ def __getattr__(name: str):
         from dochar.features.char_cnn import CharCNNEncoder
 
         return CharCNNEncoder
+    if name == "CropCNNEncoder":
+        from dochar.features.crop_cnn import CropCNNEncoder
+
+        return CropCNNEncoder
     raise AttributeError(f"module 'dochar.features' has no attribute '{name}'")

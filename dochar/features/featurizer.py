@@ -6,7 +6,10 @@ the model encodes ``char_ids`` itself. The optional ``text_embedding`` group add
 sentence embedding of each word (:mod:`dochar.features.text_embedding`, the ``embed`` extra).
 Two options add context (:mod:`dochar.features.context`): ``line_context`` (the line a word
 sits in; with ``text_embedding`` also the embedding of that line's text) and ``pool_words``
-(a segment's mean / max over its words' rows). All scales are fixed, so fitting learns nothing unless
+(a segment's mean / max over its words' rows). ``page_image`` adds what each node's crop of the
+page image looks like (:mod:`dochar.features.page_image`: ink, stroke width, text height, ruling
+lines); ``crop_cnn``, like ``char_cnn``, adds no dense columns: the model encodes the node
+``crops`` itself (a baseline gets the ``page_image`` columns in its place). All scales are fixed, so fitting learns nothing unless
 ``standardize`` is set; then column means and standard deviations come from the pages given to
 ``fit`` (the training pages only), and constant columns are left unscaled.
 """
@@ -32,10 +35,12 @@ from dochar.features.context import (
 from dochar.features.geometry import GEOMETRY_NAMES, geometry_features
 from dochar.features.lexicons import compile_lexicons, lexicon_features
 from dochar.features.options import FeatureOptionError
-from dochar.features.text_embedding import EMBEDDING_DIM, TextEmbedder
+from dochar.features.page_image import PAGE_IMAGE_NAMES, PageImageReader
+from dochar.features.text_embedding import EMBEDDING_DIM, TextEmbedder, default_cache_dir
 from dochar.features.text_flags import TEXT_FLAG_NAMES, text_flag_features
 
 FEATURE_GROUPS: tuple[str, ...] = ("geometry", "text_flags", "char_cnn")
+IMAGE_GROUPS: tuple[str, ...] = ("page_image", "crop_cnn")   # read the page image (page_image)
 OPTIONAL_GROUPS: tuple[str, ...] = ("text_embedding",)   # need an optional extra installed
 _MIN_STD = 1e-6
 
@@ -66,11 +71,11 @@ def check_page(page: Page) -> None:
 
 def check_options(groups: Sequence[str], max_chars: int, pool_words: Sequence[str]) -> None:
     """The featurizer's own options, named by their config keys (no data needed)."""
-    unknown = [g for g in groups if g not in FEATURE_GROUPS + OPTIONAL_GROUPS]
+    known = FEATURE_GROUPS + IMAGE_GROUPS + OPTIONAL_GROUPS
+    unknown = [g for g in groups if g not in known]
     if unknown or not groups:
         raise FeatureOptionError(f"config key features.groups={list(groups)}: unknown or no "
-                                 f"feature group(s) {unknown}; choose from "
-                                 f"{list(FEATURE_GROUPS + OPTIONAL_GROUPS)}")
+                                 f"feature group(s) {unknown}; choose from {list(known)}")
     if max_chars < 1:
         raise FeatureOptionError(f"config key features.max_chars={max_chars}: must be at "
                                  f"least 1")
@@ -86,8 +91,8 @@ class WordFeaturizer:
     def __init__(self, groups: Sequence[str] = ("geometry", "text_flags"),
                  lexicons: Mapping[str, Sequence[str]] | None = None, max_chars: int = 16,
                  *, standardize: bool = False, line_context: bool = False,
-                 pool_words: Sequence[str] = (), embedding_cache: str | None = "default"
-                 ) -> None:
+                 pool_words: Sequence[str] = (), embedding_cache: str | None = "default",
+                 image_cache: str | None = "default", strict_images: bool = False) -> None:
         if isinstance(groups, str):
             groups = (groups,)
         check_options(groups, max_chars, pool_words)
@@ -95,6 +100,10 @@ class WordFeaturizer:
         self.embedding_cache = embedding_cache
         self.embedder = (TextEmbedder(embedding_cache) if "text_embedding" in self.groups
                          else None)
+        self.image_cache, self.strict_images = image_cache, bool(strict_images)
+        self.images = (PageImageReader(default_cache_dir() if image_cache == "default"
+                                       else image_cache, strict=strict_images)
+                       if set(IMAGE_GROUPS) & set(self.groups) else None)
         self.line_context = bool(line_context)
         self.pool_words = tuple(dict.fromkeys(pool_words))
         self.lexicons = compile_lexicons(lexicons)
@@ -108,8 +117,10 @@ class WordFeaturizer:
         self.fitted_ = False
 
     @classmethod
-    def from_config(cls, features_cfg: Mapping, data_cfg: Mapping) -> WordFeaturizer:
-        """The featurizer a ``features`` section asks for, with the data's word lists."""
+    def from_config(cls, features_cfg: Mapping, data_cfg: Mapping, *,
+                    strict: bool = False) -> WordFeaturizer:
+        """The featurizer a ``features`` section asks for, with the data's word lists;
+        ``strict``: a page without a readable image fails instead of being counted."""
         groups = list(features_cfg["groups"])
         lexicons = data_cfg.get("lexicons") if "text_flags" in groups else None
         cache = features_cfg.get("embedding_cache")
@@ -118,8 +129,9 @@ class WordFeaturizer:
                    max_chars=int(features_cfg["max_chars"]),
                    line_context=bool(features_cfg.get("line_context", False)),
                    pool_words=list(features_cfg.get("pool_words") or ()),
-                   embedding_cache="default" if cache is None else
-                   (None if str(cache) == "off" else str(cache)))
+                   embedding_cache=_cache_option(cache),
+                   image_cache=_cache_option(features_cfg.get("image_cache")),
+                   strict_images=strict)
 
     def get_params(self) -> dict[str, Any]:
         """The constructor's arguments as this featurizer holds them (scikit-learn's rule: one
@@ -145,6 +157,8 @@ class WordFeaturizer:
             names += [f"lexicon:{n}" for n in self.lexicons]
         if self.embedder is not None:
             names += [f"embedding:{i}" for i in range(EMBEDDING_DIM)]
+        if "page_image" in self.groups:
+            names += [f"image:{n}" for n in PAGE_IMAGE_NAMES]
         if self.line_context:
             names += [f"line:{n}" for n in LINE_CONTEXT_NAMES]
             if self.embedder is not None:
@@ -154,6 +168,15 @@ class WordFeaturizer:
     @property
     def uses_char_cnn(self) -> bool:
         return "char_cnn" in self.groups
+
+    @property
+    def uses_crop_cnn(self) -> bool:
+        return "crop_cnn" in self.groups
+
+    @property
+    def missing_image_pages(self) -> int:
+        """Pages whose image was missing or unreadable (their image columns are 0)."""
+        return 0 if self.images is None else len(self.images.missing_pages)
 
     def fit(self, pages: Sequence[Page]) -> WordFeaturizer:
         """Check the training pages; with ``standardize``, learn column means and scales."""
@@ -190,6 +213,16 @@ class WordFeaturizer:
         """(n_words, max_chars) int64 character ids for the char CNN."""
         return char_ids(page.texts, self.max_chars)
 
+    def crops(self, page: Page) -> np.ndarray:
+        """(n_nodes, *CROP_SIZE) uint8 crops of the page image for the crop CNN."""
+        check_page(page)
+        return self.images(page).crops
+
+    def image_features(self, page: Page) -> np.ndarray:
+        """The ``page_image`` columns of a page: a baseline's stand-in for the crop CNN."""
+        check_page(page)
+        return self.images(page).features
+
     def _raw(self, page: Page) -> np.ndarray:
         own = self._own(page)
         if not self.pool_words:
@@ -210,8 +243,15 @@ class WordFeaturizer:
             blocks.append(lexicon_features(page.texts, self.lexicons))
         if self.embedder is not None:
             blocks.append(self.embedder(page.texts))
+        if "page_image" in self.groups:
+            blocks.append(self.images(page).features)
         if self.line_context:
             blocks.append(line_context_features(page))
             if self.embedder is not None:
                 blocks.append(self.embedder(line_texts(page)))
         return np.concatenate(blocks, axis=1)
+
+
+def _cache_option(value: object) -> str | None:
+    """A cache option: null = the default folder, ``off`` = memory only, else a folder."""
+    return "default" if value is None else (None if str(value) == "off" else str(value))

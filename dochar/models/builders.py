@@ -14,7 +14,7 @@ import numpy as np
 import torch
 from omegaconf import DictConfig, OmegaConf
 
-from dochar.features import CharCNNEncoder, WordFeaturizer
+from dochar.features import CharCNNEncoder, CropCNNEncoder, WordFeaturizer
 from dochar.models.baselines import make_baseline, make_template
 from dochar.models.gnn import GNNStack
 from dochar.models.pairs import PairScorer
@@ -43,6 +43,7 @@ def gnn_arguments(cfg: Mapping[str, Any], featurizer: WordFeaturizer, task: Task
     return {"kind": "gnn", "stack": stack,
             "char_cnn": None if char_cnn is None else {
                 **char_cnn, "kernel_sizes": list(char_cnn["kernel_sizes"])},
+            "crop_cnn": _plain(cfg["features"]["crop_cnn"]) if featurizer.uses_crop_cnn else None,
             "pair_head": None if pair_head is None else {
                 "embedding_dim": int(task.embedding_dim), **pair_head}}
 
@@ -50,8 +51,11 @@ def gnn_arguments(cfg: Mapping[str, Any], featurizer: WordFeaturizer, task: Task
 def build_gnn(arguments: Mapping[str, Any]) -> torch.nn.Module:
     char_cnn = arguments["char_cnn"]
     encoder = CharCNNEncoder(**char_cnn) if char_cnn else None
+    crop_cnn = arguments.get("crop_cnn")
+    crops = ({"crop_encoder": CropCNNEncoder(**crop_cnn), "crop_dim": int(crop_cnn["out_dim"])}
+             if crop_cnn else {})
     stack = GNNStack(**arguments["stack"], char_encoder=encoder,
-                     char_dim=int(char_cnn["out_dim"]) if char_cnn else 0)
+                     char_dim=int(char_cnn["out_dim"]) if char_cnn else 0, **crops)
     head = arguments["pair_head"]
     if head is None:
         return stack

@@ -126,7 +126,10 @@ def _checkpoint(cfg: DictConfig, graphs: dict[str, list]) -> EpochCheckpoint | N
     inputs = inputs_digest(graphs["train"], graphs["val"])
     encoder = (OmegaConf.to_container(cfg.features.char_cnn, resolve=True)
                if "char_cnn" in cfg.features else {})
+    crops = (OmegaConf.to_container(cfg.features.crop_cnn, resolve=True)
+             if "crop_cnn" in cfg.features.groups else {})
     key = training_key({**OmegaConf.to_container(cfg.model, resolve=True), "char_cnn": encoder,
+                        **({"crop_cnn": crops} if crops else {}),
                         "task": OmegaConf.to_container(cfg.task, resolve=True)},
                        cfg.train, int(cfg.seed), inputs)
     return EpochCheckpoint(folder, key, inputs)

@@ -28,7 +28,8 @@ class _Block(torch.nn.Module):
 class GNNStack(torch.nn.Module):
     """Per-word classifier over a typed word graph; returns logits, callers apply the softmax.
 
-    ``[char_encoder(chars) ‖ x] → Linear → depth × block → Linear-ReLU-dropout-Linear``.
+    ``[x ‖ char_encoder(chars) ‖ crop_encoder(crops)] → Linear → depth × block →
+    Linear-ReLU-dropout-Linear``; each encoder is optional and trained with the stack.
     The input projection brings every feature set to ``hidden_dim`` so residual additions line up
     from the first block on, and the layer type is the only thing that changes between ablations.
     ``edge_dim`` continuous edge attributes per edge (0: none) are batch-normalised once (their
@@ -39,10 +40,12 @@ class GNNStack(torch.nn.Module):
     def __init__(self, in_dim: int, num_classes: int, num_relations: int, layer: str = "relational",
                  hidden_dim: int = 64, depth: int = 2, dropout: float = 0.2, norm: str = "batch",
                  residual: bool = True, char_encoder: torch.nn.Module | None = None,
-                 char_dim: int = 0, layer_options: dict | None = None, edge_dim: int = 0) -> None:
+                 char_dim: int = 0, layer_options: dict | None = None, edge_dim: int = 0,
+                 crop_encoder: torch.nn.Module | None = None, crop_dim: int = 0) -> None:
         super().__init__()
+        _check_encoder("crop", crop_encoder, crop_dim)
         _check_arguments(in_dim, num_classes, num_relations, hidden_dim, depth, dropout, norm,
-                         char_encoder, char_dim)
+                         char_encoder, char_dim, crop_dim)
         if "edge_dim" in (layer_options or {}):
             raise ValueError("GNNStack: edge_dim is set by the graphs' edge attributes, not by "
                              "layer_options")
@@ -50,7 +53,8 @@ class GNNStack(torch.nn.Module):
         self.edge_dim = edge_dim
         self.edge_norm = torch.nn.BatchNorm1d(edge_dim) if edge_dim else None
         self.char_encoder = char_encoder
-        self.input_projection = torch.nn.Linear(in_dim + char_dim, hidden_dim)
+        self.crop_encoder, self.crop_dim = crop_encoder, crop_dim
+        self.input_projection = torch.nn.Linear(in_dim + char_dim + crop_dim, hidden_dim)
         self.blocks = torch.nn.ModuleList(
             _Block(make_layer(layer, hidden_dim, hidden_dim, num_relations, edge_dim=edge_dim,
                               **(layer_options or {})),
@@ -63,8 +67,9 @@ class GNNStack(torch.nn.Module):
         )
 
     def forward(self, x: Tensor, edge_index: Tensor, edge_type: Tensor,
-                chars: Tensor | None = None, edge_attr: Tensor | None = None) -> Tensor:
-        h = self.input_projection(self._node_inputs(x, chars))
+                chars: Tensor | None = None, edge_attr: Tensor | None = None,
+                crops: Tensor | None = None) -> Tensor:
+        h = self.input_projection(self._node_inputs(x, chars, crops))
         if self.edge_norm is not None and edge_attr is not None and edge_attr.shape[0] > 0:
             edge_attr = self.edge_norm(edge_attr)
         for block in self.blocks:
@@ -73,30 +78,39 @@ class GNNStack(torch.nn.Module):
 
     @torch.no_grad()
     def predict_proba(self, x: Tensor, edge_index: Tensor, edge_type: Tensor,
-                      chars: Tensor | None = None, edge_attr: Tensor | None = None) -> Tensor:
+                      chars: Tensor | None = None, edge_attr: Tensor | None = None,
+                      crops: Tensor | None = None) -> Tensor:
         """Class probabilities in eval mode (no dropout, running norm statistics)."""
         was_training = self.training
         self.eval()
         try:
-            return torch.softmax(self(x, edge_index, edge_type, chars, edge_attr), dim=1)
+            return torch.softmax(self(x, edge_index, edge_type, chars, edge_attr, crops), dim=1)
         finally:
             self.train(was_training)
 
-    def _node_inputs(self, x: Tensor, chars: Tensor | None) -> Tensor:
+    def _node_inputs(self, x: Tensor, chars: Tensor | None,
+                     crops: Tensor | None = None) -> Tensor:
         if not isinstance(x, Tensor) or x.dim() != 2 or x.shape[1] != self.in_dim:
             shape = tuple(x.shape) if isinstance(x, Tensor) else type(x).__name__
             raise ValueError(f"GNNStack: x must have shape (nodes, {self.in_dim}), got {shape}")
-        if self.char_encoder is None:
-            if chars is not None:
-                raise ValueError("GNNStack: chars were given but the model has no char_encoder")
-            return x
-        if chars is None:
-            raise ValueError("GNNStack: the model has a char_encoder, so forward needs chars")
-        encoded = self.char_encoder(chars)
-        if encoded.shape != (x.shape[0], self.char_dim):
-            raise ValueError(f"GNNStack: char_encoder returned shape {tuple(encoded.shape)}, "
-                             f"expected ({x.shape[0]}, {self.char_dim}) (one row per node, char_dim)")
-        return torch.cat([x, encoded], dim=1)
+        parts = [x]
+        for name, encoder, values, dim in (("char", self.char_encoder, chars, self.char_dim),
+                                           ("crop", self.crop_encoder, crops, self.crop_dim)):
+            if encoder is None:
+                if values is not None:
+                    raise ValueError(f"GNNStack: {name}s were given but the model has no "
+                                     f"{name}_encoder")
+                continue
+            if values is None:
+                raise ValueError(f"GNNStack: the model has a {name}_encoder, so forward needs "
+                                 f"{name}s")
+            encoded = encoder(values)
+            if encoded.shape != (x.shape[0], dim):
+                raise ValueError(f"GNNStack: {name}_encoder returned shape "
+                                 f"{tuple(encoded.shape)}, expected ({x.shape[0]}, {dim}) "
+                                 f"(one row per node, {name}_dim)")
+            parts.append(encoded)
+        return torch.cat(parts, dim=1)
 
 
 def count_parameters(model: torch.nn.Module) -> int:
@@ -114,7 +128,7 @@ def _make_norm(norm: str, dim: int) -> torch.nn.Module:
 
 def _check_arguments(in_dim: int, num_classes: int, num_relations: int, hidden_dim: int,
                      depth: int, dropout: float, norm: str, char_encoder: torch.nn.Module | None,
-                     char_dim: int) -> None:
+                     char_dim: int, crop_dim: int = 0) -> None:
     for name, value, low in (("in_dim", in_dim, 0), ("num_classes", num_classes, 1),
                              ("num_relations", num_relations, 1), ("char_dim", char_dim, 0)):
         if not isinstance(value, int) or isinstance(value, bool) or value < low:
@@ -130,5 +144,14 @@ def _check_arguments(in_dim: int, num_classes: int, num_relations: int, hidden_d
     if (char_encoder is None) != (char_dim == 0):
         raise ValueError("GNNStack: give char_encoder and char_dim > 0 together, or neither "
                          f"(got char_encoder={type(char_encoder).__name__}, char_dim={char_dim})")
-    if in_dim + char_dim == 0:
-        raise ValueError("GNNStack: no inputs (in_dim = 0 and no char_encoder)")
+    if in_dim + char_dim + crop_dim == 0:
+        raise ValueError("GNNStack: no inputs (in_dim = 0 and no char_encoder or crop_encoder)")
+
+
+def _check_encoder(name: str, encoder: torch.nn.Module | None, dim: int) -> None:
+    if not isinstance(dim, int) or isinstance(dim, bool) or dim < 0:
+        raise ValueError(f"GNNStack: {name}_dim must be an int >= 0, got {dim!r}")
+    if (encoder is None) != (dim == 0):
+        raise ValueError(f"GNNStack: give {name}_encoder and {name}_dim > 0 together, or "
+                         f"neither (got {name}_encoder={type(encoder).__name__}, "
+                         f"{name}_dim={dim})")

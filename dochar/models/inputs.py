@@ -60,13 +60,16 @@ def to_graphs(page_set: PageSet, featurizer: WordFeaturizer,
         edge_attr = getattr(edges, "edge_attr", None)
         if edge_attr is not None:
             data.edge_attr = torch.from_numpy(np.asarray(edge_attr, dtype=np.float32))
+        if featurizer.uses_crop_cnn:
+            data.crops = torch.from_numpy(featurizer.crops(page))
         graphs.append(data)
     return graphs
 
 
 def to_matrix(page_set: PageSet, featurizer: WordFeaturizer, *, hash_features: int,
               neighbour_features: bool) -> np.ndarray:
-    """Per-word rows for a baseline; hashed n-grams stand in for the char CNN. With
+    """Per-word rows for a baseline; hashed n-grams stand in for the char CNN, the
+    ``page_image`` columns for the crop CNN (unless already among the features). With
     ``neighbour_features``, the neighbours' aggregates follow, then those of the incoming edge
     attributes when the edges carry any."""
     from dochar.models.baselines import edge_attr_aggregates, neighbour_aggregates
@@ -76,6 +79,8 @@ def to_matrix(page_set: PageSet, featurizer: WordFeaturizer, *, hash_features: i
         parts = [featurizer.transform(page)]
         if featurizer.uses_char_cnn:
             parts.append(char_ngram_hashes(page.texts, n_features=hash_features))
+        if featurizer.uses_crop_cnn and "page_image" not in featurizer.groups:
+            parts.append(featurizer.image_features(page))
         dense = np.hstack(parts)
         if neighbour_features:
             dense = np.hstack([dense, neighbour_aggregates(dense, edges.edge_index,

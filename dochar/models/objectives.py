@@ -44,9 +44,10 @@ def class_weights(graphs: Sequence[Data], num_classes: int, scheme: str) -> torc
 
 
 def node_inputs(batch: Data) -> tuple:
-    """The stack's inputs of a batch: features, edges, relation ids, char ids, edge attributes."""
+    """The stack's inputs of a batch: features, edges, relation ids, char ids, edge attributes,
+    page-image crops."""
     return (batch.x, batch.edge_index, batch.edge_type, getattr(batch, "chars", None),
-            getattr(batch, "edge_attr", None))
+            getattr(batch, "edge_attr", None), getattr(batch, "crops", None))
 
 
 class NodeClasses:

@@ -31,6 +31,7 @@ from dochar.graphs.candidates import (
 from dochar.features import WordFeaturizer
 from dochar.models.gnn import GNNStack
 from dochar.models.inputs import PageSet, to_matrix
+from dochar.models.objectives import node_inputs
 from dochar.tasks.links import LinkPage
 
 PAIR_GEOMETRY_NAMES: tuple[str, ...] = (
@@ -101,8 +102,7 @@ class PairScorer(torch.nn.Module):
             torch.nn.Linear(hidden_dim, 1))
 
     def forward(self, batch: Data) -> torch.Tensor:
-        h = self.encoder(batch.x, batch.edge_index, batch.edge_type,
-                         getattr(batch, "chars", None), getattr(batch, "edge_attr", None))
+        h = self.encoder(*node_inputs(batch))
         hs, ht = h[batch.pair_index[0]], h[batch.pair_index[1]]
         return self.head(torch.cat([hs, ht, hs * ht, batch.pair_geometry], dim=1)).squeeze(-1)
 

@@ -53,7 +53,7 @@ def segment_page(page: Page, keys: Sequence[str], labels: Sequence[str] | None) 
                        boxes=boxes, width=page.width, height=page.height,
                        labels=None if labels is None else list(labels),
                        entity_ids=list(groups), layout_id=page.layout_id, split=page.split,
-                       words=page, members=members)
+                       image=page.image, words=page, members=members)
 
 
 @dataclass(frozen=True)

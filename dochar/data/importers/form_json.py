@@ -9,7 +9,9 @@ get a documented repair rather than a crash or a silent drop, and both are count
 - boxes given corner-first the wrong way round (``x1 < x0``): corners swapped;
 - boxes reaching past the page image: clipped to the page.
 
-Without the scanned image beside the annotations, the page size is the extent of the boxes.
+The scan beside the annotations (``../images/<name>.png``) gives the page size and the
+``page_image`` column (an absolute path); without it the page size is the extent of the boxes
+and ``page_image`` stays empty.
 
 Links: each entity's ``linking`` lists pairs ``[id_a, id_b]`` of entity ids, the same pair on
 both entities and in no fixed order. A pair becomes one directed row of the links table
@@ -58,10 +60,15 @@ def _box(word: object) -> tuple[float, float, float, float] | None:
     return values if all(math.isfinite(v) for v in values) else None  # type: ignore[return-value]
 
 
-def _page_size(annotation: Path, boxes: list[tuple[float, ...]],
-               report: ImportSummary) -> tuple[float, float]:
+def page_image(annotation: Path) -> Path | None:
+    """The scan beside an annotation file (FUNSD's ``../images/<name>.png``), if present."""
     image = annotation.parent.parent / "images" / f"{annotation.stem}.png"
-    if image.exists():
+    return image.resolve() if image.is_file() else None
+
+
+def _page_size(image: Path | None, boxes: list[tuple[float, ...]],
+               report: ImportSummary) -> tuple[float, float]:
+    if image is not None:
         try:
             return png_size(image)
         except (WordTableError, OSError) as error:
@@ -109,7 +116,8 @@ def read_form_file(path: Path, report: ImportSummary, *, split: str = "",
         report.problem(path, f"cannot read the file ({error}); file skipped")
         return []
     words = _words(path, form, report)
-    width, height = _page_size(path, [box for *_, box in words], report)
+    image = page_image(path)
+    width, height = _page_size(image, [box for *_, box in words], report)
     rows: list[dict] = []
     for index, entity, word, (x0, y0, x1, y1) in words:
         report.words_read += 1
@@ -132,7 +140,7 @@ def read_form_file(path: Path, report: ImportSummary, *, split: str = "",
                      "y1": clipped[3], "page_width": float(width),
                      "page_height": float(height), "label": str(entity.get("label", "")),
                      "entity_id": f"e{entity.get('id', index)}", "layout_id": "",
-                     "split": split})
+                     "split": split, "page_image": "" if image is None else str(image)})
     report.files += 1
     report.pages += 1
     report.words_kept += len(rows)

@@ -3,7 +3,8 @@
 Boxes are in image pixels, origin top-left; the page size is the image size. Every frame of a
 multi-frame image (TIFF) is a page. A file named ``NAME_page<N>.<ext>`` is page N of document
 NAME (its later frames N+1, ...), so the pages of one document rendered as separate images come back together. Word
-confidence (Tesseract's 0-100) is kept as ``confidence`` on a 0-1 scale.
+confidence (Tesseract's 0-100) is kept as ``confidence`` on a 0-1 scale. A single-frame image
+is its page's ``page_image`` (absolute path); frames of a multi-frame file get none.
 """
 
 from __future__ import annotations
@@ -91,6 +92,7 @@ def read_image(path: Path, doc_id: str, summary: ImportSummary,
     rows: list[dict] = []
     with opened:
         summary.files += 1
+        single = getattr(opened, "n_frames", 1) == 1   # a frame of a TIFF has no path of its own
         for index, frame in enumerate(ImageSequence.Iterator(opened)):
             page_no = (named_page or 1) + index
             try:
@@ -103,5 +105,7 @@ def read_image(path: Path, doc_id: str, summary: ImportSummary,
             page = PageWords(summary, path, doc_id, page_no, float(picture.width),
                              float(picture.height))
             add_ocr_words(page, picture, settings)
+            for row in page.rows:
+                row["page_image"] = str(path.resolve()) if single else ""
             rows += page.rows
     return rows

@@ -7,6 +7,8 @@ baseline (pdfminer's convention), and a word is a run of glyphs on one line whos
 
 A page with no text layer (a scan saved as PDF) is listed in the summary; with ``ocr=True`` it
 is rendered at ``OCR_DPI`` by pdfium and read by Tesseract, and its boxes come back in points.
+Every page's ``page_image`` is the PDF itself (absolute path): the page-image features render
+page ``page`` of it with pdfium when they need pixels.
 """
 
 from __future__ import annotations
@@ -71,5 +73,7 @@ def read_pdf(path: Path, doc_id: str, summary: ImportSummary, *, ocr: bool = Fal
                          word["x1"] - left, word["bottom"] - top,
                          element=f"word {word['text']!r} at ({word['x0']:.1f}, "
                                  f"{word['top']:.1f})")
+            for row in page.rows:
+                row["page_image"] = str(path.resolve())   # rendered on use (page_image.py)
             rows += page.rows
     return rows
