@@ -25,7 +25,7 @@ DOCUMENTS = (r"(?P<documents>[\d,]+) test documents?(?: of (?P<families>\d+) lay
 PLAIN = re.compile(rf"(?P<clause>.+), on {DOCUMENTS}\.(?P<rest>.*)")
 SIDED = re.compile(rf"On the {DOCUMENTS}, (?P<clause>.+?)\. (?P<rest>(?:On the|Over all) .*)")
 OVERALL = re.compile(r"Over all (?P<documents>[\d,]+) test documents?, (?P<clause>.+?)\."
-                     r"(?P<rest>.*)")
+                     r"(?P<rest>(?: [A-Z].*)?)")
 SYSTEMS = {"decision_tree": "decision tree", "random_forest": "random forest",
            "relational": "R-GCN", "layout_template": "per-layout templates",
            "logistic_regression": "logistic regression"}
