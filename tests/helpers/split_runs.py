@@ -59,6 +59,25 @@ def protocol_runs(split: str, folder: Path) -> list[RunBundle]:
     return bundles
 
 
+DEMO_MODELS = {"relational": ["model=relational", "model.hidden_dim=16", "model.depth=1",
+                              "train.max_epochs=3", "train.patience=3"],
+               **MODELS}
+
+
+def demo_runs() -> list[RunBundle]:
+    """What `make demo` runs (R-GCN, random forest, per-layout templates on seen and unseen
+    layouts), on few documents and epochs."""
+    from hydra import compose, initialize_config_dir
+
+    from dochar.config import CONFIG_DIR
+    from dochar.experiment import run_experiment
+
+    with initialize_config_dir(str(CONFIG_DIR), version_base=None):
+        return [run_experiment(compose("config", overrides=[
+            *QUICK, f"data.documents={DOCUMENTS}", *SPLITS["seen_and_unseen_layouts"],
+            *model]))[0] for model in DEMO_MODELS.values()]
+
+
 def expected_sides(bundle: RunBundle) -> pd.DataFrame:
     """Each test document's family and side, worked out from the run's own split table
     (``documents``: part and layout of every document): a test family is seen when some
