@@ -77,12 +77,12 @@ SYSTEM_WORDS = {"relational": "R-GCN", "attention": "GATv2", "gcn": "GCN",
                 "random_forest": "random forest", "gradient_boosting": "gradient boosting",
                 "logistic_regression": "logistic regression", "decision_tree": "decision tree",
                 "layout_template": "per-layout templates"}
-# What a run's recorded size (cost ``parameters``) counts, by model kind or estimator.
+# What a run's recorded size (cost ``parameters``) counts, by estimator, else by model kind.
 SIZE_UNITS = {"gnn": "network weights", "random_forest": "tree nodes",
               "gradient_boosting": "tree nodes", "decision_tree": "tree nodes",
               "logistic_regression": "coefficients", "layout_template": "template words",
               "template": "template words"}
-OTHER_SIZE = "size (as recorded)"
+OTHER_SIZE = "as recorded"
 
 
 def system_words(bundle: RunBundle) -> str:
@@ -99,8 +99,6 @@ def described(bundle: RunBundle, name: str) -> str:
 
 def size_unit(bundle: RunBundle) -> str:
     """What the run's size counts: network weights, tree nodes, template words, ..."""
-    if bundle.tags.get("model_kind") == "gnn":
-        return SIZE_UNITS["gnn"]
     return SIZE_UNITS.get(bundle.tags.get("model", ""),
                           SIZE_UNITS.get(bundle.tags.get("model_kind", ""), OTHER_SIZE))
 
