@@ -42,10 +42,21 @@ for _name in ("mlflow", "alembic"):
 # user's run: nothing the user can act on, so they are kept out of the console.
 @contextlib.contextmanager
 def quiet_library() -> Iterator[None]:
-    """Library warnings silenced for one block of MLflow logging calls."""
-    with warnings.catch_warnings():
+    """Library warnings silenced for one block of MLflow logging calls.
+
+    Filters alone do not hold: some MLflow calls set their own ("once") inside; so the warnings
+    of these kinds that get through are dropped where they would be shown.
+    """
+    with warnings.catch_warnings():   # restores the filters and showwarning afterwards
         warnings.simplefilter("ignore", UserWarning)
         warnings.simplefilter("ignore", FutureWarning)
+        shown = warnings.showwarning
+
+        def show(message, category, *args, **kwargs):
+            if not issubclass(category, (UserWarning, FutureWarning)):
+                shown(message, category, *args, **kwargs)
+
+        warnings.showwarning = show
         yield
 
 
