@@ -323,8 +323,10 @@ def check_config(cfg: Any) -> None:
         for key in node.keys():
             name = f"{prefix}{key}"
             if fields is not None and key not in fields:
-                raise DocharError(f"config key {name}: unknown; {schema.__name__} has "
-                                  f"{sorted(fields)}")
+                group = prefix.rstrip(".") or "the top level"
+                close = did_you_mean(str(key), fields).replace("mean ", f"mean {prefix}")
+                raise DocharError(f"config key {name}: unknown{close}; {group} takes "
+                                  f"{', '.join(sorted(fields))}")
             if fields is None or fields[key].type not in ("Dict[str, Any]", "Any"):
                 walk(node._get_node(key), f"{name}.")
 
