@@ -347,7 +347,7 @@ OWN_PARSERS = {"import": "dochar.data.import_command", "predict": "dochar.predic
 def main(argv: list[str] | None = None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
     if argv and argv[0] in HYDRA_JOBS and {"-h", "--help"} & set(argv[1:]):
-        from dochar.run_help import help_text
+        from dochar.runs.run_help import help_text
 
         print(help_text(argv[0]), end="")
         return 0
