@@ -55,8 +55,9 @@ def help_text(command: str, config_dir: Path = CONFIG_DIR) -> str:
     """The help page of a config-driven command."""
     chosen = defaults(config_dir)
     lines = [f"usage: dochar {command} [-m] [GROUP=CHOICE | KEY=VALUE ...]", "",
-             textwrap.fill(WHAT[command], WIDTH), "", "config groups (GROUP=CHOICE; * marks the default; +GROUP adds "
-             "a group that is off by default):"]
+             textwrap.fill(WHAT[command], WIDTH), "",
+             "config groups (GROUP=CHOICE; * marks the default; +GROUP adds a group that is off "
+             "by default):"]
     for group, names in choices(config_dir).items():
         marked = [f"{name}*" if chosen.get(group) == name else name for name in names]
         label = group if group in chosen else f"+{group}"
