@@ -23,10 +23,11 @@ import importlib
 import logging
 import os
 import sys
+import time
 from pathlib import Path
 
 from dochar.config import CONFIG_DIR, config_error_message
-from dochar.errors import DocharError
+from dochar.errors import DocharError, SuggestingParser
 
 log = logging.getLogger("dochar")
 _SUBCOMMAND = ["run"]  # the Hydra-driven subcommand being run, for the recorded command line
@@ -68,8 +69,10 @@ def _one_line(error: BaseException, limit: int) -> str:
     return " ".join(str(error).split())[:limit]
 
 
-def _finish(cfg, bundle, model) -> float:
-    """Write the run folder, log it, print its line: the same for every kind of job."""
+def _finish(cfg, bundle, model, started: float | None = None) -> float:
+    """Write the run folder, log it, print its line: the same for every kind of job.
+
+    ``started`` is when the job's work began (``time.time()``): the run's start in MLflow."""
     from hydra.core.hydra_config import HydraConfig
 
     from dochar.report.run_folder import write_run_files
@@ -85,7 +88,8 @@ def _finish(cfg, bundle, model) -> float:
     uri = resolve_uri(cfg.tracking.uri)
     if cfg.tracking.enabled:
         try:
-            log_run(bundle, folder, uri=uri, experiment=str(cfg.tracking.experiment))
+            log_run(bundle, folder, uri=uri, experiment=str(cfg.tracking.experiment),
+                    started=started)
         except Exception as error:  # the store went away during the run: say so, keep the folder
             bundle.save(folder)
             reason = _one_line(error, 300)
@@ -99,6 +103,7 @@ def _finish(cfg, bundle, model) -> float:
         console.print(seen_unseen_table([bundle]))
     if cfg.tracking.enabled and not in_sweep():
         console.print(ui_hint(uri, str(cfg.tracking.experiment)))
+    console.print(f"run folder: {folder.resolve()}", soft_wrap=True)
     return validation_score(bundle)   # what sweepers optimise: never a test score
 
 
@@ -108,19 +113,21 @@ def _run_job(cfg) -> float:
     from dochar.experiment import run_experiment
     from dochar.runs.sweep import skip_if_finished
 
+    started = time.time()
     _check_tracking(cfg)
     done = skip_if_finished(cfg, lambda: table_fingerprint(
         load_data(cfg.data, strict=bool(cfg.strict)).table))
     if done is not None:
         return done
     bundle, model = run_experiment(cfg)
-    return _finish(cfg, bundle, model)
+    return _finish(cfg, bundle, model, started)
 
 
 def _curve_job(cfg) -> float:
     """Learning curve of one system; logged as its full-data run plus curve/<n>/<score>."""
     from dochar.curve import curve_metrics, run_learning_curve
 
+    started = time.time()
     _check_tracking(cfg)
     full: list = []
 
@@ -142,7 +149,7 @@ def _curve_job(cfg) -> float:
           .to_string(index=False))
     bundle.metrics.update(curve_metrics(frame))
     bundle.tables["learning_curve"] = frame.set_index("system")
-    return _finish(cfg, bundle, model)
+    return _finish(cfg, bundle, model, started)
 
 
 def _graph_stats_job(cfg) -> None:
@@ -292,12 +299,14 @@ def _runs(args: argparse.Namespace) -> int:
 def _parser() -> argparse.ArgumentParser:
     from dochar.runs.tracking import resolve_uri
 
-    parser = argparse.ArgumentParser(prog="dochar", description=__doc__,
+    parser = SuggestingParser(prog="dochar", description=__doc__,
                                      formatter_class=argparse.RawDescriptionHelpFormatter)
     commands = parser.add_subparsers(dest="command", required=True)
     for name in ("run", "curve", "graph-stats"):
-        commands.add_parser(name, help="Hydra overrides follow", add_help=False)
-    commands.add_parser("gate", help="CI regression gate (dochar gate --help)", add_help=False)
+        commands.add_parser(name, help=f"config choices follow (dochar {name} --help)",
+                            add_help=False)
+    for name, what in OWN_PARSERS_HELP.items():
+        commands.add_parser(name, help=f"{what} (dochar {name} --help)", add_help=False)
 
     def tracked(sub: argparse.ArgumentParser, score: bool = True) -> None:
         sub.add_argument("--experiment", help="MLflow experiment name")
@@ -331,13 +340,21 @@ def _parser() -> argparse.ArgumentParser:
 
 
 HYDRA_JOBS = {"run": _run_job, "curve": _curve_job, "graph-stats": _graph_stats_job}
-# commands with their own argument parser: name -> module holding main(argv)
+# commands with their own argument parser: name -> module holding main(argv), and its line
+OWN_PARSERS_HELP = {"gate": "CI regression gate", "import": "documents -> word table",
+                    "predict": "a saved model labels new documents",
+                    "tracking-server": "shared MLflow server"}
 OWN_PARSERS = {"import": "dochar.data.import_command", "predict": "dochar.predict",
                "gate": "dochar.gate.command", "tracking-server": "dochar.runs.server"}
 
 
 def main(argv: list[str] | None = None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
+    if argv and argv[0] in HYDRA_JOBS and {"-h", "--help"} & set(argv[1:]):
+        from dochar.runs.run_help import help_text
+
+        print(help_text(argv[0]), end="")
+        return 0
     if argv and argv[0] in HYDRA_JOBS:
         return _hydra_command(HYDRA_JOBS[argv[0]], argv)
     try:

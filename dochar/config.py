@@ -17,12 +17,16 @@ data loads.
 
 from __future__ import annotations
 
+import dataclasses
 import os
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Dict, List, Optional
 
 from omegaconf import MISSING
+
+from dochar.errors import did_you_mean
 
 _PACKAGED = Path(__file__).resolve().parent / "configs"
 _CHECKOUT = Path(__file__).resolve().parents[1] / "configs"
@@ -212,7 +216,7 @@ class TrainSchema:
 @dataclass
 class TrackingSchema:
     enabled: bool = True
-    experiment: str = "dochar-demo"
+    experiment: str = "my-runs"
     uri: Optional[str] = None
     skip_finished: bool = True
 
@@ -282,6 +286,11 @@ def register_schemas() -> None:
         store.store(group=group, name=name, node=schema)
 
 
+INTERNAL_SCHEMA = "base_"   # the schemas registered in each group: not choices for a user
+_UNKNOWN_CHOICE = re.compile(r"Could not find '([^'/]+)/([^']+)'.*Available options in "
+                             r"'[^']+': (.*)$")
+
+
 def config_error_message(error: BaseException) -> str:
     """One line for a Hydra or OmegaConf config error: the key, the value, what was expected."""
     from omegaconf.errors import OmegaConfBaseException
@@ -290,25 +299,36 @@ def config_error_message(error: BaseException) -> str:
     while cause is not None and not isinstance(cause, OmegaConfBaseException):
         cause = cause.__cause__ or cause.__context__
     if cause is None:
-        text = " ".join(str(error).split())
-        return text.split(" Config search path:")[0]
+        text = " ".join(str(error).split()).split(" Config search path:")[0]
+        choice = _UNKNOWN_CHOICE.search(text)
+        if choice is None:
+            return text
+        group, name, listed = choice.groups()
+        options = [o for o in listed.split() if not o.startswith(INTERNAL_SCHEMA)]
+        return (f"config {group}={name}: no such choice{did_you_mean(name, options)}; "
+                f"{group} choices: {', '.join(options)}")
     key = getattr(cause, "full_key", None)
     value = getattr(cause, "value", None)
-    schema = getattr(cause, "object_type_str", None)
     message = str(getattr(cause, "msg", None) or cause).strip().splitlines()[0]
     where = f"config key {key}" if key else "config"
     if value is not None and key:
         where += f"={value!r}"
-    expected = f" (schema {schema})" if schema and schema != "None" else ""
-    return f"{where}: {message}{expected}"
+    schema = getattr(cause, "object_type", None)
+    if key and dataclasses.is_dataclass(schema) and " not in " in message:
+        # an unknown key: name the keys of its group, not the schema class behind them
+        group, _, name = key.rpartition(".")
+        names = [f.name for f in dataclasses.fields(schema)]
+        close = did_you_mean(name, names).replace("did you mean ",
+                                                  f"did you mean {group + '.' if group else ''}")
+        return (f"{where}: unknown key{close}; {group or 'the top level'} takes "
+                f"{', '.join(sorted(names))}")
+    return f"{where}: {message}"
 
 
 def check_schema(cfg: Any) -> None:
     """What composition lets through: keys forced in with ``+key=`` that no schema names, a
     model kind that does not fit its model file, an unknown ``data.repair``. Raises DocharError
     naming the key."""
-    import dataclasses
-
     from omegaconf import DictConfig, OmegaConf
 
     from dochar.errors import DocharError
@@ -322,8 +342,10 @@ def check_schema(cfg: Any) -> None:
         for key in node.keys():
             name = f"{prefix}{key}"
             if fields is not None and key not in fields:
-                raise DocharError(f"config key {name}: unknown; {schema.__name__} has "
-                                  f"{sorted(fields)}")
+                group = prefix.rstrip(".") or "the top level"
+                close = did_you_mean(str(key), fields).replace("mean ", f"mean {prefix}")
+                raise DocharError(f"config key {name}: unknown{close}; {group} takes "
+                                  f"{', '.join(sorted(fields))}")
             if fields is None or fields[key].type not in ("Dict[str, Any]", "Any"):
                 walk(node._get_node(key), f"{name}.")
 

@@ -25,7 +25,7 @@ from dochar.models.inputs import PageSet
 from dochar.models.pairs import PageCandidates, page_candidates
 from dochar.models.training import seed_everything
 from dochar.runs.bundle import RunBundle
-from dochar.runs.frames import edge_frame, pair_frame, prediction_frame
+from dochar.runs.frames import edge_frame, pages_to_draw, pair_frame, prediction_frame
 from dochar.splits import PARTS, split_run
 
 log = logging.getLogger(__name__)
@@ -173,6 +173,7 @@ def run_experiment(cfg: DictConfig) -> tuple[RunBundle, FittedModel]:
     bundle = RunBundle(name=run_name(cfg), labels=labels, metrics=metrics,
                        predictions=predictions,
                        config=OmegaConf.to_container(cfg, resolve=True), cost=fitted.cost,
-                       tags=tags, edges=edge_frame(sets["test"], int(cfg.overlay_pages)),
+                       tags=tags, edges=edge_frame(sets["test"],
+                                        pages_to_draw(predictions, int(cfg.overlay_pages))),
                        tables=scores.tables)
     return bundle, fitted

@@ -43,7 +43,7 @@ from dochar.data.word_table import (
     validate_word_table,
     write_word_table,
 )
-from dochar.errors import DocharError
+from dochar.errors import DocharError, SuggestingParser
 from dochar.metrics.entities import entity_tables, reading_order
 from dochar.metrics.words import score_words
 from dochar.models.saved import SavedModel, SavedModelError, load_model
@@ -58,7 +58,7 @@ SHOWN = 5   # unknown-label words listed by location before "... and N more"
 
 
 def _parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
+    parser = SuggestingParser(
         prog="dochar predict", description="Label the words of new documents with a trained "
         "model; write per-word labels and per-document fields.")
     parser.add_argument("--model", required=True, metavar="RUN",

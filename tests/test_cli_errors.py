@@ -28,11 +28,11 @@ def run(capsys, monkeypatch, tmp_path, *argv: str) -> tuple[int, str]:
      "to Float"),
     ("data.documents=abc", "config key data.documents='abc'"),
     ("train.optimizer=sgd", "config key train.optimizer"),            # removed: nothing read it
-    ("+train.optimizer=sgd", "config key train.optimizer: unknown; TrainSchema has"),
+    ("+train.optimizer=sgd", "config key train.optimizer: unknown; train takes"),
     ("+data.colour=red", "config key data.colour: unknown"),
     ("model.hidden_dim=wide", "config key model.hidden_dim='wide'"),
     ("graph.self_loops=maybe", "config key graph.self_loops='maybe'"),
-    ("model=no_such_model", "Could not find 'model/no_such_model'"),
+    ("model=no_such_model", "config model=no_such_model: no such choice; model choices: "),
     ("model.kind=baseline", "config key model.kind='baseline': this model file is a 'gnn'"),
     ("data.repair=cut", "config key data.repair='cut': expected null or 'clip'"),
 ])

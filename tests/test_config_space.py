@@ -225,4 +225,4 @@ def test_command_line_refuses_an_unknown_option_by_group() -> None:
                           cwd=REPO, capture_output=True, text=True, timeout=120)
     assert done.returncode != 0
     message = done.stdout + done.stderr
-    assert "graph/hexagon" in message and "sector" in message and "Traceback" not in message
+    assert "graph=hexagon" in message and "sector" in message and "Traceback" not in message

@@ -11,6 +11,7 @@ import sys
 from collections.abc import Sequence
 from pathlib import Path
 
+from dochar.errors import SuggestingParser
 from dochar.data.importers import FORMATS, import_sources
 from dochar.data.importers.image import OcrSettings
 from dochar.data.importers.label_transfer import MATCHING, TransferSettings
@@ -19,7 +20,7 @@ from dochar.data.word_table import (WordTableError, table_name_problem, validate
 
 
 def _parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
+    parser = SuggestingParser(
         prog="dochar import",
         description="Read PDFs, hOCR, ALTO, page images or form JSON into a word table.")
     parser.add_argument("sources", nargs="+", type=Path, metavar="SRC",

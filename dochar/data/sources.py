@@ -56,7 +56,7 @@ def _load_raw(data_cfg: Mapping[str, Any], progress: bool
         count = int(data_cfg["documents"])
         documents = list(tqdm(iter_documents_with_links(
             count, seed=int(data_cfg.get("generator_seed", 0)), noise=noise), total=count,
-            desc="generating", leave=False, disable=not progress))
+            desc="generating", leave=False, disable=None if progress else True))
         frame = pd.concat([words for words, _ in documents], ignore_index=True)
         frame.attrs["source"] = f"synthetic certificates (seed {data_cfg.get('generator_seed', 0)})"
         links = pd.concat([links for _, links in documents], ignore_index=True)

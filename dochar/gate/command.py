@@ -37,6 +37,7 @@ from typing import Any
 from omegaconf import OmegaConf
 from omegaconf.errors import OmegaConfBaseException
 
+from dochar.errors import SuggestingParser
 from dochar.config import CONFIG_DIR
 from dochar.errors import DocharError
 from dochar.gate.baseline import (
@@ -244,7 +245,7 @@ def gate(settings: GateSettings, bundle: RunBundle, baseline: Baseline) -> GateO
 
 
 def _parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(prog="dochar gate", description=__doc__,
+    parser = SuggestingParser(prog="dochar gate", description=__doc__,
                                      formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.add_argument("--config", default="reference",
                         help="gate config: a name in configs/gate/ or a YAML file")

@@ -32,7 +32,9 @@ class PageSet:
     def build(cls, pages: Sequence[Page], builder: GraphBuilder, *, progress: bool = False,
               desc: str = "graphs") -> PageSet:
         pages = list(pages)
-        edges = [builder(page) for page in tqdm(pages, desc=desc, disable=not progress,
+        # disable=None: tqdm draws the bar only when its stream is a terminal
+        edges = [builder(page) for page in tqdm(pages, desc=desc,
+                                                disable=None if progress else True,
                                                 leave=False)]
         return cls(pages, edges, tuple(builder.relations),
                    tuple(getattr(builder, "edge_attr_names", ())))

@@ -86,7 +86,7 @@ def train(model: torch.nn.Module, train_graphs: Sequence[Data], val_graphs: Sequ
     if checkpoint is not None:
         first, best_state = checkpoint.restore(model, optimizer, generator, history, best_state)
     epochs = tqdm(range(first, int(cfg["max_epochs"]) + 1), desc="epochs", leave=False,
-                  disable=not cfg.get("progress", True))
+                  disable=None if cfg.get("progress", True) else True)
     for epoch in epochs:
         model.train()
         total = 0.0

@@ -20,9 +20,9 @@ from dochar.report.overlay import OVERLAY_STYLE, class_style, overlays
 from dochar.report.page import (Html, contents, details, document, facts, image, note, number,
                                 paragraph, preformatted, section, table)
 from dochar.report.summaries import (ReportInputError, calibration_bins, check_bundle,
-                                     class_order, confusion_rows, display_names, has_layouts,
-                                     layout_scores, learning_curve, metric, ranking, reliability,
-                                     score_words)
+                                     class_order, confusion_rows, display_names, document_sides,
+                                     has_layouts, layout_scores, learning_curve, metric, ranking,
+                                     reliability, score_words)
 from dochar.report.verdict import provenance, verdict
 from dochar.report.seen_unseen import seen_unseen_sections
 from dochar.runs.bundle import RunBundle
@@ -68,7 +68,7 @@ def write_report(bundles: Sequence[RunBundle], out_path: str | Path, *,
     chapters = [
         ("leaderboard", f"Runs ranked by {words}",
          leaderboard(bundles, names, order, score, pairing)),
-        *seen_unseen_sections(bundles, names, order),
+        *seen_unseen_sections(bundles, names, order, pairing),
         ("per-class", "Word F1 per class and run", _per_class(bundles, names, order, labels)),
         ("confusion", "Which classes the top runs confuse", _confusion(bundles, names, order)),
         ("per-layout", "Word macro-F1 per layout family", _per_layout(bundles, names, order)),
@@ -125,7 +125,8 @@ def _per_class(bundles, names, order, labels) -> list[Html]:
         return [note("No run has per-class scores (metrics f1/<class>).")]
     return [image(plots.f1_heatmap([names[i] for i in order], labels, values),
                   "F1 per class and run"),
-            note("Blank cells: the run has no score for that class. Dark cells are low scores.")]
+            note("The darker a cell, the higher the F1 (as in the confusion matrices below). "
+                 "Blank cells: the run has no score for that class.")]
 
 
 def _confusion(bundles, names, order) -> list[Html]:
@@ -140,13 +141,18 @@ def _per_layout(bundles, names, order) -> list[Html]:
     if not chosen:
         return [note("Not shown: the test words carry no layout ids.")]
     scores = layout_scores([bundles[i] for i in chosen], [names[i] for i in chosen])
+    docs = document_sides(bundles[chosen[0]])
+    side_of = docs[docs["layout_id"] != ""].groupby("layout_id")["side"].first()
     runs = list(scores.columns[1:])
-    rows = [[layout, f"{int(row['words']):,}", *(number(row[r]) for r in runs)]
-            for layout, row in scores.iterrows()]
-    parts = [Html('<div class="scroll">'),
-             table(["layout family", "test words", *runs], rows, numeric=range(1, len(runs) + 2),
-                   nowrap=[0], table_id="layout-table"),
-             Html("</div>"), note("Word macro-F1 over the classes present in each layout.")]
+    rows = [[layout, side_of.get(layout, "") or "–", f"{int(row['words']):,}",
+             *(number(row[r]) for r in runs)] for layout, row in scores.iterrows()]
+    parts = [table(["layout family", "in training", "test words", *runs], rows,
+                   numeric=range(2, len(runs) + 3), nowrap=[0],
+                   wrap_headers=range(3, len(runs) + 3), table_id="layout-table",
+                   row_classes=["unseen" if row[1] == "unseen" else "" for row in rows]),
+             note("Word macro-F1 over the classes present in each layout. In training: "
+                  "'unseen' families were held out of training whole (shaded), 'seen' ones "
+                  "have training documents.")]
     skipped = [names[i] for i in order if i not in chosen]
     if skipped:
         parts.append(note(f"Runs without layout ids: {', '.join(skipped)}."))

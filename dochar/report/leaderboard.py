@@ -7,8 +7,11 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from dochar.report.page import Html, amount, count, interval, note, number, table
-from dochar.report.summaries import ReportInputError, class_order, metric, score_words
+from dochar.report.summaries import (ReportInputError, class_order, document_sides, metric,
+                                     score_words, size_unit, system_words)
 from dochar.runs.bundle import RunBundle
+from dochar.runs.numbers import p_value
+from dochar.splits.protocols import SIDES
 
 PairedFn = Callable[[Any, Any], Any]
 REFERENCE_MODEL = "random_forest"   # default of `dochar report --reference-model`
@@ -49,11 +52,6 @@ def default_paired(bundles: Sequence[RunBundle]) -> tuple[PairedFn | None, str]:
                     "two-sided p-value.")
 
 
-def p_value(value: float) -> str:
-    value = float(value)
-    return "< 0.001" if 0 <= value < 0.0005 else number(value)
-
-
 def _cost(bundle: RunBundle, key: str) -> float | None:
     value = bundle.cost.get(key)
     return None if value is None else float(value)
@@ -72,6 +70,9 @@ class Pairing:
     note: str
     measure: str = "word macro-F1"
     failures: dict[int, str] = field(default_factory=dict)
+    # the same comparison on each side's test documents: side -> run -> result (only when the
+    # reference's test set holds both seen and unseen layout families)
+    sides: dict[str, dict[int, Any]] = field(default_factory=dict)
 
 
 def pair_with_reference(bundles: Sequence[RunBundle], reference: int | None,
@@ -87,6 +88,14 @@ def pair_with_reference(bundles: Sequence[RunBundle], reference: int | None,
             pairing.results[i] = paired(bundle.predictions, bundles[reference].predictions)
         except ValueError as error:   # e.g. the two runs were tested on different documents
             pairing.failures[i] = str(error)
+    sides = document_sides(bundles[reference])["side"]
+    if all((sides == side).any() for side in SIDES):
+        for side in SIDES:
+            documents = set(sides.index[sides == side])
+            pairing.sides[side] = {
+                i: paired(*(frame[frame["doc_id"].astype(str).isin(documents)] for frame in
+                            (bundles[i].predictions, bundles[reference].predictions)))
+                for i in pairing.results}
     return pairing
 
 
@@ -105,15 +114,20 @@ def leaderboard(bundles: Sequence[RunBundle], names: Sequence[str], order: Seque
     """The table (best run first) and the notes that explain or qualify it."""
     show_paired = pairing.results is not None
     words = score_words(score)
-    headers = ["#", "run", "model", words, "95% interval", "entity F1"]
-    titles = [f"rank by {words}", "", "tags: model", "test score used for ranking",
-              f"from metrics {score}_low / {score}_high", "entity-level F1"]
+    headers = ["#", "run", "system", words, "95% interval", "entity F1"]
+    titles = [f"rank by {words}", "the run's name: its exact configuration", "tags: model",
+              "test score used for ranking", f"from metrics {score}_low / {score}_high",
+              "entity-level F1"]
     if show_paired:
         headers += ["vs reference", "95% interval", "p"]
         titles += [f"this run minus the reference run, {pairing.measure}, same test documents",
                    "of the difference", "two-sided p-value for no difference"]
-    headers += ["train (s)", "pages/s", "parameters"]
-    titles += ["training wall-clock seconds", "test pages per second", "as recorded by the run"]
+    headers += ["training time (s)", "speed (test pages/s)"]
+    titles += ["training wall-clock seconds", "test pages labelled per second"]
+    units = list(dict.fromkeys(size_unit(bundles[i]) for i in order
+                               if _cost(bundles[i], "parameters") is not None))
+    headers += [f"size ({unit})" for unit in units]
+    titles += [f"what the fitted model holds, counted in {unit}" for unit in units]
     tuned = any(TUNING_BUDGET in bundle.tags for bundle in bundles)
     if tuned:
         headers.append("tuning budget")
@@ -122,13 +136,14 @@ def leaderboard(bundles: Sequence[RunBundle], names: Sequence[str], order: Seque
     rows, classes = [], []
     for rank, i in enumerate(order, start=1):
         bundle = bundles[i]
-        row = [str(rank), names[i], bundle.tags.get("model", ""), number(metric(bundle, score)),
+        row = [str(rank), names[i], system_words(bundle), number(metric(bundle, score)),
                interval(metric(bundle, f"{score}_low"), metric(bundle, f"{score}_high")),
                number(metric(bundle, "entity_f1"))]
         if show_paired:
             row += _paired_cells(pairing, i)
-        row += [amount(_cost(bundle, "train_seconds")), amount(_cost(bundle, "pages_per_second")),
-                count(_cost(bundle, "parameters"))]
+        row += [amount(_cost(bundle, "train_seconds")), amount(_cost(bundle, "pages_per_second"))]
+        row += [count(_cost(bundle, "parameters")) if size_unit(bundle) == unit else ""
+                for unit in units]
         if tuned:
             budget = bundle.tags.get(TUNING_BUDGET)
             row.append(f"{budget} trials" if budget else "not tuned")
@@ -137,7 +152,7 @@ def leaderboard(bundles: Sequence[RunBundle], names: Sequence[str], order: Seque
                                                 ("reference", i == pairing.reference)) if on))
     numeric = [0, 3, 4, 5, *range(6, len(headers))]
     parts = [Html('<div class="scroll">'),
-             table(headers, rows, numeric=numeric, nowrap=[1, 2], table_id="leaderboard-table",
+             table(headers, rows, numeric=numeric, wrap=[1], table_id="leaderboard-table",
                    row_classes=classes, titles=titles),
              Html("</div>")]
     if show_paired:

@@ -13,6 +13,7 @@ import pandas as pd
 
 from dochar.report.page import Html, esc, note, number, table
 from dochar.runs.bundle import RunBundle
+from dochar.runs.frames import pages_to_draw
 
 SVG_WIDTH = 520
 ERROR_ROWS = 40
@@ -72,17 +73,6 @@ def legend(labels: Sequence[str], relations: Sequence[str] = ()) -> Html:
                      f'{EDGE_COLOURS[i % len(EDGE_COLOURS)]};height:3px"></i>'
                      f"edge: {esc(relation)}</span>")
     return Html(f'<div class="legend">{"".join(items)}</div>')
-
-
-def choose_pages(predictions: pd.DataFrame, n_pages: int) -> list[tuple[str, int]]:
-    """Pages with the most wrong words first; ties broken by document id, then page."""
-    frame = predictions.assign(_wrong=predictions["label"].astype(str)
-                               != predictions["predicted"].astype(str),
-                               _doc=predictions["doc_id"].astype(str))
-    wrong = frame.groupby(["_doc", "page"])["_wrong"].sum().reset_index()
-    wrong = wrong.sort_values(["_wrong", "_doc", "page"], ascending=[False, True, True],
-                              kind="stable")
-    return [(str(d), int(p)) for d, p in zip(wrong["_doc"], wrong["page"])][:max(n_pages, 0)]
 
 
 def _page_size(words: pd.DataFrame) -> tuple[float, float]:
@@ -176,7 +166,7 @@ def overlays(bundle: RunBundle, labels: Sequence[str], n_pages: int) -> list[Htm
             relations = sorted(edges["relation"].astype(str).unique())
     blocks += [hatch_patterns(len(labels)), legend(labels, relations)]
     doc_ids = predictions["doc_id"].astype(str)
-    for doc_id, page in choose_pages(predictions, n_pages):
+    for doc_id, page in pages_to_draw(predictions, n_pages):
         words = predictions[(doc_ids == doc_id) & (predictions["page"] == page)]
         words = words.sort_values("word_id", kind="stable")
         page_edges = None

@@ -47,19 +47,33 @@ def count(value: float | None) -> str:
     return f"{int(round(float(value))):,}"
 
 
-def _cell(value: object) -> str:
+BREAKS = ("/", "+", ",")   # a long run name may wrap after these
+
+
+def breakable(value: object) -> str:
+    """Escaped text that may wrap after a slash, plus or comma (``<wbr>``), so a
+    long run name takes several lines instead of widening its table past the page."""
+    text = esc(value)
+    for mark in BREAKS:
+        text = text.replace(mark, mark + "<wbr>")
+    return text
+
+
+def _cell(value: object, wrap: bool = False) -> str:
     if isinstance(value, Html):
         return value.markup
     if value is None:
         return "–"
-    return esc(value)
+    return breakable(value) if wrap else esc(value)
 
 
 def table(headers: Sequence[str], rows: Iterable[Sequence[object]], *, numeric: Iterable[int] = (),
           nowrap: Iterable[int] = (), table_id: str | None = None,
-          row_classes: Sequence[str] | None = None, titles: Sequence[str] | None = None) -> Html:
-    """A plain table; ``numeric`` columns are right-aligned, ``nowrap`` columns never wrap."""
-    numeric, nowrap = set(numeric), set(nowrap)
+          row_classes: Sequence[str] | None = None, titles: Sequence[str] | None = None,
+          wrap: Iterable[int] = (), wrap_headers: Iterable[int] = ()) -> Html:
+    """A plain table; ``numeric`` columns are right-aligned, ``nowrap`` columns never wrap,
+    ``wrap`` columns (and ``wrap_headers`` headings) may wrap inside long names."""
+    numeric, nowrap, wrap, wrap_headers = set(numeric), set(nowrap), set(wrap), set(wrap_headers)
 
     def css(i: int) -> str:
         return " class=num" if i in numeric else " class=name" if i in nowrap else ""
@@ -68,11 +82,11 @@ def table(headers: Sequence[str], rows: Iterable[Sequence[object]], *, numeric: 
     head_cells = []
     for i, heading in enumerate(headers):
         hover = f' title="{esc(header_titles[i])}"' if header_titles[i] else ""
-        head_cells.append(f"<th{css(i)}{hover}>{esc(heading)}</th>")
+        head_cells.append(f"<th{css(i)}{hover}>{_cell(heading, i in wrap_headers)}</th>")
     body = []
     for r, row in enumerate(rows):
         row_css = f' class="{esc(row_classes[r])}"' if row_classes and row_classes[r] else ""
-        cells = "".join(f"<td{css(i)}>{_cell(v)}</td>" for i, v in enumerate(row))
+        cells = "".join(f"<td{css(i)}>{_cell(v, i in wrap)}</td>" for i, v in enumerate(row))
         body.append(f"<tr{row_css}>{cells}</tr>")
     id_attr = f' id="{esc(table_id)}"' if table_id else ""
     return Html(f"<table{id_attr}><thead><tr>{''.join(head_cells)}</tr></thead>"
@@ -157,7 +171,7 @@ table{border-collapse:collapse;margin:8px 0;font:13.5px/1.45 "Source Sans 3","No
 "DejaVu Sans",Verdana,sans-serif;font-variant-numeric:tabular-nums lining-nums}
 th,td{padding:5px 8px;text-align:left;vertical-align:top}
 thead th{border-bottom:2px solid var(--ink);font-weight:700;vertical-align:bottom;
-white-space:nowrap}
+overflow-wrap:normal;hyphens:manual}
 tbody td{border-bottom:1px solid var(--tint)}
 td.name{white-space:nowrap}
 td.num,th.num{text-align:right}
@@ -165,6 +179,7 @@ td.num{white-space:nowrap}
 tr.best td{background:var(--best)}
 tr.best td:first-child{box-shadow:inset 4px 0 var(--mark);font-weight:700}
 tr.reference td{background:var(--reference)}
+tr.unseen td{background:var(--tint)}
 img{max-width:100%;height:auto;display:block;margin:8px 0}
 pre{background:var(--tint);padding:10px 12px;overflow:auto;border-radius:3px;
 font:12.5px/1.45 "DejaVu Sans Mono","Liberation Mono",Menlo,Consolas,monospace}

@@ -7,7 +7,9 @@ soon as its bytes are taken. DPI stays at or below 100 to keep the page small.
 Colours are chosen for colour-blind readers: heatmaps use cividis, a colormap made to be
 perceptually uniform and read alike by people with and without red-green colour-vision
 deficiency (Nuñez, Anderton & Renslow, PLoS ONE 13(7): e0199239, 2018); line series use the
-Okabe & Ito palette ("Color Universal Design", 2008) and differ in marker shape too.
+Okabe & Ito palette ("Color Universal Design", 2008) and differ in marker shape too. Every
+heatmap reads the same way: the darker a cell, the higher its value (F1, or the share of a
+true class), so dark is better on the F1 map and on a confusion matrix's diagonal.
 """
 
 from __future__ import annotations
@@ -28,6 +30,7 @@ DPI = 100
 NAME_LIMIT = 42
 INK, SOFT, RULE = "#1b2631", "#4f5d6b", "#b8c4cc"       # the page's colours (page.STYLE)
 MISSING = "#ffffff"                                     # cells without a value stay blank
+HEATMAP = "cividis_r"                                   # dark = high, on every heatmap
 OKABE_ITO = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#000000",
              "#F0E442")
 MARKERS = ("o", "s", "^", "D", "v", "P", "X", "*")
@@ -73,16 +76,17 @@ def _cell_text(axes, values: np.ndarray, cmap_name: str) -> None:
 
 
 def f1_heatmap(runs: Sequence[str], labels: Sequence[str], values: np.ndarray) -> str:
-    """Runs (rows) by classes (columns) in cividis; a class a run has no score for stays blank."""
+    """Runs (rows) by classes (columns), darker the higher the F1; a class a run has no score
+    for stays blank."""
     width = min(16.0, max(6.0, 0.62 * len(labels) + 3.0))
     height = max(2.2, 0.42 * len(runs) + 1.6)
     with rc_context(FIGURE_STYLE):
         figure = Figure(figsize=(width, height))
         axes = figure.add_subplot()
         axes.set_facecolor(MISSING)
-        shown = axes.imshow(np.ma.masked_invalid(values), cmap="cividis", vmin=0, vmax=1,
+        shown = axes.imshow(np.ma.masked_invalid(values), cmap=HEATMAP, vmin=0, vmax=1,
                             aspect="auto")
-        _cell_text(axes, values, "cividis")
+        _cell_text(axes, values, HEATMAP)
         axes.set_xticks(range(len(labels)), [plain(x, 24) for x in labels], rotation=40,
                         ha="right", fontsize=9)
         axes.set_yticks(range(len(runs)), [plain(r) for r in runs], fontsize=9)
@@ -97,7 +101,7 @@ def confusion_panels(panels: Sequence[tuple[str, Sequence[str], np.ndarray]], *,
     cell the more words; cells with no words stay blank."""
     n_labels = max(len(labels) for _, labels, _ in panels)
     side = min(7.5, max(3.6, 0.42 * n_labels + 1.8))
-    cmap = "cividis_r"
+    cmap = HEATMAP
     with rc_context(FIGURE_STYLE):
         figure = Figure(figsize=(side * len(panels) + 0.6, side))
         axes_list = figure.subplots(1, len(panels), squeeze=False)[0]

@@ -13,11 +13,14 @@ from collections.abc import Sequence
 
 from matplotlib.figure import Figure
 
+from dochar.report.leaderboard import Pairing
 from dochar.report.page import Html, image, interval, note, number, paragraph, table
 from dochar.report.plots import plain, to_data_uri
+from dochar.report.summaries import document_sides
 from dochar.runs.bundle import RunBundle
+from dochar.runs.numbers import p_value
 
-SIDES = ("seen", "unseen")
+SIDES = ("unseen", "seen")   # the question a layout-held-out test asks comes first
 _PER_LAYOUT = re.compile(r"curve_per_layout/(\d+(?:\.\d+)?)/(seen|unseen)/macro_f1")
 
 
@@ -40,6 +43,29 @@ def _side_rows(bundles: Sequence[RunBundle], names: Sequence[str], order: Sequen
             f"{int(m.get(f'{side}/test_documents', 0)):,}", _cell(bundles[i], f"{side}/macro_f1"),
             _cell(bundles[i], f"{side}/entity_f1"))), gap])
     return rows
+
+
+def _paired_rows(names: Sequence[str], order: Sequence[int], pairing: Pairing
+                 ) -> list[list[str]]:
+    rows = []
+    for i in order:
+        if i == pairing.reference:
+            continue
+        cells = []
+        for side in SIDES:
+            result = pairing.sides[side].get(i)
+            cells += (["–", "", ""] if result is None else
+                      [f"{float(result.difference):+.3f}", interval(result.low, result.high),
+                       p_value(result.p_value)])
+        rows.append([names[i], *cells])
+    return rows
+
+
+def _families(bundles: Sequence[RunBundle], order: Sequence[int]) -> str:
+    docs = document_sides(bundles[order[0]])
+    counts = [f"{docs.loc[docs['side'] == side, 'layout_id'].nunique()} {side}"
+              for side in SIDES if (docs["side"] == side).any()]
+    return f" Layout families in the test set: {' and '.join(counts)}." if counts else ""
 
 
 def _template_note(bundles: Sequence[RunBundle], names: Sequence[str], order: Sequence[int]
@@ -90,20 +116,31 @@ def _curves(bundles: Sequence[RunBundle], names: Sequence[str], order: Sequence[
 
 
 def seen_unseen_sections(bundles: Sequence[RunBundle], names: Sequence[str],
-                         order: Sequence[int]) -> list[tuple[str, str, list[Html]]]:
+                         order: Sequence[int], pairing: Pairing | None = None
+                         ) -> list[tuple[str, str, list[Html]]]:
     """The chapter (id, heading, parts), or nothing when no run scored test documents by side."""
     chosen = [i for i in order if any(f"{side}/macro_f1" in bundles[i].metrics
                                       for side in SIDES)]
     if not chosen:
         return []
-    parts = [paragraph("Test documents whose layout family has training documents (seen) and "
-                       "whose family was held out whole (unseen). Intervals are 95% bootstrap "
-                       "intervals over each side's own documents."),
-             table(["run", "seen docs", "seen macro-F1", "seen entity F1", "unseen docs",
-                    "unseen macro-F1", "unseen entity F1", "gap (macro-F1)"],
-                   _side_rows(bundles, names, chosen), numeric=range(1, 8), nowrap=[0],
+    parts = [paragraph("Test documents whose layout family was held out of training whole "
+                       "(unseen) and whose family has training documents (seen). Intervals "
+                       "are 95% bootstrap intervals over each side's own documents."
+                       + _families(bundles, chosen)),
+             table(["run", *(f"{side} {what}" for side in SIDES
+                             for what in ("docs", "macro-F1", "entity F1")),
+                    "gap (seen − unseen macro-F1)"],
+                   _side_rows(bundles, names, chosen), numeric=range(1, 8), wrap=[0],
                    table_id="seen-unseen-table"),
              *_template_note(bundles, names, chosen)]
+    if pairing is not None and pairing.sides:
+        parts += [Html("<h3>Difference to the reference on each side</h3>"),
+                  table(["run", *(f"{side} {what}" for side in SIDES
+                                  for what in ("vs reference", "95% interval", "p"))],
+                        _paired_rows(names, chosen, pairing), numeric=range(1, 7), wrap=[0],
+                        table_id="seen-unseen-paired-table"),
+                  note(f"{pairing.measure} of the run minus the reference run's on the same "
+                       f"documents of each side; the opening paragraph quotes these.")]
     curves = _curves(bundles, names, order)
     if curves:
         parts += [image(_per_layout_plot(curves), "macro-F1 on seen and unseen layouts against "

@@ -20,6 +20,10 @@ from dochar.errors import DocharError
 from dochar.metrics.calibration import expected_calibration_error, reliability_curve
 from dochar.metrics.words import per_group_scores
 from dochar.runs.bundle import PREDICTION_COLUMNS, RunBundle
+from dochar.splits.protocols import LAYOUT_PROTOCOLS
+
+# protocols under which no test family has training documents
+HELD_OUT_PROTOCOLS = LAYOUT_PROTOCOLS - {"seen_and_unseen_layouts"}
 
 NEEDED_COLUMNS: tuple[str, ...] = ("doc_id", "page", "word_id", "text", "x0", "y0", "x1", "y1",
                                    "page_width", "page_height", "label", "predicted",
@@ -64,6 +68,60 @@ def display_names(bundles: Sequence[RunBundle]) -> list[str]:
         else:
             names.append(f"{b.name} ({b.run_id[:8] if b.run_id else f'#{position}'})")
     return names
+
+
+# What a reader calls each system (tag ``model``: a GNN layer or an estimator); the exact run
+# name stays beside it wherever the page names a run.
+SYSTEM_WORDS = {"relational": "R-GCN", "attention": "GATv2", "gcn": "GCN",
+                "max": "GraphSAGE (max)", "none": "no-graph network",
+                "random_forest": "random forest", "gradient_boosting": "gradient boosting",
+                "logistic_regression": "logistic regression", "decision_tree": "decision tree",
+                "layout_template": "per-layout templates"}
+# What a run's recorded size (cost ``parameters``) counts, by estimator, else by model kind.
+SIZE_UNITS = {"gnn": "network weights", "random_forest": "tree nodes",
+              "gradient_boosting": "tree nodes", "decision_tree": "tree nodes",
+              "logistic_regression": "coefficients", "layout_template": "template words",
+              "template": "template words"}
+OTHER_SIZE = "as recorded"
+
+
+def system_words(bundle: RunBundle) -> str:
+    """'R-GCN' for a run of the relational layer; the tag itself when the system is unknown."""
+    model = bundle.tags.get("model", "")
+    return SYSTEM_WORDS.get(model, model.replace("_", " ") or bundle.name)
+
+
+def described(bundle: RunBundle, name: str) -> str:
+    """'R-GCN (relational/sector/all)': the system in words beside the run's exact name."""
+    system = system_words(bundle)
+    return name if system in (name, "") else f"{system} ({name})"
+
+
+def size_unit(bundle: RunBundle) -> str:
+    """What the run's size counts: network weights, tree nodes, template words, ..."""
+    return SIZE_UNITS.get(bundle.tags.get("model", ""),
+                          SIZE_UNITS.get(bundle.tags.get("model_kind", ""), OTHER_SIZE))
+
+
+def document_sides(bundle: RunBundle) -> pd.DataFrame:
+    """One row per test document: its layout family and side (``seen``: the family has
+    training documents, ``unseen``: held out whole, ``""``: not known).
+
+    The side is the run's own record (prediction column ``layout_side``); a run without it
+    under a protocol that holds every test family out is all unseen.
+    """
+    frame = bundle.predictions
+    layouts = (frame["layout_id"] if "layout_id" in frame else pd.Series("", index=frame.index))
+    layouts = layouts.fillna("").astype(str).str.strip()
+    if "layout_side" in frame:
+        sides = frame["layout_side"].fillna("").astype(str)
+    elif bundle.tags.get("split_protocol") in HELD_OUT_PROTOCOLS:
+        sides = pd.Series("unseen", index=frame.index).where(layouts != "", "")
+    else:
+        sides = pd.Series("", index=frame.index)
+    docs = pd.DataFrame({"doc_id": frame["doc_id"].astype(str), "layout_id": layouts,
+                         "side": sides})
+    return docs.groupby("doc_id", sort=True).first()
 
 
 SCORE_WORDS = {"macro_f1": "word macro-F1", "micro_f1": "word micro-F1",

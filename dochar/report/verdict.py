@@ -1,7 +1,10 @@
-"""The top of the page: one sentence that answers, then what the answer rests on.
+"""The top of the page: one paragraph that answers, then what the answer rests on.
 
-The sentence is written from the same paired result the leaderboard prints for the best run
-that is not the reference, so the two can never disagree.
+The paragraph is written from the same paired results the leaderboard (all test documents) and
+the seen/unseen section (each side's documents) print, so they can never disagree. It names
+each system in words and by its exact run name, and says which documents each figure is about;
+on a test set with both seen and unseen layout families the unseen side comes first, since
+that is the question a layout-held-out test asks.
 """
 
 from __future__ import annotations
@@ -10,66 +13,107 @@ import datetime as dt
 from collections import Counter
 from collections.abc import Sequence
 from importlib import metadata
+from typing import Any
 
-from dochar.report.leaderboard import Pairing, p_value
+import pandas as pd
+
+from dochar.report.leaderboard import Pairing
 from dochar.report.page import interval, number
-from dochar.report.summaries import has_layouts, metric, score_words
+from dochar.report.summaries import described, document_sides, metric, score_words
 from dochar.runs.bundle import RunBundle
+from dochar.runs.numbers import p_phrase
 from dochar.runs.tracking import LIBRARIES
-from dochar.splits.protocols import LAYOUT_PROTOCOLS
 
 # A run records each library's version as tag "version/<name>" (dochar.runs.tracking) or under
 # the config key "versions".
+TEMPLATE_KIND = "template"
 
 
-def _scope(bundle: RunBundle, n_documents: int) -> str:
-    """'60 test documents of 2 layout families unseen in training', as far as the run says."""
-    text = f"{n_documents:,} test document{'s' if n_documents != 1 else ''}"
-    if has_layouts(bundle) and bundle.tags.get("split_protocol") in LAYOUT_PROTOCOLS:
-        layouts = bundle.predictions["layout_id"].fillna("").astype(str).str.strip()
-        families = layouts[layouts != ""].nunique()
-        text += f" of {families} layout famil{'ies' if families != 1 else 'y'} unseen in training"
+def _plural(n: int, one: str, many: str) -> str:
+    return f"{n:,} {one if n == 1 else many}"
+
+
+def _documents(docs: pd.DataFrame, side: str | None = None) -> str:
+    """'60 test documents of 2 layout families unseen in training' for the documents given."""
+    text = _plural(len(docs), "test document", "test documents")
+    families = docs.loc[docs["layout_id"] != "", "layout_id"].nunique()
+    if families == 0:
+        return text
+    text += " of " + _plural(families, "layout family", "layout families")
+    sides = set(docs["side"]) if side is None else {side}
+    if sides == {"unseen"}:
+        text += " unseen in training" if side else ", all unseen in training"
+    elif sides == {"seen"}:
+        text += " also seen in training" if side else ", all seen in training"
     return text
 
 
-def _p_phrase(value: float) -> str:
-    shown = p_value(value)
-    return f"p {shown}" if shown.startswith("<") else f"p = {shown}"
+def _clause(challenger: str, reference: str, result: Any, measure: str) -> str:
+    """Who wins by how much, how sure: from the paired result (challenger minus reference)."""
+    difference, low, high = float(result.difference), float(result.low), float(result.high)
+    p = p_phrase(result.p_value)
+    if low > 0:
+        return f"{challenger} beats {reference} by {difference:+.3f} {measure} " \
+               f"{interval(low, high)}, {p}"
+    if high < 0:
+        return f"{reference} beats {challenger} by {-difference:+.3f} {measure} " \
+               f"{interval(-high, -low)}, {p}"
+    return (f"no clear difference between {challenger} and {reference}: {difference:+.3f} "
+            f"{measure} {interval(low, high)} (the interval covers 0), {p}")
+
+
+def _capital(text: str) -> str:
+    return text[:1].upper() + text[1:]
+
+
+def _templates(bundles: Sequence[RunBundle], names: Sequence[str], order: Sequence[int],
+               named: set[int], docs: pd.DataFrame) -> str:
+    """Per-layout templates beside the comparison: what they score on each side."""
+    parts = []
+    for i in order:
+        bundle = bundles[i]
+        if i in named or bundle.tags.get("model_kind") != TEMPLATE_KIND:
+            continue
+        scores = [f"{number(metric(bundle, f'{side}/macro_f1'))} on the {side} families"
+                  for side in ("unseen", "seen") if metric(bundle, f"{side}/macro_f1") is not None
+                  and (docs["side"] == side).any()]
+        if scores:
+            parts.append(f" {_capital(described(bundle, names[i]))} score word macro-F1 "
+                         f"{' and '.join(scores)}.")
+    return "".join(parts)
 
 
 def verdict(bundles: Sequence[RunBundle], names: Sequence[str], order: Sequence[int],
             score: str, pairing: Pairing) -> str:
-    """One sentence: who wins against the reference, by how much, how sure, on what."""
+    """Who wins against the reference, by how much, how sure, and on which documents."""
     best = order[0]
     reference = pairing.reference
     challenger = next((i for i in order if i != reference), None)
     if reference is None or challenger is None or pairing.results is None:
         value = metric(bundles[best], score)
-        n_docs = bundles[best].predictions["doc_id"].nunique()
         ranked = interval(metric(bundles[best], f"{score}_low"),
                           metric(bundles[best], f"{score}_high"))
         why = ("no reference run to compare with" if reference is None or challenger is None
                else "no paired comparison available")
         lead = "scores" if len(bundles) == 1 else "ranks first with"
-        return (f"{names[best]} {lead} {score_words(score)} {number(value)}"
-                f"{' ' + ranked if ranked else ''} on {_scope(bundles[best], n_docs)}; {why}.")
+        return (f"{described(bundles[best], names[best])} {lead} {score_words(score)} "
+                f"{number(value)}{' ' + ranked if ranked else ''} on "
+                f"{_documents(document_sides(bundles[best]))}; {why}.")
+    this, that = (described(bundles[i], names[i]) for i in (challenger, reference))
     if challenger in pairing.failures:
-        return (f"{names[challenger]} ranks first among the runs compared, but cannot be paired "
-                f"with the reference {names[reference]}: {pairing.failures[challenger]}.")
-    result = pairing.results[challenger]
-    difference, low, high = float(result.difference), float(result.low), float(result.high)
-    n_docs = getattr(result, "n_documents", None) or \
-        bundles[challenger].predictions["doc_id"].nunique()
-    tail = f"{_p_phrase(result.p_value)}, on {_scope(bundles[challenger], int(n_docs))}."
-    if low > 0:
-        return (f"{names[challenger]} beats {names[reference]} by {difference:+.3f} "
-                f"{pairing.measure} {interval(low, high)}, {tail}")
-    if high < 0:
-        return (f"{names[reference]} beats {names[challenger]} by {-difference:+.3f} "
-                f"{pairing.measure} {interval(-high, -low)}, {tail}")
-    return (f"No clear difference between {names[challenger]} and {names[reference]}: "
-            f"{difference:+.3f} {pairing.measure} {interval(low, high)} (the interval covers 0), "
-            f"{tail}")
+        return (f"{this} ranks first among the runs compared, but cannot be paired with the "
+                f"reference {that}: {pairing.failures[challenger]}.")
+    docs = document_sides(bundles[challenger])
+    overall = _clause(this, that, pairing.results[challenger], pairing.measure)
+    if not pairing.sides:
+        text = f"{_capital(overall)}, on {_documents(docs)}."
+    else:
+        clauses = [f"On the {_documents(docs[docs['side'] == side], side)}, "
+                   f"{_clause(this, that, pairing.sides[side][challenger], pairing.measure)}."
+                   for side in ("unseen", "seen")]
+        every = _plural(len(docs), "test document", "test documents")
+        text = " ".join([*clauses, f"Over all {every}, {overall}."])
+    return text + _templates(bundles, names, order, {challenger, reference}, docs)
 
 
 def _agreed(values: Sequence[str | None], what: str) -> str:

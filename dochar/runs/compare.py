@@ -6,6 +6,7 @@ from dochar import tasks
 from dochar.metrics.evaluate import has_entity_ids, headline_scorers
 from dochar.metrics.intervals import PairedResult, paired_comparison
 from dochar.runs.bundle import RunBundle
+from dochar.runs.numbers import p_phrase
 
 
 def compare_runs(run_a: RunBundle, run_b: RunBundle, *, score: str | None = None,
@@ -36,7 +37,7 @@ def format_comparison(run_a: RunBundle, run_b: RunBundle, result: PairedResult,
         f"A  {run_a.name}  ({run_a.run_id})  {score} = {result.score_a:.4f}",
         f"B  {run_b.name}  ({run_b.run_id})  {score} = {result.score_b:.4f}",
         f"A - B = {result.difference:+.4f}   95% interval [{result.low:+.4f}, "
-        f"{result.high:+.4f}]   p = {result.p_value:.4g}   ({test}, "
+        f"{result.high:+.4f}]   {p_phrase(result.p_value)}   ({test}, "
         f"{result.n_documents} test documents)",
         f"verdict: {verdict}",
     ])

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Collection, Mapping, Sequence
 
 import numpy as np
 import pandas as pd
@@ -80,10 +80,25 @@ def pair_frame(pages: Sequence[LinkPage], candidates: Sequence[PageCandidates],
     return pd.concat(frames, ignore_index=True)
 
 
-def edge_frame(page_set: PageSet, limit: int) -> pd.DataFrame:
-    """The edges of the first ``limit`` pages, by word id and relation name (page overlays)."""
+def pages_to_draw(predictions: pd.DataFrame, n_pages: int) -> list[tuple[str, int]]:
+    """The test pages a report draws: most wrong words first, ties broken by document id, then
+    page. Decided here, in the run, so the run keeps the edges of exactly these pages."""
+    frame = predictions.assign(_wrong=predictions["label"].astype(str)
+                               != predictions["predicted"].astype(str),
+                               _doc=predictions["doc_id"].astype(str))
+    wrong = frame.groupby(["_doc", "page"])["_wrong"].sum().reset_index()
+    wrong = wrong.sort_values(["_wrong", "_doc", "page"], ascending=[False, True, True],
+                              kind="stable")
+    return [(str(d), int(p)) for d, p in zip(wrong["_doc"], wrong["page"])][:max(n_pages, 0)]
+
+
+def edge_frame(page_set: PageSet, pages: Collection[tuple[str, int]]) -> pd.DataFrame:
+    """The edges of the given (doc_id, page) pages, by word id and relation name (overlays)."""
+    wanted = {(str(doc_id), int(page)) for doc_id, page in pages}
     rows = []
-    for page, edges in list(zip(page_set.pages, page_set.edges))[:limit]:
+    for page, edges in zip(page_set.pages, page_set.edges):
+        if (str(page.doc_id), int(page.page)) not in wanted:
+            continue
         source, target = page.word_ids[edges.edge_index[0]], page.word_ids[edges.edge_index[1]]
         rows.append(pd.DataFrame({"doc_id": page.doc_id, "page": page.page, "source": source,
                                   "target": target,

@@ -29,3 +29,20 @@ def mean_std(mean: float, std: float, digits: int = 3) -> str:
     if not math.isfinite(float(std)):
         return number(mean, digits)
     return f"{number(mean, digits)} ± {number(std, digits)}"
+
+
+P_FLOOR = 0.001   # smaller p-values are written "< 0.001": resampling cannot resolve them finer
+
+
+def p_value(value: float | None) -> str:
+    """A p-value as every dochar output writes it: ``0.012``, or ``< 0.001`` below the floor."""
+    if value is None or not math.isfinite(float(value)):
+        return MISSING
+    value = float(value)
+    return f"< {P_FLOOR:g}" if 0 <= value < P_FLOOR else number(value)
+
+
+def p_phrase(value: float | None) -> str:
+    """``p = 0.012`` or ``p < 0.001``: the p-value inside a sentence."""
+    shown = p_value(value)
+    return f"p {shown}" if shown.startswith("<") else f"p = {shown}"

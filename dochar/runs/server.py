@@ -15,6 +15,7 @@ import sys
 from pathlib import Path
 from urllib.parse import unquote, urlsplit
 
+from dochar.errors import SuggestingParser
 from dochar.runs.tracking import mask_passwords
 
 DB_URI_ENV = "DOCHAR_DB_URI"
@@ -74,7 +75,7 @@ def server_command(db_uri: str, artifacts: Path, host: str, port: int,
 
 
 def _parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(prog="dochar tracking-server", description=__doc__,
+    parser = SuggestingParser(prog="dochar tracking-server", description=__doc__,
                                      formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.add_argument("--db-uri", default=os.environ.get(DB_URI_ENV, DEFAULT_DB_URI),
                         help=f"PostgreSQL URI (default ${DB_URI_ENV}, else {DEFAULT_DB_URI})")

@@ -15,11 +15,13 @@ from __future__ import annotations
 import contextlib
 import hashlib
 import json
+import logging
 import math
 import os
 import re
 import subprocess
 import time
+import warnings
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from pathlib import Path
 from typing import Any
@@ -30,6 +32,33 @@ from filelock import FileLock
 from mlflow.tracking import MlflowClient
 
 from dochar.runs.bundle import RunBundle
+
+# MLflow's and its migration tool's notes on every run ("Updating database tables", SQLite
+# context): nothing a user can act on, so only their warnings and errors are shown.
+for _name in ("mlflow", "alembic"):
+    logging.getLogger(_name).setLevel(logging.WARNING)
+# Warnings raised while MLflow logs a finished run (dataset source guessing, integer columns in
+# an inferred schema, type hints of the model wrapper) concern how dochar calls MLflow, not the
+# user's run: nothing the user can act on, so they are kept out of the console.
+@contextlib.contextmanager
+def quiet_library() -> Iterator[None]:
+    """Library warnings silenced for one block of MLflow logging calls.
+
+    Filters alone do not hold: some MLflow calls set their own ("once") inside; so the warnings
+    of these kinds that get through are dropped where they would be shown.
+    """
+    with warnings.catch_warnings():   # restores the filters and showwarning afterwards
+        warnings.simplefilter("ignore", UserWarning)
+        warnings.simplefilter("ignore", FutureWarning)
+        shown = warnings.showwarning
+
+        def show(message, category, *args, **kwargs):
+            if not issubclass(category, (UserWarning, FutureWarning)):
+                shown(message, category, *args, **kwargs)
+
+        warnings.showwarning = show
+        yield
+
 
 DEFAULT_STORE = "mlflow.db"
 DEFAULT_ARTIFACTS = "mlartifacts"
@@ -240,13 +269,18 @@ def seal(bundle: RunBundle) -> RunBundle:
 
 
 def log_run(bundle: RunBundle, folder: Path, *, uri: str, experiment: str,
-            extra_tags: Mapping[str, str] | None = None) -> str:
+            extra_tags: Mapping[str, str] | None = None, started: float | None = None) -> str:
     """Log params, metrics, tags, the bundle folder (artifacts) and its saved model (an MLflow
-    model); return the run id."""
+    model); return the run id.
+
+    The run is logged once its work is done, so ``started`` (seconds since the epoch, taken
+    when the work began) is its MLflow start time and the end of logging its end time: the
+    duration MLflow shows is the run's own, not the few seconds logging took.
+    """
     seal(bundle)
     experiment_id = ensure_experiment(uri, experiment)
-    with _tracking_uri(uri):
-        return _log(bundle, folder, uri, experiment_id, extra_tags)
+    with _tracking_uri(uri), quiet_library():
+        return _log(bundle, folder, uri, experiment_id, extra_tags, started)
 
 
 @contextlib.contextmanager
@@ -262,7 +296,7 @@ def _tracking_uri(uri: str) -> Iterator[None]:
 
 
 def _log(bundle: RunBundle, folder: Path, uri: str, experiment_id: str,
-         extra_tags: Mapping[str, str] | None) -> str:
+         extra_tags: Mapping[str, str] | None, started: float | None) -> str:
     bundle.tags.update({**masked(dict(extra_tags or {})), "git_commit": git_commit(),
                         **{f"version/{name}": v for name, v in library_versions().items()}})
     if os.environ.get(SWEEP_ID_ENV):
@@ -270,8 +304,11 @@ def _log(bundle: RunBundle, folder: Path, uri: str, experiment_id: str,
     tags = dict(bundle.tags)
     if os.environ.get(SWEEP_PARENT_ENV):
         tags["mlflow.parentRunId"] = os.environ[SWEEP_PARENT_ENV]
-    with store_writes(uri), mlflow.start_run(experiment_id=experiment_id, run_name=bundle.name,
-                                             tags=tags) as run:
+    with store_writes(uri):
+        created = MlflowClient(tracking_uri=uri).create_run(
+            experiment_id, run_name=bundle.name, tags=tags,
+            start_time=None if started is None else int(started * 1000))
+    with store_writes(uri), mlflow.start_run(run_id=created.info.run_id) as run:
         mlflow.log_params(params(bundle.config))
         mlflow.log_metrics({k: v for k, v in {**bundle.metrics, **{f"cost/{k}": v for k, v in
                                                                   bundle.cost.items()}}.items()})

@@ -213,8 +213,10 @@ class StartTags(HTMLParser):
 
 
 def table_cells(html: str, table_id: str) -> tuple[list[str], list[list[str]]]:
-    """Header and body cell texts of the table with ``table_id`` (cells hold plain text)."""
+    """Header and body cell texts of the table with ``table_id`` (cells hold plain text and
+    ``<wbr>`` line-break chances)."""
     table = re.search(rf'<table id="{table_id}">(.*?)</table>', html, flags=re.S).group(1)
-    rows = [[unescape(c) for c in re.findall(r"<t[hd][^>]*>(.*?)</t[hd]>", row, flags=re.S)]
+    rows = [[unescape(c.replace("<wbr>", ""))
+             for c in re.findall(r"<t[hd][^>]*>(.*?)</t[hd]>", row, flags=re.S)]
             for row in re.findall(r"<tr[^>]*>(.*?)</tr>", table, flags=re.S)]
     return rows[0], rows[1:]

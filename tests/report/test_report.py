@@ -232,6 +232,7 @@ def test_verdict_names_the_layout_families_held_out(tmp_path):
     test = runs[0].predictions
     assert said.documents == test["doc_id"].nunique() == 4
     assert said.families == test["layout_id"].nunique() == 2
+    assert said.scope == ", all unseen in training"   # every test family held out
 
 
 def test_facts_under_the_verdict_come_from_the_runs_or_the_installed_libraries(runs, tmp_path):
@@ -311,7 +312,9 @@ def test_per_layout_scores_match_scikit_learn_on_generated_certificates(tmp_path
             # sklearn.metrics.f1_score(average="macro") over the classes present in the layout.
             expected = f1_score(words["label"], words["predicted"], average="macro")
             assert row[header.index(run.name)] == f"{expected:.3f}"
-        assert row[1] == f"{(frame['layout_id'] == row[0]).sum():,}"
+        assert row[header.index("test words")] == f"{(frame['layout_id'] == row[0]).sum():,}"
+        # synthetic_runs holds the test families out of training whole
+        assert row[header.index("in training")] == "unseen"
     # Five runs with fourteen classes stay well inside a mail attachment (common practice).
     assert path.stat().st_size < 3_000_000
     assert "learning-curves" not in html   # no curve/<n>/macro_f1 metrics in these runs

@@ -44,6 +44,7 @@ def test_report_renders_cleanly_in_chromium(funsd_root, tmp_path):
             section_number = page.eval_on_selector(
                 "main section h2", "h => getComputedStyle(h, '::before').content")
             overlay_boxes = page.locator(".overlay svg rect.w").count()
+            document, viewport, tables = _widths(page)
             screenshot = REPO / "test-artifacts" / "report.png"
             screenshot.parent.mkdir(parents=True, exist_ok=True)
             page.screenshot(path=str(screenshot), full_page=True)
@@ -62,3 +63,47 @@ def test_report_renders_cleanly_in_chromium(funsd_root, tmp_path):
     assert number_style[0] == "right" and "tabular-nums" in number_style[1]
     assert section_number not in ("none", "normal", "")
     assert overlay_boxes > 0
+    assert document <= viewport and [t for t in tables if t[1] > t[2]] == []
+
+
+def _widths(page) -> tuple[int, int, list[tuple[str, int, int]]]:
+    """Page width, viewport width and, per table, its own width against the room it has."""
+    document = page.evaluate("document.documentElement.scrollWidth")
+    viewport = page.evaluate("window.innerWidth")
+    tables = page.eval_on_selector_all(
+        "table", "ts => ts.map(t => [t.id || t.closest('section').id, t.scrollWidth, "
+                 "Math.min(t.parentElement.clientWidth, window.innerWidth)])")
+    return document, viewport, tables
+
+
+@pytest.mark.parametrize("width", [1280, 1400, 1920])
+def test_demo_report_fits_the_page_in_chromium(width, demo_report):
+    chromium = require_chromium()
+    from playwright.sync_api import sync_playwright
+
+    with sync_playwright() as p:
+        browser = p.chromium.launch(executable_path=str(chromium), args=LAUNCH_ARGS)
+        try:
+            page = browser.new_page(viewport={"width": width, "height": 900})
+            page.goto(demo_report.as_uri(), wait_until="load")
+            document, viewport, tables = _widths(page)
+            edges = page.locator(".overlay svg path.edge").count()
+            screenshot = REPO / "test-artifacts" / f"demo-report-{width}.png"
+            screenshot.parent.mkdir(parents=True, exist_ok=True)
+            page.screenshot(path=str(screenshot), full_page=True)
+        finally:
+            browser.close()
+    # Nothing wider than the window: no sideways scrolling of the page or of any table
+    # (common practice for a page read on a laptop screen).
+    assert document <= viewport
+    assert tables and [t for t in tables if t[1] > t[2]] == []
+    assert edges > 0
+
+
+@pytest.fixture(scope="module")
+def demo_report(tmp_path_factory):
+    from tests.helpers.split_runs import demo_runs
+
+    runs = demo_runs()
+    return write_report(runs, tmp_path_factory.mktemp("demo") / "demo.html",
+                        title="dochar — demo-like")

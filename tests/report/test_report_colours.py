@@ -54,3 +54,33 @@ def test_numbers_on_heatmap_cells_have_readable_contrast(cmap):
         text = _luminance(to_rgb(text_colour(cmap, value)))
         lighter, darker = max(cell, text), min(cell, text)
         assert (lighter + 0.05) / (darker + 0.05) >= 4.5, (cmap, value)
+
+
+def _cell_colour(data_uri: str) -> np.ndarray:
+    """The most frequent colour of a one-cell heatmap that is not paper, ink or white."""
+    import base64
+    import io
+
+    import matplotlib.image
+
+    pixels = matplotlib.image.imread(io.BytesIO(base64.b64decode(data_uri.split(",", 1)[1])))
+    rgb = np.round(pixels[..., :3].reshape(-1, 3) * 255).astype(int)
+    grey = np.ptp(rgb, axis=1) < 12   # paper, white, ink, greys of labels and frames
+    colours, counts = np.unique(rgb[~grey], axis=0, return_counts=True)
+    return colours[counts.argmax()]
+
+
+def test_every_heatmap_is_darker_where_better():
+    # One reading for the whole page: a high F1 and a large share of a true class (the
+    # diagonal of a confusion matrix: words labelled right) are dark, low values light.
+    from dochar.report.plots import confusion_panels, f1_heatmap
+
+    def f1_cell(value: float) -> np.ndarray:
+        return _cell_colour(f1_heatmap(["run"], ["class"], np.array([[value]])))
+
+    def confusion_cell(value: float) -> np.ndarray:
+        return _cell_colour(confusion_panels([("run", ["class"], np.array([[value]]))]))
+
+    for value in (0.3, 0.9):   # the same value, the same colour on both kinds of map
+        assert np.abs(f1_cell(value) - confusion_cell(value)).max() <= 2
+    assert _luminance(f1_cell(0.9) / 255) < _luminance(f1_cell(0.3) / 255)

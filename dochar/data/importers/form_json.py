@@ -188,6 +188,8 @@ def import_form_json(paths: Iterable[str | Path], *, empty_text: str = "drop",
         files += found
     report = ImportSummary()
     rows: list[dict] = []
-    for file, split in tqdm(files, desc="importing", leave=False, disable=not progress):
+    # disable=None: tqdm draws the bar only when its stream is a terminal
+    for file, split in tqdm(files, desc="importing", leave=False,
+                            disable=None if progress else True):
         rows += read_form_file(file, report, split=split, empty_text=empty_text)
     return pd.DataFrame(rows), report
