@@ -21,7 +21,8 @@ from dochar.tasks import WordLabels
 from dochar.models.gnn import GNNStack
 from dochar.models.inputs import PageSet, to_graphs, to_matrix
 from dochar.models.saved import load_model, save_model
-from dochar.models.training import forward, predict_proba
+from dochar.models.objectives import node_inputs
+from dochar.models.training import predict_proba
 from tests.helpers import CONFIGS
 
 LABELS = ["analyte", "other"]
@@ -69,7 +70,7 @@ def test_crops_reach_the_model_and_its_gradient_reaches_the_encoder(pages):
     model = GNNStack(in_dim=len(featurizer.feature_names), num_classes=2,
                      num_relations=len(page_set.relations), hidden_dim=8, norm="none",
                      crop_encoder=CropCNNEncoder(channels=4, out_dim=6), crop_dim=6)
-    logits = forward(model, batch)
+    logits = model(*node_inputs(batch))
     assert logits.shape == (8, 2)
     torch.nn.functional.cross_entropy(logits, batch.y).backward()
     for name, parameter in model.crop_encoder.named_parameters():
