@@ -189,16 +189,27 @@ def _report_error(command: str, error: DocharError) -> int:
     return 2
 
 
+def _checked(task):
+    """Check the composed config (schemas and every stage's options) before the job loads
+    anything; inside a sweep a bad job's config becomes that job's failure, not the sweep's."""
+    def job(cfg):
+        from dochar.runs.checks import check_config
+
+        check_config(cfg)
+        return task(cfg)
+
+    job.__name__ = task.__name__
+    job.__module__ = task.__module__
+    return job
+
+
 def _reported(task):
-    """Check the composed config (schemas and every stage's options), then run the job; input
-    and config problems end it with one located message and exit code 2."""
+    """Run the job; input and config problems end it with one located message and exit
+    code 2."""
     from omegaconf.errors import OmegaConfBaseException
 
     def job(cfg):
         try:
-            from dochar.runs.checks import check_config
-
-            check_config(cfg)
             try:
                 return task(cfg)
             except OmegaConfBaseException as error:   # e.g. a mandatory value left as ???
@@ -224,7 +235,7 @@ def _hydra_command(task, argv: list[str]) -> int:
     previous = os.environ.get("HYDRA_FULL_ERROR")
     os.environ["HYDRA_FULL_ERROR"] = "1"    # Hydra re-raises instead of printing and exiting 1
     try:
-        _hydra_main(_reported(guard_job(task)))()
+        _hydra_main(_reported(guard_job(_checked(task))))()
     except SystemExit as stop:
         return int(stop.code or 0)
     except (HydraException, OmegaConfBaseException) as error:

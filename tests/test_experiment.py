@@ -13,6 +13,7 @@ import pandas as pd
 import pytest
 
 from dochar.runs.bundle import RunBundle
+from dochar.runs.numbers import p_phrase
 
 TINY = ["data.documents=30", "train.max_epochs=3", "evaluation.bootstrap_resamples=50",
         "++model.hidden_dim=16", "train.progress=false", "tracking.experiment=e2e"]
@@ -179,7 +180,7 @@ def test_compare_prints_the_paired_difference_of_two_logged_runs(sweep):
     assert f"macro_f1 = {score_b:.4f}" in result.stdout
     assert f"A - B = {observed:+.4f}" in result.stdout
     assert f"[{low:+.4f}, {high:+.4f}]" in result.stdout
-    assert f"p = {p_value:.4g}" in result.stdout
+    assert p_phrase(p_value) in result.stdout   # the house way of writing p (runs/numbers.py)
     verdict = ("A is better" if low > 0 else "B is better" if high < 0
                else "no clear difference")
     assert result.stdout.strip().endswith(f"verdict: {verdict}")

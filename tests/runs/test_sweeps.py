@@ -41,7 +41,8 @@ def test_a_failing_job_does_not_stop_the_sweep(tmp_path, launcher):
     assert_one_failed_one_finished(table)
     assert "1 failed job(s)" in result.stdout
     failure = json.loads(next(sweep_dir.glob("*/failure.json")).read_text())
-    assert "InvalidParameterError" in failure["reason"]
+    # scikit-learn's own parameter rule, applied before the job loads any data
+    assert "EstimatorOptionError" in failure["reason"] and "n_estimators" in failure["reason"]
 
 
 @pytest.fixture(scope="module")
