@@ -19,7 +19,8 @@ from dochar.models.layers.relational import RelationalLayer
 
 
 class ReferenceRelationalLayer(RelationalLayer):
-    def forward(self, x: Tensor, edge_index: Tensor, edge_type: Tensor) -> Tensor:
+    def forward(self, x: Tensor, edge_index: Tensor, edge_type: Tensor,
+                edge_attr: Tensor | None = None) -> Tensor:
         # RGCNConv's fused segment-matmul path (with pyg-lib) means over all relations at once,
         # which is not eq. 2; the loop over relations is what the layer ran.
         saved = torch_geometric.backend.use_segment_matmul
