@@ -1,7 +1,7 @@
-"""The README's figures that describe dochar itself are the ones dochar computes today.
+"""The figures README.md and docs/ state about dochar itself are the ones dochar computes today.
 
-Each cheap figure block of README.md (between ``<!-- figures: NAME -->`` markers) is recomputed
-by ``reports/readme_figures`` and must match the README apart from its date; a change to the
+Each cheap figure block (between ``<!-- figures: NAME -->`` markers, in README.md or a page of
+docs/) is recomputed by ``reports/readme_figures`` and must match its page apart from its date; a change to the
 code that moves a figure fails here until ``make readme-figures`` rewrites the block. Where the
 figure is a score, the code behind it is also checked against an independent computation.
 """
@@ -14,11 +14,11 @@ import pytest
 from dochar.data.word_table import reading_order
 from dochar.gate.rules import Score
 from dochar.metrics.entities import entity_scores
-from reports.readme_figures.__main__ import CHEAP, FIGURES, README, compute
+from reports.readme_figures.__main__ import CHEAP, FIGURES, ROOT, Figure, compute, main
 from reports.readme_figures.cheap import funsd_split
 from reports.readme_figures.gate_spread import seed_spread
-from reports.readme_figures.markers import (FigureBlockError, read_blocks, replace_block,
-                                            same_figures, wrap_prose)
+from reports.readme_figures.markers import (FigureBlockError, documents, find_blocks,
+                                            read_blocks, replace_block, same_figures, wrap_prose)
 from tests.helpers import require_dataset
 
 NEEDS_FUNSD = {"funsd-leakage", "funsd-entity-ceiling", "funsd-blank-links"}
@@ -28,17 +28,38 @@ NEEDS_FUNSD = {"funsd-leakage", "funsd-entity-ceiling", "funsd-blank-links"}
 def test_cheap_readme_figure_matches_the_code(name):
     if name in NEEDS_FUNSD:
         require_dataset("funsd")
-    blocks = read_blocks(README.read_text(encoding="utf-8"))
-    assert name in blocks, f"README.md has no figure block {name!r}"
+    blocks = find_blocks(documents(ROOT))
+    assert name in blocks, f"neither README.md nor docs/*.md has a figure block {name!r}"
+    path, body = blocks[name]
     recomputed = compute(name)
-    assert same_figures(blocks[name], recomputed), (
-        f"README block {name!r} differs from what the code computes now; run "
+    assert same_figures(body, recomputed), (
+        f"{path.name} block {name!r} differs from what the code computes now; run "
         f"`make readme-figures` (python -m reports.readme_figures --only {name}).\n"
-        f"README:\n{blocks[name]}\nnow:\n{recomputed}")
+        f"{path.name}:\n{body}\nnow:\n{recomputed}")
 
 
-def test_every_figure_has_one_block_in_the_readme():
-    assert set(read_blocks(README.read_text(encoding="utf-8"))) == set(FIGURES)
+def test_every_figure_has_one_block_in_the_readme_or_docs():
+    assert set(find_blocks(documents(ROOT))) == set(FIGURES)
+
+
+def test_blocks_are_found_and_rewritten_in_the_page_that_holds_them(tmp_path, monkeypatch):
+    # a checkout with the block in docs/, not in the README: --only writes into docs/ and
+    # leaves the README byte for byte
+    (tmp_path / "docs").mkdir()
+    readme = "# r\n<!-- figures: layout-ari -->\nold\n\n<!-- /figures -->\n"
+    page = readme.replace("layout-ari", "benchmarks")
+    (tmp_path / "README.md").write_text(readme, encoding="utf-8")
+    (tmp_path / "docs" / "bench.md").write_text(page, encoding="utf-8")
+    monkeypatch.setitem(FIGURES, "benchmarks", Figure(
+        lambda: "new figure", cheap=True))
+    assert main(["--only", "benchmarks", "--root", str(tmp_path)]) == 0
+    assert (tmp_path / "README.md").read_text(encoding="utf-8") == readme
+    assert (tmp_path / "docs" / "bench.md").read_text(encoding="utf-8") == \
+        "# r\n<!-- figures: benchmarks -->\nnew figure\n\n<!-- /figures -->\n"
+    assert main(["--only", "benchmarks", "--check", "--root", str(tmp_path)]) == 0
+    (tmp_path / "docs" / "copy.md").write_text(page, encoding="utf-8")
+    with pytest.raises(FigureBlockError, match="'benchmarks' appears in both"):
+        main(["--only", "benchmarks", "--root", str(tmp_path)])
 
 
 # --- the blocks themselves ------------------------------------------------------------------

@@ -1,10 +1,10 @@
-"""``python -m reports.readme_figures``: rewrite the README's figure blocks from fresh runs.
+"""``python -m reports.readme_figures``: rewrite the figure blocks of README.md and docs/*.md.
 
     python -m reports.readme_figures                   the cheap blocks (seconds)
     python -m reports.readme_figures --only demo       one block (repeat --only for more)
     python -m reports.readme_figures --all             every block, training runs included
     python -m reports.readme_figures --check           recompute the cheap blocks; exit 1 when
-                                                       the README differs from them
+                                                       a page differs from them
 """
 
 from __future__ import annotations
@@ -20,9 +20,10 @@ from pathlib import Path
 
 from reports.readme_figures import cheap, gate_spread, tables
 from reports.readme_figures.cheap import FigureUnavailable
-from reports.readme_figures.markers import read_blocks, replace_block, same_figures, wrap_prose
+from reports.readme_figures.markers import (FigureBlockError, documents, find_blocks,
+                                            replace_block, same_figures, wrap_prose)
 
-README = Path(__file__).resolve().parents[2] / "README.md"
+ROOT = Path(__file__).resolve().parents[2]
 
 
 @dataclass(frozen=True)
@@ -48,7 +49,7 @@ CHEAP = [name for name, figure in FIGURES.items() if figure.cheap]
 
 
 def compute(name: str, keep: Path | None = None) -> str:
-    """The block's text as the README holds it (prose wrapped, tables whole)."""
+    """The block's text as its page holds it (prose wrapped, tables whole)."""
     figure = FIGURES[name]
     return wrap_prose(figure.compute(keep) if figure.takes_keep else figure.compute())
 
@@ -61,9 +62,10 @@ def _parser() -> argparse.ArgumentParser:
                         help=f"regenerate this block (repeatable): {', '.join(FIGURES)}")
     parser.add_argument("--all", action="store_true", help="every block, training runs included")
     parser.add_argument("--check", action="store_true",
-                        help="recompute the cheap blocks (or --only ones) and exit 1 when the "
-                             "README differs; writes nothing")
-    parser.add_argument("--readme", type=Path, default=README)
+                        help="recompute the cheap blocks (or --only ones) and exit 1 when a "
+                             "page differs; writes nothing")
+    parser.add_argument("--root", type=Path, default=ROOT,
+                        help="the checkout whose README.md and docs/*.md hold the blocks")
     parser.add_argument("--keep-runs", type=Path, default=None, metavar="DIR",
                         help="save finished training runs here and reuse them on the next call")
     return parser
@@ -75,8 +77,11 @@ def main(argv: Sequence[str] | None = None) -> int:
     logging.getLogger("reports").setLevel(logging.INFO)
     logging.getLogger("dochar").setLevel(logging.ERROR)   # the data loaders' per-row notes
     names = list(FIGURES) if args.all else (args.only or CHEAP)
-    text = args.readme.read_text(encoding="utf-8")
-    present = read_blocks(text)
+    present = find_blocks(documents(args.root))
+    missing = sorted(set(names) - set(present))
+    if missing:
+        raise FigureBlockError(f"no figure block {', '.join(missing)} in {args.root}/README.md "
+                               f"or docs/*.md")
     differ = []
     for name in names:
         started = time.perf_counter()
@@ -86,21 +91,22 @@ def main(argv: Sequence[str] | None = None) -> int:
             print(f"{name}: skipped, {reason}")
             continue
         seconds = time.perf_counter() - started
+        path, old = present[name]
+        where = path.relative_to(args.root)
         if args.check:
-            old = present.get(name)
-            same = old is not None and same_figures(old, body)
-            print(f"{name}: {'same as the README' if same else 'DIFFERS from the README'} "
+            same = same_figures(old, body)
+            print(f"{name}: {f'same as {where}' if same else f'DIFFERS from {where}'} "
                   f"({seconds:.0f} s)")
             if not same:
                 differ.append(name)
                 sys.stdout.writelines(difflib.unified_diff(
-                    (old or "").splitlines(True), body.splitlines(True),
-                    f"README.md: {name}", f"recomputed: {name}"))
+                    old.splitlines(True), body.splitlines(True),
+                    f"{where}: {name}", f"recomputed: {name}"))
             continue
         # read again and write block by block: a crash keeps the blocks already written
-        fresh = replace_block(args.readme.read_text(encoding="utf-8"), name, body)
-        args.readme.write_text(fresh, encoding="utf-8")
-        print(f"{name}: written ({seconds:.0f} s)")
+        fresh = replace_block(path.read_text(encoding="utf-8"), name, body)
+        path.write_text(fresh, encoding="utf-8")
+        print(f"{name}: written to {where} ({seconds:.0f} s)")
     return 1 if differ else 0
 
 

@@ -119,8 +119,8 @@ def funsd_blank_links() -> str:
 
 
 def benchmarks() -> str:
-    """The table ``make bench`` last wrote (reports/benchmarks.md), as the README quotes it: the
-    bench's own file is the record, so the README cannot drift from it."""
+    """The table ``make bench`` last wrote (reports/benchmarks.md), as docs/benchmarks.md quotes
+    it: the bench's own file is the record, so the page cannot drift from it."""
     path = REPO / "reports" / "benchmarks.md"
     if not path.is_file():
         raise FigureUnavailable(f"{path} not found: run `make bench` first")

@@ -1,9 +1,13 @@
-"""Named blocks of a Markdown file between marker comments, read and replaced in place."""
+"""Named blocks of Markdown files between marker comments, read and replaced in place.
+
+The blocks live in the README and the pages under ``docs/``; a block name belongs to one file.
+"""
 
 from __future__ import annotations
 
 import re
 import textwrap
+from pathlib import Path
 
 from dochar.errors import DocharError
 
@@ -14,7 +18,7 @@ _BLOCK = re.compile(r"<!-- figures: (?P<name>[a-z0-9-]+) -->\n(?P<body>.*?)<!-- 
 
 
 class FigureBlockError(DocharError):
-    """A README without the block asked for, or with a block named twice."""
+    """A file without the block asked for, or a block named twice."""
 
 
 def read_blocks(text: str) -> dict[str, str]:
@@ -24,9 +28,30 @@ def read_blocks(text: str) -> dict[str, str]:
         name = match["name"]
         if name in blocks:
             line = text.count("\n", 0, match.start()) + 1
-            raise FigureBlockError(f"README line {line}: figure block {name!r} appears twice")
+            raise FigureBlockError(f"line {line}: figure block {name!r} appears twice")
         blocks[name] = match["body"]
     return blocks
+
+
+def documents(root: Path) -> list[Path]:
+    """The files that hold figure blocks: ``README.md`` and ``docs/*.md`` under ``root``."""
+    return [root / "README.md", *sorted((root / "docs").glob("*.md"))]
+
+
+def find_blocks(paths: list[Path]) -> dict[str, tuple[Path, str]]:
+    """Block name -> (the file holding it, its body), over every file of ``paths``."""
+    found: dict[str, tuple[Path, str]] = {}
+    for path in paths:
+        try:
+            blocks = read_blocks(path.read_text(encoding="utf-8"))
+        except FigureBlockError as error:
+            raise FigureBlockError(f"{path}, {error}") from None
+        for name, body in blocks.items():
+            if name in found:
+                raise FigureBlockError(f"figure block {name!r} appears in both "
+                                       f"{found[name][0]} and {path}")
+            found[name] = (path, body)
+    return found
 
 
 def replace_block(text: str, name: str, body: str) -> str:
@@ -37,13 +62,13 @@ def replace_block(text: str, name: str, body: str) -> str:
                          re.DOTALL)
     found = pattern.findall(text)
     if len(found) != 1:
-        raise FigureBlockError(f"README: expected one figure block {name!r} "
+        raise FigureBlockError(f"expected one figure block {name!r} "
                                f"({OPEN.format(name=name)} ... {CLOSE}), found {len(found)}")
     return pattern.sub(lambda _: OPEN.format(name=name) + "\n" + body + CLOSE, text)
 
 
 def wrap_prose(body: str, width: int = 98) -> str:
-    """Paragraphs of ``body`` wrapped at ``width`` (as the README is); table rows kept whole."""
+    """Paragraphs of ``body`` wrapped at ``width`` (as the pages are); table rows kept whole."""
     out = []
     for paragraph in body.strip("\n").split("\n\n"):
         if paragraph.lstrip().startswith("|"):
