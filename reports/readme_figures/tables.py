@@ -3,8 +3,12 @@ learning curve and the sweep over every layer and baseline."""
 
 from __future__ import annotations
 
+import os
+import platform
 from collections.abc import Sequence
 from pathlib import Path
+
+import torch
 
 from dochar.runs.bundle import RunBundle
 from dochar.runs.compare import compare_runs
@@ -30,6 +34,12 @@ SWEEP_MODELS = ("relational", "attention", "max", "gcn", "none", "random_forest"
 DEMO = ["split=seen_and_unseen_layouts"]
 DEMO_MODELS = ("relational", "random_forest", "layout_template")
 CURVE_SIZES = (1, 2, 5, 10, None)
+
+
+def machine() -> str:
+    """Where a trained figure was measured: a GNN's scores move with the CPU and the torch
+    build (the order of floating-point sums), so the figure says which ones it came from."""
+    return f"{platform.machine()}, {os.cpu_count()} CPUs, torch {torch.__version__}"
 
 
 def interval(metrics: dict[str, float], name: str) -> str:
@@ -77,7 +87,7 @@ def layout_held_out(keep: Path | None = None) -> str:
         f"the layout families {' and '.join(f'`{f}`' for f in families)}, "
         f"{test['doc_id'].nunique()} documents and {len(test):,} words the models never saw "
         f"the like of), as `{command(HELD_OUT_MODELS, HELD_OUT)}` computes it on {today()} "
-        f"(`python -m reports.readme_figures --only layout-held-out`, one thread on a machine "
+        f"(`python -m reports.readme_figures --only layout-held-out`, one thread on {machine()}, "
         f"shared with other jobs, so train seconds are inflated):",
         "",
         "| run (test words, layout families unseen in training) | macro-F1 [95% CI] | micro-F1 "
@@ -101,8 +111,9 @@ def full_sweep(keep: Path | None = None) -> str:
 
     return "\n".join([
         f"The full sweep over every layer and baseline on the same split "
-        f"(`{command(SWEEP_MODELS, HELD_OUT)}`, one thread, {today()}, "
-        f"`python -m reports.readme_figures --only full-sweep`):",
+        f"(`{command(SWEEP_MODELS, HELD_OUT)}`, {today()}, "
+        f"`python -m reports.readme_figures --only full-sweep`, one thread on {machine()}, "
+        f"shared with other jobs, so train seconds are inflated):",
         "",
         "| run | macro-F1 [95% CI] | entity F1 | train s | parameters |",
         "|---|---|---|---|---|",
@@ -135,7 +146,9 @@ def demo(keep: Path | None = None) -> str:
         f"{int(m['split/train_documents'])} training documents in "
         f"{int(m['split/train_layouts'])} families, test {int(m['split/seen_test_documents'])} "
         f"seen-layout and {int(m['split/unseen_test_documents'])} unseen-layout documents; "
-        f"`python -m reports.readme_figures --only demo`, one thread):",
+        f"`python -m reports.readme_figures --only demo`, one thread on {machine()}). The GNN's "
+        f"scores can move in the third decimal on another CPU or torch build; `make demo` "
+        f"prints yours.",
         "",
         "| run | seen macro-F1 [95% CI] | seen entity F1 [95% CI] | unseen macro-F1 [95% CI] | "
         "unseen entity F1 [95% CI] | all test: macro-F1 |",
