@@ -81,7 +81,7 @@ def funsd_split():
 def funsd_leakage() -> str:
     cfg, _, split = funsd_split()
     leaked = split.leakage["test_doc"].nunique()
-    return (f"**Where we stand.** On the official split {leaked} of the "
+    return (f"On the official split {leaked} of the "
             f"{len(split.assignment.test)} test forms have a near-duplicate template among the "
             f"training forms (leakage report, cosine distance of page signatures < "
             f"{cfg.split.leakage_threshold:g}; {today()}, "

@@ -115,7 +115,7 @@ def full_sweep(keep: Path | None = None) -> str:
         f"`python -m reports.readme_figures --only full-sweep`, one thread on {machine()}, "
         f"shared with other jobs, so train seconds are inflated):",
         "",
-        "| run | macro-F1 [95% CI] | entity F1 | train s | parameters |",
+        "| run | macro-F1 [95% CI] | entity F1 | train s | size (weights, or tree nodes) |",
         "|---|---|---|---|---|",
         *[f"| {DESCRIPTIONS[m]} | {interval(b.metrics, 'macro_f1')} | "
           f"{b.metrics['entity_f1']:.3f} | {b.cost['train_seconds']:.0f} | {size(b)} |"
