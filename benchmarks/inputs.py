@@ -25,7 +25,7 @@ from dochar.models.gnn import GNNStack
 from dochar.data.sources import load_data
 
 
-# the preset's network and graph on the features issue 14 names (geometry, text flags, char CNN):
+# the preset's network and graph on the features the speed targets name (geometry, text flags, char CNN):
 # the preset's text embedding and line context would time a pretrained encoder, not dochar
 FUNSD_PRESET = ("+experiment=funsd_rgcn", "features.groups=[geometry,text_flags,char_cnn]",
                 "features.line_context=false")

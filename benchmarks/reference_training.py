@@ -1,4 +1,4 @@
-"""The model as it computed before issue 14, kept as the training benchmarks' reference.
+"""The model as it was computed before its sparse product, kept as the training benchmarks' reference.
 
 :class:`ReferenceRelationalLayer` runs torch-geometric's ``RGCNConv`` on its loop over relations
 (one masked gather, mean and product per relation); :class:`ReferenceCharCNN` encodes every word

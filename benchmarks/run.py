@@ -1,4 +1,4 @@
-"""`make bench`: dochar's speed and memory against the targets of issue 14.
+"""`make bench`: dochar's speed and memory against their targets.
 
 Writes ``reports/benchmarks.md`` (figure, measured, reference, ratio, target, verdict) and exits 1
 when a target is missed. Times are CPU seconds of one thread (``time.process_time``), least of
