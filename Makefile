@@ -28,7 +28,7 @@ demo: $(STAMP)
 	$(BIN)/dochar report --experiment $(DEMO_EXPERIMENT) --sweep latest
 	@echo "The sweep's last line above is the address of its runs in MLflow's UI."
 
-# Slow tests whose results the README cites run in `make test` (and so in CI) too.
+# Slow tests whose results docs/ cites run in `make test` (and so in CI) too.
 CITED := "tests/test_determinism.py::test_fresh_processes_with_other_hash_seeds_agree_bit_for_bit" \
          "tests/gate/test_gate.py::test_committed_reference[planted_regression]"
 
@@ -59,8 +59,9 @@ mutate-smoke: $(STAMP)
 gate: $(STAMP)
 	$(BIN)/dochar gate
 
-# The README's figures about dochar itself, recomputed: the cheap blocks by default (a minute);
-# FIGURES="--all" adds the training runs (half an hour and more), FIGURES="--only demo" one block.
+# The figures README.md and docs/ state about dochar itself, recomputed where they stand: the
+# cheap blocks by default (a minute); FIGURES="--all" adds the training runs (half an hour and
+# more), FIGURES="--only demo" one block.
 FIGURES ?=
 readme-figures: $(STAMP)
 	$(BIN)/python -m reports.readme_figures $(FIGURES)

@@ -110,7 +110,7 @@ def test_seed_spread_takes_the_worst_fall_over_ordered_pairs():
 # --- the entity ceiling against a brute-force count ---------------------------------------------
 
 def brute_force_entity_counts(frame: pd.DataFrame, ignore: set[str]) -> tuple[int, int, int]:
-    """(correct, predicted, true) by the rule the README states, with plain sets: a predicted
+    """(correct, predicted, true) by the rule docs/results-public-data.md states, with plain sets: a predicted
     entity is a maximal run of one label in dochar's reading order on one page, a true entity
     the words of one ``entity_id``; correct = the same page, word set and label."""
     predicted, true = set(), set()

@@ -1,8 +1,8 @@
 """Bad input, class by class: each gives a located error or a documented, counted repair.
 
-The ``BI-nn`` numbers are the rows of the README's "Bad input" table. Expected locations and
+The ``BI-nn`` numbers are the rows of the "Bad input" table in docs/data-formats.md. Expected locations and
 counts are worked out by hand from the tiny inputs written here; the rules are the word-table
-format in the README (common practice for OCR word tables: one row per word, a box inside its
+format in docs/data-formats.md (common practice for OCR word tables: one row per word, a box inside its
 page). "Located" means the message names the file and the row/column, page or element.
 """
 
