@@ -111,10 +111,11 @@ def _run_job(cfg) -> float:
     from dochar.data.sources import load_data
     from dochar.data.word_table import table_fingerprint
     from dochar.experiment import run_experiment
-    from dochar.runs.sweep import skip_if_finished
+    from dochar.runs.sweep import end_killed_jobs, skip_if_finished
 
     started = time.time()
     _check_tracking(cfg)
+    end_killed_jobs(cfg)
     done = skip_if_finished(cfg, lambda: table_fingerprint(
         load_data(cfg.data, strict=bool(cfg.strict)).table))
     if done is not None:
@@ -126,9 +127,11 @@ def _run_job(cfg) -> float:
 def _curve_job(cfg) -> float:
     """Learning curve of one system; logged as its full-data run plus curve/<n>/<score>."""
     from dochar.curve import curve_metrics, run_learning_curve
+    from dochar.runs.sweep import end_killed_jobs
 
     started = time.time()
     _check_tracking(cfg)
+    end_killed_jobs(cfg)
     full: list = []
 
     axis = str(cfg.curve.get("axis") or "train_documents")

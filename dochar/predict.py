@@ -34,6 +34,7 @@ from pathlib import Path
 
 import pandas as pd
 
+from dochar.data.files import write_text_atomic
 from dochar.data.importers import FORMATS, import_sources
 from dochar.data.importers.label_transfer import TransferSettings
 from dochar.data.word_table import (
@@ -218,12 +219,11 @@ def run(args: argparse.Namespace) -> int:
         return write_links(saved, table, args.out)
     words = saved.label_words(table)
     found = fields(words, saved.manifest["entity_ignore"])
-    args.out.mkdir(parents=True, exist_ok=True)
     words_path = write_word_table(words, args.out / f"words.{args.words_format}")
-    found.to_csv(args.out / "fields.csv", index=False)
+    write_text_atomic(args.out / "fields.csv", found.to_csv(index=False))
     documents = list(dict.fromkeys(words["doc_id"]))
-    (args.out / "fields.json").write_text(json.dumps(fields_json(found, documents), indent=2,
-                                                     ensure_ascii=False))
+    write_text_atomic(args.out / "fields.json", json.dumps(fields_json(found, documents),
+                                                           indent=2, ensure_ascii=False))
     print(f"labelled {len(words)} words on {words.groupby('doc_id')['page'].nunique().sum()} "
           f"pages of {len(documents)} documents; {len(found)} fields")
     if "label" in words.columns:
@@ -244,8 +244,7 @@ def write_links(saved: SavedModel, table: pd.DataFrame, out: Path) -> int:
     rows = pair_frame(link_pages, candidates, probabilities, float(saved.manifest["threshold"]))
     found = rows[rows["predicted"] == LINK].rename(columns={f"{PROBABILITY_PREFIX}{LINK}":
                                                             "probability"})
-    out.mkdir(parents=True, exist_ok=True)
-    found[LINK_COLUMNS].to_csv(out / "links.csv", index=False)
+    write_text_atomic(out / "links.csv", found[LINK_COLUMNS].to_csv(index=False))
     print(f"scored {int(rows['candidate'].sum())} candidate pairs on {len(pages)} pages; "
           f"{len(found)} predicted links")
     print(f"wrote {out / 'links.csv'}")

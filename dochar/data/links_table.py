@@ -15,6 +15,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from dochar.data.files import atomic_write
 from dochar.data.word_table import Problem, WordTableError
 
 LINK_COLUMNS: tuple[str, ...] = ("doc_id", "page", "source", "target", "kind")
@@ -81,12 +82,12 @@ def read_links_table(path: str | Path) -> pd.DataFrame:
 
 def write_links_table(frame: pd.DataFrame, path: str | Path) -> Path:
     path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
     frame = frame[list(LINK_COLUMNS)]
-    if path.suffix.lower() == ".parquet":
-        frame.to_parquet(path, index=False)
-    else:
-        frame.to_csv(path, index=False)
+    with atomic_write(path) as scratch:
+        if path.suffix.lower() == ".parquet":
+            frame.to_parquet(scratch, index=False)
+        else:
+            frame.to_csv(scratch, index=False)
     return path
 
 

@@ -13,6 +13,7 @@ from pathlib import Path
 from rich.markup import escape
 from rich.table import Table
 
+from dochar.data.files import atomic_write, write_text_atomic
 from dochar.gate.rules import Check
 from dochar.runs.numbers import number
 
@@ -152,13 +153,12 @@ def junit_xml(outcome: GateOutcome) -> ET.ElementTree:
 def write_outputs(outcome: GateOutcome, junit: Path | None, summary: Path | None) -> list[Path]:
     written = []
     if junit is not None:
-        junit.parent.mkdir(parents=True, exist_ok=True)
         tree = junit_xml(outcome)
         ET.indent(tree)
-        tree.write(junit, encoding="utf-8", xml_declaration=True)
+        with atomic_write(junit) as scratch:
+            tree.write(scratch, encoding="utf-8", xml_declaration=True)
         written.append(junit)
     if summary is not None:
-        summary.parent.mkdir(parents=True, exist_ok=True)
-        summary.write_text(markdown(outcome), encoding="utf-8")
+        write_text_atomic(summary, markdown(outcome))
         written.append(summary)
     return written

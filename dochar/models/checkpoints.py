@@ -6,11 +6,11 @@ history (scores, best epoch: the early-stopping counter is ``epoch - best_epoch`
 weights so far. Resuming from it gives bit-identical results to an uninterrupted run, because
 the loop is deterministic once those states are equal (tests/test_determinism.py).
 
-Each save writes a temporary file in the same folder and renames it over the old one
-(``os.replace`` is atomic on POSIX), so a kill at any moment leaves the previous checkpoint or
-the new one, never half of one. A kill inside the write leaves that temporary file
-(``<key>.pt.<pid>.partial``); the next run to start in the folder and every run that ends remove
-the partial files whose writing process no longer runs. The file is keyed by the run's config hash
+Each save goes through :func:`dochar.data.files.atomic_write` (a partial file renamed over the
+old one), so a kill at any moment leaves the previous checkpoint or the new one, never half of
+one. A kill inside the write leaves that partial file (``<key>.pt.<pid>-<random>.partial``); the
+next save or start in the folder and every run that ends remove the partials whose writing
+process no longer runs. The file is keyed by the run's config hash
 and the digest of its training inputs; a checkpoint of other inputs is never resumed.
 """
 
@@ -19,7 +19,6 @@ from __future__ import annotations
 import dataclasses
 import hashlib
 import logging
-import os
 import random
 from collections.abc import Sequence
 from pathlib import Path
@@ -28,6 +27,8 @@ from typing import Any
 import numpy as np
 import torch
 from torch_geometric.data import Data
+
+from dochar.data.files import atomic_write, remove_stale_partials
 
 log = logging.getLogger(__name__)
 
@@ -59,17 +60,8 @@ class EpochCheckpoint:
                  "torch_rng": torch.get_rng_state(), "numpy_rng": _numpy_state(),
                  "python_rng": _python_state(), "history": dataclasses.asdict(history),
                  "best_state": best_state}
-        self.path.parent.mkdir(parents=True, exist_ok=True)
-        partial = self.path.with_name(f"{self.path.name}.{os.getpid()}{PARTIAL_SUFFIX}")
-        try:
-            with open(partial, "wb") as handle:
-                torch.save(state, handle)
-                handle.flush()
-                os.fsync(handle.fileno())
-            os.replace(partial, self.path)
-        except BaseException:   # a full disk, Ctrl-C: the previous checkpoint stays, whole
-            partial.unlink(missing_ok=True)
-            raise
+        with atomic_write(self.path) as scratch, open(scratch, "wb") as handle:
+            torch.save(state, handle)   # a full disk, Ctrl-C: the previous checkpoint stays
 
     def restore(self, model: torch.nn.Module, optimizer: torch.optim.Optimizer,
                 generator: torch.Generator, history: Any, best_state: dict) -> tuple[int, dict]:
@@ -95,33 +87,6 @@ class EpochCheckpoint:
     def remove(self) -> None:
         self.path.unlink(missing_ok=True)
         remove_stale_partials(self.path.parent)
-
-
-PARTIAL_SUFFIX = ".partial"
-
-
-def remove_stale_partials(folder: str | Path) -> list[Path]:
-    """Delete the ``*.pt.<pid>.partial`` files of the folder whose writer is gone (killed while
-    writing); a writer still running elsewhere keeps its file. Returns the files removed."""
-    removed = []
-    for path in Path(folder).glob(f"*.pt.*{PARTIAL_SUFFIX}"):
-        pid = path.name[:-len(PARTIAL_SUFFIX)].rsplit(".", 1)[-1]
-        if pid.isdigit() and int(pid) != os.getpid() and _running(int(pid)):
-            continue
-        path.unlink(missing_ok=True)
-        removed.append(path)
-        log.info("removed %s, a checkpoint write its killed process left unfinished", path)
-    return removed
-
-
-def _running(pid: int) -> bool:
-    try:
-        os.kill(pid, 0)          # signal 0: only asks whether the process exists
-    except ProcessLookupError:
-        return False
-    except PermissionError:      # it exists, under another user
-        return True
-    return True
 
 
 def _numpy_state() -> dict:

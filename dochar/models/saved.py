@@ -26,9 +26,6 @@ from __future__ import annotations
 
 import hashlib
 import json
-import os
-import shutil
-import tempfile
 import zipfile
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
@@ -41,6 +38,7 @@ import pandas as pd
 import torch
 
 from dochar import graphs, tasks
+from dochar.data.files import atomic_folder
 from dochar.data.word_table import Page, iter_pages
 from dochar.errors import DocharError
 from dochar.features import CHAR_VOCAB, WordFeaturizer
@@ -147,10 +145,8 @@ def save_model(destination: str | Path, fitted: FittedModel, config: Mapping[str
         "arguments": fitted.arguments, "threshold": fitted.threshold,
         "libraries": library_versions(), "files": {},
     }
-    destination.parent.mkdir(parents=True, exist_ok=True)
-    staging = Path(tempfile.mkdtemp(prefix=f".{destination.name}-", dir=destination.parent))
-    path = staging / MODEL_FILES[kind]
-    try:
+    with atomic_folder(destination) as staging:     # manifest last, then one rename
+        path = staging / MODEL_FILES[kind]
         if kind == "gnn":
             state = {k: v.detach().cpu() for k, v in fitted.model.state_dict().items()}
             build_gnn(fitted.arguments).load_state_dict(state, strict=True)
@@ -163,22 +159,7 @@ def save_model(destination: str | Path, fitted: FittedModel, config: Mapping[str
             skops.io.dump(fitted.model, path, compression=zipfile.ZIP_DEFLATED)
         manifest["files"][path.name] = _sha256(path)
         (staging / MANIFEST).write_text(json.dumps(manifest, indent=2, default=str))
-        _replace(staging, destination)
-    except BaseException:
-        shutil.rmtree(staging, ignore_errors=True)
-        raise
     return destination
-
-
-def _replace(staging: Path, destination: Path) -> None:
-    """Rename the finished folder into place; an older unit is moved aside first, then removed."""
-    old = None
-    if destination.exists():
-        old = destination.with_name(f".{destination.name}-old-{os.getpid()}")
-        os.replace(destination, old)
-    os.replace(staging, destination)
-    if old is not None:
-        shutil.rmtree(old, ignore_errors=True)
 
 
 @dataclass

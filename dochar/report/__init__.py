@@ -13,6 +13,7 @@ from pathlib import Path
 import numpy as np
 import yaml
 
+from dochar.data.files import write_text_atomic
 from dochar.report import plots
 from dochar.report.leaderboard import (REFERENCE_MODEL, default_paired, leaderboard,
                                        pair_with_reference, resolve_reference)
@@ -105,10 +106,9 @@ def write_report(bundles: Sequence[RunBundle], out_path: str | Path, *,
            facts(provenance(bundles, written or dt.date.today()), "facts"),
            contents([(i, heading) for i, heading, _ in chapters])]
     out_path = Path(out_path)
-    out_path.parent.mkdir(parents=True, exist_ok=True)
-    out_path.write_text(document(title, lede, [section(*c) for c in chapters],
-                                 OVERLAY_STYLE + "\n" + class_style(page_labels), top=top),
-                        encoding="utf-8")
+    write_text_atomic(out_path, document(title, lede, [section(*c) for c in chapters],
+                                         OVERLAY_STYLE + "\n" + class_style(page_labels),
+                                         top=top))
     return out_path
 
 

@@ -9,6 +9,7 @@ from __future__ import annotations
 import base64
 from pathlib import Path
 
+from dochar.data.files import make_folder, write_bytes_atomic
 from dochar.metrics.words import row_normalise
 from dochar.models.fit import FittedModel
 from dochar.models.saved import save_model
@@ -19,13 +20,13 @@ from dochar.runs.bundle import RunBundle
 
 
 def _png(data_uri: str, path: Path) -> None:
-    path.write_bytes(base64.b64decode(data_uri.split(",", 1)[1]))
+    write_bytes_atomic(path, base64.b64decode(data_uri.split(",", 1)[1]))
 
 
 def write_run_files(folder: Path, bundle: RunBundle, fitted: FittedModel) -> Path:
     """Figures and the model as one loadable unit in ``model/`` (:mod:`dochar.models.saved`);
     the bundle itself is saved by the caller once tracking has given it a run id."""
-    folder.mkdir(parents=True, exist_ok=True)
+    make_folder(folder)
     confusion = bundle.tables["confusion"]
     labels = list(confusion.index)
     _png(confusion_panels([(bundle.name, labels, confusion.to_numpy(dtype=float))], counts=True),

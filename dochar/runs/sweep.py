@@ -14,10 +14,12 @@ trial. The sweep ends with its table listing the failures, the parent run closed
 
 from __future__ import annotations
 
+import hashlib
 import json
 import logging
 import math
 import os
+import shutil
 import sys
 import traceback
 from collections.abc import Callable
@@ -32,12 +34,16 @@ from hydra.types import RunMode
 from omegaconf import DictConfig, OmegaConf
 from rich.table import Table
 
+from dochar.data.files import (atomic_folder, make_folder, partial_path,
+                               write_text_atomic)
 from dochar.metrics.evaluate import headline_names
 from dochar.runs.aggregate import aggregate_runs
 from dochar.runs.bundle import RunBundle
 from dochar.runs.console import aggregate_table, console, print_comparison
+from dochar.runs.killed_runs import SWEEP_HASH_TAG, WRITTEN_BY_TAG, end_killed_runs, writer
 from dochar.tasks import VALIDATION_SCORE
-from dochar.runs.tracking import (SWEEP_ID_ENV, SWEEP_PARENT_ENV, config_hash, ensure_experiment,
+from dochar.runs.tracking import (CONFIG_HASH_TAG, SWEEP_HASH_ENV, SWEEP_ID_ENV,
+                                  SWEEP_PARENT_ENV, config_hash, ensure_experiment,
                                   finished_run, log_failed_run, mask_passwords, resolve_uri,
                                   store_writes, ui_hint)
 
@@ -89,9 +95,8 @@ def record_failure(cfg: DictConfig, error: BaseException) -> None:
     failure = {"job": hydra_cfg.job.num, "overrides": mask_passwords(overrides),
                "reason": reason,
                "traceback": mask_passwords("".join(traceback.format_exception(error))[-4000:])}
-    folder = Path(hydra_cfg.runtime.output_dir)
-    folder.mkdir(parents=True, exist_ok=True)
-    (folder / FAILURE_FILE).write_text(json.dumps(failure, indent=2))
+    folder = make_folder(hydra_cfg.runtime.output_dir)
+    write_text_atomic(folder / FAILURE_FILE, json.dumps(failure, indent=2))
     print(f"job {hydra_cfg.job.num} failed ({mask_passwords(overrides)}): {reason}",
           file=sys.stderr)
     if cfg.tracking.enabled:
@@ -101,6 +106,17 @@ def record_failure(cfg: DictConfig, error: BaseException) -> None:
         except Exception as store_error:  # noqa: BLE001 - the store may be what failed
             print(f"job {hydra_cfg.job.num}: could not log the failure: {store_error}",
                   file=sys.stderr)
+
+
+def end_killed_jobs(cfg: DictConfig) -> list[str]:
+    """Before a run starts: its config's runs a killed process left RUNNING end as KILLED."""
+    if not cfg.tracking.enabled:
+        return []
+    uri = resolve_uri(cfg.tracking.uri)
+    wanted = config_hash(OmegaConf.to_container(cfg, resolve=True))
+    with store_writes(uri):
+        return end_killed_runs(mlflow.MlflowClient(tracking_uri=uri),
+                               str(cfg.tracking.experiment), CONFIG_HASH_TAG, wanted)
 
 
 def skip_if_finished(cfg: DictConfig, data_fingerprint: Callable[[], str]) -> float | None:
@@ -114,13 +130,13 @@ def skip_if_finished(cfg: DictConfig, data_fingerprint: Callable[[], str]) -> fl
     if run is None:
         return None
     folder = Path(HydraConfig.get().runtime.output_dir) / RUN_FOLDER
-    folder.mkdir(parents=True, exist_ok=True)
     client = mlflow.MlflowClient(tracking_uri=uri)
-    for item in client.list_artifacts(run.info.run_id):
-        if not item.is_dir:   # the run's files, without the fitted model
-            client.download_artifacts(run.info.run_id, item.path, str(folder))
-    (folder.parent / SKIPPED_FILE).write_text(json.dumps({"run_id": run.info.run_id,
-                                                          "config_hash": wanted}))
+    with atomic_folder(folder) as staging:    # whole or absent, like a run folder written here
+        for item in client.list_artifacts(run.info.run_id):
+            if not item.is_dir:   # the run's files, without the fitted model
+                client.download_artifacts(run.info.run_id, item.path, str(staging))
+    write_text_atomic(folder.parent / SKIPPED_FILE, json.dumps({"run_id": run.info.run_id,
+                                                                "config_hash": wanted}))
     overrides = mask_passwords(" ".join(HydraConfig.get().overrides.task))
     print(f"skipped job {HydraConfig.get().job.num} ({overrides}): already finished as run "
           f"{run.info.run_id[:12]} (same config hash {wanted} and data); "
@@ -131,6 +147,28 @@ def skip_if_finished(cfg: DictConfig, data_fingerprint: Callable[[], str]) -> fl
 def sweep_bundles(sweep_dir: Path) -> list[RunBundle]:
     return [RunBundle.load(summary.parent)
             for summary in sorted(sweep_dir.glob(f"*/{RUN_FOLDER}/summary.json"))]
+
+
+def unfinished_jobs(sweep_dir: Path) -> list[str]:
+    """Job folders with neither a run nor a failure: a job whose process was killed."""
+    return sorted((d.name for d in sweep_dir.iterdir() if d.is_dir() and d.name.isdigit()
+                   and not (d / RUN_FOLDER / "summary.json").exists()
+                   and not (d / FAILURE_FILE).exists()), key=int)
+
+
+def clear_job_outcome(folder: Path) -> None:
+    """A job starting again forgets what an earlier, interrupted start of it left."""
+    for name in (FAILURE_FILE, SKIPPED_FILE):
+        (folder / name).unlink(missing_ok=True)
+    if (folder / RUN_FOLDER).exists():     # renamed away first: gone whole, never half
+        old = partial_path(folder / RUN_FOLDER)
+        os.replace(folder / RUN_FOLDER, old)
+        shutil.rmtree(old, ignore_errors=True)
+
+
+def sweep_hash(overrides: list[str]) -> str:
+    """The sweep's command (its overrides, in any order): a rerun of it has the same hash."""
+    return hashlib.sha256(json.dumps(sorted(overrides)).encode()).hexdigest()[:20]
 
 
 def sweep_failures(sweep_dir: Path) -> list[dict]:
@@ -146,7 +184,8 @@ def system_of(bundle: RunBundle) -> str:
 
 
 def sweep_frame(bundles: list[RunBundle], skipped: set[str] | None = None,
-                failures: list[dict] | None = None) -> pd.DataFrame:
+                failures: list[dict] | None = None,
+                unfinished: list[str] | None = None) -> pd.DataFrame:
     skipped = skipped or set()
     rows = [{"run": b.name, "system": system_of(b), "run_id": b.run_id,
              "status": "skipped (done before)" if b.run_id in skipped else "finished",
@@ -154,6 +193,8 @@ def sweep_frame(bundles: list[RunBundle], skipped: set[str] | None = None,
             for b in bundles]
     rows += [{"run": f"job {f['job']}", "system": f["overrides"], "status": "failed",
               "reason": f["reason"]} for f in failures or []]
+    rows += [{"run": f"job {job}", "status": "unfinished",
+              "reason": "its process ended before the job did"} for job in unfinished or []]
     frame = pd.DataFrame(rows)
     score = bundles[0].headline if bundles else None
     if score not in frame:
@@ -186,7 +227,7 @@ def _mask_files(folder: Path, pattern: str) -> None:
     for path in folder.glob(pattern):
         text = path.read_text()
         if (cleaned := mask_passwords(text)) != text:
-            path.write_text(cleaned)
+            write_text_atomic(path, cleaned)
 
 
 class MaskPasswords(logging.Filter):
@@ -217,19 +258,23 @@ class SweepTable(Callback):
     def on_multirun_start(self, config: DictConfig, **kwargs: Any) -> None:
         mask_logs()
         _OUTCOME["failed"] = 0
-        sweep_dir = Path(config.hydra.sweep.dir)
-        sweep_dir.mkdir(parents=True, exist_ok=True)
+        sweep_dir = make_folder(config.hydra.sweep.dir)
         self.parent_run_id = None
+        hashed = sweep_hash(list(config.hydra.overrides.task))
         if config.tracking.enabled:
             uri = resolve_uri(config.tracking.uri)
             experiment_id = ensure_experiment(uri, str(config.tracking.experiment))
             with store_writes(uri):
-                run = mlflow.MlflowClient(tracking_uri=uri).create_run(
+                client = mlflow.MlflowClient(tracking_uri=uri)
+                end_killed_runs(client, str(config.tracking.experiment), SWEEP_HASH_TAG, hashed)
+                run = client.create_run(
                     experiment_id, run_name=f"sweep {sweep_dir.name}",
-                    tags={"sweep_id": sweep_dir.name, "kind": "sweep"})
+                    tags={"sweep_id": sweep_dir.name, "kind": "sweep", SWEEP_HASH_TAG: hashed,
+                          WRITTEN_BY_TAG: writer()})
             self.parent_run_id = run.info.run_id
-        context = {"sweep_id": sweep_dir.name, "parent_run_id": self.parent_run_id}
-        (sweep_dir / CONTEXT_FILE).write_text(json.dumps(context))
+        context = {"sweep_id": sweep_dir.name, "parent_run_id": self.parent_run_id,
+                   "sweep_hash": hashed}
+        write_text_atomic(sweep_dir / CONTEXT_FILE, json.dumps(context))
 
     def on_job_start(self, config: DictConfig, **kwargs: Any) -> None:
         """Runs in the job's own process: join the sweep through its context file."""
@@ -238,6 +283,8 @@ class SweepTable(Callback):
         if config.hydra.mode == RunMode.MULTIRUN and context_path.exists():
             context = json.loads(context_path.read_text())
             os.environ[SWEEP_ID_ENV] = context["sweep_id"]
+            os.environ[SWEEP_HASH_ENV] = context.get("sweep_hash", "")
+            clear_job_outcome(Path(config.hydra.runtime.output_dir))
             if context["parent_run_id"]:
                 os.environ[SWEEP_PARENT_ENV] = context["parent_run_id"]
         _mask_files(Path(config.hydra.runtime.output_dir) / ".hydra", "*.yaml")
@@ -246,6 +293,7 @@ class SweepTable(Callback):
         sweep_dir = Path(config.hydra.sweep.dir)
         _mask_files(sweep_dir, "multirun.yaml")
         bundles, failures = sweep_bundles(sweep_dir), sweep_failures(sweep_dir)
+        unfinished = unfinished_jobs(sweep_dir)
         skipped = {json.loads(p.read_text())["run_id"] for p in sweep_dir.glob(f"*/{SKIPPED_FILE}")}
         _OUTCOME["failed"] = len(failures)
         if bundles:
@@ -257,19 +305,23 @@ class SweepTable(Callback):
                           "and data (tracking.skip_finished=false runs them again)")
         if failures:
             console.print(failure_table(failures))
-        frame = sweep_frame(bundles, skipped, failures)
+        if unfinished:
+            console.print(f"[red]{len(unfinished)} job(s) unfinished (their process ended "
+                          f"first): {', '.join(unfinished)}[/red]")
+        frame = sweep_frame(bundles, skipped, failures, unfinished)
         if not frame.empty:
-            frame.to_csv(sweep_dir / "sweep_table.csv", index=False)
+            write_text_atomic(sweep_dir / "sweep_table.csv", frame.to_csv(index=False))
             console.print(f"sweep table: {sweep_dir / 'sweep_table.csv'}")
             repeats = repeats_summary(frame)
             if repeats is not None:
                 console.print(aggregate_table(repeats))
-                repeats.to_csv(sweep_dir / "sweep_repeats.csv", index=False)
+                write_text_atomic(sweep_dir / "sweep_repeats.csv", repeats.to_csv(index=False))
         if self.parent_run_id is not None:
             self._close_parent(resolve_uri(config.tracking.uri), str(config.tracking.experiment),
                               sweep_dir, failures, skipped)
         os.environ.pop(SWEEP_PARENT_ENV, None)
         os.environ.pop(SWEEP_ID_ENV, None)
+        os.environ.pop(SWEEP_HASH_ENV, None)
 
     def _close_parent(self, uri: str, experiment: str, sweep_dir: Path, failures: list,
                       skipped: set) -> None:

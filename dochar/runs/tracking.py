@@ -32,6 +32,7 @@ from filelock import FileLock
 from mlflow.tracking import MlflowClient
 
 from dochar.runs.bundle import RunBundle
+from dochar.runs.killed_runs import SWEEP_HASH_TAG, WRITTEN_BY_TAG, writer
 
 # MLflow's and its migration tool's notes on every run ("Updating database tables", SQLite
 # context): nothing a user can act on, so only their warnings and errors are shown.
@@ -64,6 +65,7 @@ DEFAULT_STORE = "mlflow.db"
 DEFAULT_ARTIFACTS = "mlartifacts"
 SWEEP_PARENT_ENV = "DOCHAR_SWEEP_PARENT"
 SWEEP_ID_ENV = "DOCHAR_SWEEP_ID"
+SWEEP_HASH_ENV = "DOCHAR_SWEEP_HASH"
 EXPERIMENT_KIND_TAG = "mlflow.experimentKind"
 MODEL_DEVELOPMENT = "custom_model_development"
 LOCAL_UI = "http://127.0.0.1:5000"
@@ -299,9 +301,8 @@ def _log(bundle: RunBundle, folder: Path, uri: str, experiment_id: str,
          extra_tags: Mapping[str, str] | None, started: float | None) -> str:
     bundle.tags.update({**masked(dict(extra_tags or {})), "git_commit": git_commit(),
                         **{f"version/{name}": v for name, v in library_versions().items()}})
-    if os.environ.get(SWEEP_ID_ENV):
-        bundle.tags["sweep_id"] = os.environ[SWEEP_ID_ENV]
-    tags = dict(bundle.tags)
+    bundle.tags.update(sweep_tags())
+    tags = {**bundle.tags, WRITTEN_BY_TAG: writer()}
     if os.environ.get(SWEEP_PARENT_ENV):
         tags["mlflow.parentRunId"] = os.environ[SWEEP_PARENT_ENV]
     with store_writes(uri):
@@ -322,13 +323,18 @@ def _log(bundle: RunBundle, folder: Path, uri: str, experiment_id: str,
     return bundle.run_id
 
 
+def sweep_tags() -> dict[str, str]:
+    """The sweep a job belongs to (its folder's name and the hash of its command)."""
+    return {tag: os.environ[env] for tag, env in (("sweep_id", SWEEP_ID_ENV),
+                                                  (SWEEP_HASH_TAG, SWEEP_HASH_ENV))
+            if os.environ.get(env)}
+
+
 def log_failed_run(uri: str, experiment: str, name: str, reason: str,
                    tags: Mapping[str, str]) -> str:
     """A run with status FAILED and the reason as a tag, so a shared store shows what broke."""
     experiment_id = ensure_experiment(uri, experiment)
-    all_tags = {**tags, "failure": mask_passwords(reason)[:5000]}
-    if os.environ.get(SWEEP_ID_ENV):
-        all_tags["sweep_id"] = os.environ[SWEEP_ID_ENV]
+    all_tags = {**tags, "failure": mask_passwords(reason)[:5000], **sweep_tags()}
     if os.environ.get(SWEEP_PARENT_ENV):
         all_tags["mlflow.parentRunId"] = os.environ[SWEEP_PARENT_ENV]
     with store_writes(uri):

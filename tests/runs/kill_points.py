@@ -1,9 +1,15 @@
-"""`dochar run` that kills itself (SIGKILL, as the out-of-memory killer or a pre-empted job
-would) at one chosen instant, so a test can reach instants that timing alone rarely hits.
+"""A `dochar` command that kills itself (SIGKILL, as the out-of-memory killer or a pre-empted
+job would) at one chosen instant, so a test can reach instants that timing alone rarely hits.
 
-    python -m tests.runs.kill_points POINT [key=value ...]
+    python -m tests.runs.kill_points POINT [run|predict|import] [arguments ...]
 
-POINT is one of
+(no command: `run`). POINT is one of
+
+    call:DOTTED:N  before the N-th call in the process of a function or method (DOTTED is
+                   module.function or module.Class.method, e.g. mlflow.log_artifacts)
+    after:DOTTED:N right after the N-th call of it returned
+    rename:NAME:N  inside the N-th atomic write of a file or folder named NAME (dochar.data.files):
+                   its partial complete on disk, not yet renamed into place
 
     batch:N        before the N-th training batch of the process (mid-epoch)
     write:E:B      inside the checkpoint write of epoch E, once B bytes of the partial file are
@@ -18,6 +24,7 @@ never reaches lets it finish (exit code 0), which the caller can tell from -9.
 
 from __future__ import annotations
 
+import importlib
 import os
 import signal
 import sys
@@ -26,7 +33,10 @@ from typing import Any
 import torch
 
 from dochar import cli
+from dochar.data import files
 from dochar.models import checkpoints, objectives
+
+COMMANDS = {"run", "predict", "import"}
 
 
 def kill() -> None:
@@ -55,7 +65,7 @@ class KillingWriter:
 
 def install(point: str) -> None:
     kind, *numbers = point.split(":")
-    values = [int(n) for n in numbers]
+    values = [int(n) for n in numbers if n.isdigit()]
     armed: list[int] = []     # the epoch whose checkpoint write is under way
 
     if kind == "batch":
@@ -94,10 +104,74 @@ def install(point: str) -> None:
             kill()
 
         checkpoints.EpochCheckpoint.remove = remove
+    elif kind in {"call", "after"}:
+        dotted, count = point.split(":")[1], int(point.split(":")[2])
+        wrap_call(dotted, count, before=kind == "call")
+    elif kind == "rename":
+        name, count = point.split(":")[1], int(point.split(":")[2])
+        files.os = RenameKiller(name, count)
     else:
         raise SystemExit(f"unknown kill point {point!r}")
 
 
+def resolve(dotted: str) -> tuple[Any, str]:
+    """(owner, attribute) of module.function or module.Class.method, importing the module."""
+    parts = dotted.split(".")
+    for split in range(len(parts) - 1, 0, -1):
+        try:
+            owner = importlib.import_module(".".join(parts[:split]))
+        except ImportError:
+            continue
+        for name in parts[split:-1]:
+            owner = getattr(owner, name)
+        return owner, parts[-1]
+    raise SystemExit(f"kill point: cannot find {dotted!r}")
+
+
+def wrap_call(dotted: str, count: int, before: bool) -> None:
+    owner, name = resolve(dotted)
+    real, calls = getattr(owner, name), [0]
+
+    def wrapper(*args, **kwargs):
+        calls[0] += 1
+        if before and calls[0] == count:
+            kill()
+        result = real(*args, **kwargs)
+        if not before and calls[0] == count:
+            kill()
+        return result
+
+    if isinstance(owner, type) and isinstance(owner.__dict__.get(name), (staticmethod,
+                                                                         classmethod)):
+        raise SystemExit(f"kill point: {dotted} is not a plain function or method")
+    setattr(owner, name, wrapper)
+    for module in list(sys.modules.values()):   # names bound by `from module import function`
+        if getattr(module, "__name__", "").startswith("dochar") and \
+                getattr(module, name, None) is real:
+            setattr(module, name, wrapper)
+
+
+class RenameKiller:
+    """``os`` for dochar.data.files, whose ``replace`` dies before the N-th rename onto NAME."""
+
+    def __init__(self, name: str, count: int) -> None:
+        self.name, self.count, self.seen = name, count, 0
+
+    def __getattr__(self, attribute: str) -> Any:
+        return getattr(os, attribute)
+
+    def replace(self, source, destination) -> None:
+        if os.path.basename(destination) == self.name and \
+                str(source).endswith(files.PARTIAL_SUFFIX):
+            self.seen += 1
+            if self.seen == self.count:
+                kill()
+        os.replace(source, destination)
+
+
 if __name__ == "__main__":
     install(sys.argv[1])
-    raise SystemExit(cli.main(["run", *sys.argv[2:]]))
+    arguments = sys.argv[2:]
+    if arguments[:1] and arguments[0] in COMMANDS:
+        raise SystemExit(cli.main(arguments))
+    raise SystemExit(cli.main(["run", *arguments]))

@@ -6,6 +6,7 @@ from __future__ import annotations
 import pandas as pd
 import pytest
 
+from dochar.data.files import OutputWriteError
 from dochar.runs.bundle import PREDICTION_COLUMNS, RunBundle
 from dochar.runs.store import RunLookupError, find_run, run_folder
 
@@ -26,7 +27,7 @@ class _Broken(pd.DataFrame):
 
 def test_a_save_that_dies_leaves_no_run_and_no_half_file(tmp_path):
     folder = tmp_path / "run"
-    with pytest.raises(OSError, match="No space"):
+    with pytest.raises(OutputWriteError, match="per_class.csv: No space"):
         _bundle({"per_class": _Broken({"a": [1]})}).save(folder)
     assert run_folder(folder) is None                     # no summary: not a run folder
     with pytest.raises(RunLookupError, match="not a dochar run folder"):

@@ -26,6 +26,7 @@ import torch
 
 from dochar.gate.command import run_reference
 from dochar.models import training
+from dochar.data.files import writer_pid
 from dochar.models.checkpoints import EpochCheckpoint
 from dochar.models.objectives import NodeClasses
 from tests.helpers import REPO
@@ -112,7 +113,7 @@ def kill_and_resume(tmp_path: Path, legs: list[tuple[str, int | None]], expected
         assert not (tmp_path / f"leg{leg}" / "run" / "summary.json").exists()
         stale = list(checkpoints.glob("*.partial"))
         if point.startswith(("write", "written")):
-            assert [p.name.split(".")[-2] for p in stale] == [str(process.pid)], point
+            assert [writer_pid(p) for p in stale] == [process.pid], point
             if point.startswith("write"):
                 assert 0 < stale[0].stat().st_size <= int(point.split(":")[2])
         resume_epoch = next_epoch

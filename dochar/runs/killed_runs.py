@@ -1,0 +1,63 @@
+"""Runs a killed process left RUNNING in the tracking store, found and ended as KILLED.
+
+A SIGKILL (out of memory, a pre-empted job) stops a process between MLflow's create-run and its
+end-run, so the store shows the run RUNNING for ever. Every run dochar creates carries the tag
+``written_by=<host>:<pid>``. When a run or sweep starts, the RUNNING runs of the same config hash
+(or sweep hash) written on this host by a process that no longer runs are ended as KILLED, with
+tags saying when they were found (``killed_found_at``, ISO 8601 UTC) and by which process
+(``killed_found_by``). Runs written on another host are left alone: their writer cannot be asked.
+A pid reused by a new process keeps its run RUNNING until that process ends too.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import os
+import socket
+
+from mlflow.tracking import MlflowClient
+
+from dochar.data.files import process_running
+
+WRITTEN_BY_TAG = "written_by"
+FOUND_AT_TAG = "killed_found_at"
+FOUND_BY_TAG = "killed_found_by"
+SWEEP_HASH_TAG = "sweep_hash"
+
+
+def writer() -> str:
+    """This process as the tag names it: ``host:pid``."""
+    return f"{socket.gethostname()}:{os.getpid()}"
+
+
+def writer_is_dead(written_by: str | None) -> bool:
+    """True only when the writer ran on this host and its pid no longer runs."""
+    if not written_by or ":" not in written_by:
+        return False
+    host, pid = written_by.rsplit(":", 1)
+    if host != socket.gethostname() or not pid.isdigit() or int(pid) == os.getpid():
+        return False
+    return not process_running(int(pid))
+
+
+def end_killed_runs(client: MlflowClient, experiment: str, tag: str, value: str) -> list[str]:
+    """End as KILLED the RUNNING runs of ``experiment`` with ``tags.<tag> = value`` whose writer
+    is dead; return their ids. The caller holds the store's write lock."""
+    found = client.get_experiment_by_name(experiment)
+    if found is None:
+        return []
+    runs = client.search_runs([found.experiment_id],
+                              filter_string=f"tags.{tag} = '{value}' and "
+                                            "attributes.status = 'RUNNING'", max_results=1000)
+    ended = []
+    for run in runs:
+        if not writer_is_dead(run.data.tags.get(WRITTEN_BY_TAG)):
+            continue
+        now = dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds")
+        client.set_tag(run.info.run_id, FOUND_AT_TAG, now)
+        client.set_tag(run.info.run_id, FOUND_BY_TAG, writer())
+        client.set_terminated(run.info.run_id, status="KILLED")
+        ended.append(run.info.run_id)
+        print(f"ended run {run.info.run_id[:12]} as KILLED: left RUNNING by "
+              f"{run.data.tags[WRITTEN_BY_TAG]}, which no longer runs")
+    return ended

@@ -1,0 +1,187 @@
+"""The crash-safety fixes one by one, each with the case that broke before it.
+
+- a partial a killed writer left (any output, not only checkpoints) is removed by the next
+  write into its folder; one of a running writer is kept;
+- a saved model is staged under a partial name, so a killed save leaves nothing a later save
+  does not remove, and the old model is replaced whole;
+- a full disk (RLIMIT_FSIZE, POSIX setrlimit) and a folder that cannot be made give one located
+  error and leave no partial;
+- runs a killed process left RUNNING end as KILLED, with when and by what, and only those;
+- a sweep job started again forgets an earlier start's outcome; jobs with no outcome are listed
+  as unfinished.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import resource
+import socket
+import subprocess
+import sys
+from pathlib import Path
+
+import mlflow
+import pandas as pd
+import pytest
+
+from dochar.data.files import (OutputWriteError, atomic_folder, partial_path,
+                               remove_stale_partials, write_text_atomic)
+from dochar.runs.killed_runs import (FOUND_AT_TAG, FOUND_BY_TAG, WRITTEN_BY_TAG,
+                                     end_killed_runs, writer)
+from dochar.runs.sweep import FAILURE_FILE, clear_job_outcome, sweep_frame, unfinished_jobs
+from tests.helpers import REPO
+
+
+@pytest.fixture(scope="module")
+def dead_pid() -> int:
+    """The pid of a process that has ended (reaped, so not running)."""
+    process = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"],
+                             capture_output=True, text=True, check=True)
+    return int(process.stdout)
+
+
+def left_by(pid: int, path: Path, text: str = "half") -> Path:
+    """The partial a writer with this pid leaves when killed inside the write."""
+    name = partial_path(path).name.replace(f".{os.getpid()}-", f".{pid}-")
+    partial = path.with_name(name)
+    partial.write_text(text)
+    return partial
+
+
+def test_a_killed_writers_partial_is_removed_by_the_next_write_in_the_folder(tmp_path,
+                                                                             dead_pid):
+    """The summary of a run folder, not a checkpoint: before the fix only checkpoint partials
+    (``*.pt.<pid>.partial``) were ever removed."""
+    stale = left_by(dead_pid, tmp_path / "summary.json")
+    write_text_atomic(tmp_path / "config.yaml", "a: 1\n")
+    assert not stale.exists()
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["config.yaml"]
+
+
+def test_a_running_writers_partial_is_kept(tmp_path):
+    live = left_by(os.getppid(), tmp_path / "report.html")     # the test runner's parent runs
+    assert remove_stale_partials(tmp_path) == []
+    write_text_atomic(tmp_path / "other.txt", "x")
+    assert live.exists()
+
+
+def test_a_killed_model_save_leaves_a_folder_the_next_save_removes(tmp_path, dead_pid):
+    staging = left_by(dead_pid, tmp_path / "model")
+    staging.unlink()
+    staging.mkdir()                       # a staging folder, half filled
+    (staging / "weights.pt").write_bytes(b"\0" * 10)
+    (tmp_path / "model").mkdir()
+    (tmp_path / "model" / "manifest.json").write_text("{}")
+    with atomic_folder(tmp_path / "model") as folder:
+        (folder / "manifest.json").write_text('{"new": true}')
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["model"]
+    assert json.loads((tmp_path / "model" / "manifest.json").read_text()) == {"new": True}
+
+
+def test_a_failed_model_save_keeps_the_old_model_whole(tmp_path):
+    (tmp_path / "model").mkdir()
+    (tmp_path / "model" / "manifest.json").write_text("{}")
+    with pytest.raises(RuntimeError), atomic_folder(tmp_path / "model") as folder:
+        (folder / "weights.pt").write_bytes(b"x")
+        raise RuntimeError("killed by the test")
+    assert sorted(p.name for p in tmp_path.rglob("*")) == ["manifest.json", "model"]
+
+
+FULL_DISK = """
+import resource, sys
+from dochar.data.files import OutputWriteError, write_text_atomic
+resource.setrlimit(resource.RLIMIT_FSIZE, (4096, 4096))
+try:
+    write_text_atomic(sys.argv[1], "x" * 100_000)
+except OutputWriteError as error:
+    print(error)
+"""
+
+
+def test_a_full_disk_gives_one_located_error_and_no_partial(tmp_path):
+    """RLIMIT_FSIZE makes write() fail with EFBIG past 4 KiB (POSIX setrlimit; CPython ignores
+    SIGXFSZ), as a full disk fails with ENOSPC: both take the same path."""
+    target = tmp_path / "out" / "words.csv"
+    result = subprocess.run([sys.executable, "-c", FULL_DISK, str(target)], capture_output=True,
+                            text=True, env={**os.environ, "PYTHONPATH": str(REPO)}, timeout=120)
+    assert result.stdout.startswith(f"cannot write {target}: the file size limit is reached")
+    assert not target.exists() and not list(target.parent.iterdir())
+
+
+def test_an_import_onto_a_full_disk_exits_2_with_one_line(tmp_path):
+    from data_synth.__main__ import main as synth_main
+
+    assert synth_main(["--documents", "2", "--seed", "3", "--out", str(tmp_path / "t.parquet"),
+                       "--render", "pdf", "--render-dir", str(tmp_path / "pages")]) == 0
+    out = tmp_path / "imported.csv"
+
+    def limit() -> None:
+        resource.setrlimit(resource.RLIMIT_FSIZE, (2048, 2048))
+
+    result = subprocess.run([sys.executable, "-m", "dochar.cli", "import", "pages", "--out",
+                             str(out)], cwd=tmp_path, capture_output=True, text=True,
+                            env={**os.environ, "PYTHONPATH": str(REPO)}, preexec_fn=limit,
+                            timeout=300)
+    assert result.returncode == 2, result.stderr[-2000:]
+    assert "Traceback" not in result.stderr
+    assert f"cannot write {out}: the file size limit is reached" in result.stderr
+    assert not out.exists() and not list(tmp_path.glob("*.partial"))
+
+
+def test_an_output_folder_that_cannot_be_made_is_named(tmp_path):
+    (tmp_path / "taken").write_text("a file where a folder should be")
+    with pytest.raises(OutputWriteError, match=r"cannot write .*taken"):
+        write_text_atomic(tmp_path / "taken" / "report.html", "<html></html>")
+
+
+@pytest.fixture
+def store(tmp_path) -> tuple[mlflow.MlflowClient, str]:
+    client = mlflow.MlflowClient(tracking_uri=f"sqlite:///{tmp_path / 'mlflow.db'}")
+    return client, client.create_experiment("e")
+
+
+def running(client, experiment_id, config_hash: str, written_by: str) -> str:
+    tags = {"config_hash": config_hash, WRITTEN_BY_TAG: written_by}
+    return client.create_run(experiment_id, tags=tags).info.run_id
+
+
+def test_only_runs_of_the_config_whose_writer_died_here_end_as_killed(store, dead_pid):
+    client, experiment_id = store
+    host = socket.gethostname()
+    dead = running(client, experiment_id, "h1", f"{host}:{dead_pid}")
+    alive = running(client, experiment_id, "h1", f"{host}:{os.getppid()}")
+    elsewhere = running(client, experiment_id, "h1", f"another-host:{dead_pid}")
+    other_config = running(client, experiment_id, "h2", f"{host}:{dead_pid}")
+    untagged = client.create_run(experiment_id, tags={"config_hash": "h1"}).info.run_id
+
+    assert end_killed_runs(client, "e", "config_hash", "h1") == [dead]
+    status = {run_id: client.get_run(run_id).info.status
+              for run_id in (dead, alive, elsewhere, other_config, untagged)}
+    assert status == {dead: "KILLED", alive: "RUNNING", elsewhere: "RUNNING",
+                      other_config: "RUNNING", untagged: "RUNNING"}
+    tags = client.get_run(dead).data.tags
+    assert tags[FOUND_BY_TAG] == writer()
+    assert pd.Timestamp(tags[FOUND_AT_TAG]).tzname() == "UTC"    # ISO 8601 with its offset
+
+
+def test_a_job_started_again_forgets_its_earlier_outcome(tmp_path):
+    job = tmp_path / "0"
+    (job / "run").mkdir(parents=True)
+    (job / "run" / "summary.json").write_text("{}")
+    (job / FAILURE_FILE).write_text("{}")
+    clear_job_outcome(job)
+    assert list(job.iterdir()) == []
+
+
+def test_jobs_without_an_outcome_are_listed_unfinished(tmp_path):
+    for job, outcome in (("0", "run/summary.json"), ("1", FAILURE_FILE), ("2", None),
+                         ("10", None)):
+        (tmp_path / job / ".hydra").mkdir(parents=True)
+        if outcome:
+            (tmp_path / job / outcome).parent.mkdir(parents=True, exist_ok=True)
+            (tmp_path / job / outcome).write_text("{}")
+    assert unfinished_jobs(tmp_path) == ["2", "10"]
+    frame = sweep_frame([], unfinished=["2", "10"])
+    assert list(frame["run"]) == ["job 2", "job 10"]
+    assert set(frame["status"]) == {"unfinished"}
