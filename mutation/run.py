@@ -9,10 +9,13 @@ every other survivor is listed in the report with its diff, as a test to write.
 
 Kill rate = killed / (mutants - equivalent - not run). Mutants that no selected test reaches
 count as not killed; mutants of an interrupted run that were never tried count as not run
-(``--report-only`` writes the report of a run folder as it stands, e.g. after an interruption). ``--min-rate`` makes the exit status 1 when a module falls below it.
+(``--report-only`` writes the report of run folders as they stand, e.g. after an
+interruption; given several ``--workdir`` folders, each of one module's separate run, it merges
+them into one report). ``--min-rate`` makes the exit status 1 when a module falls below it.
 
 Run: ``python -m mutation.run [--smoke] [--modules M ...] [--out reports/mutation.md]
-[--workers N] [--min-rate P]``.
+[--workdir DIR] [--workers N] [--min-rate P]``; merge separate runs with ``python -m
+mutation.run --report-only --workdir DIR1 DIR2 ...``.
 """
 
 from __future__ import annotations
@@ -151,6 +154,19 @@ def collect(workdir: Path, targets: dict[str, list[str]],
     return {module: results[module] for module in modules if module in results}
 
 
+def merged(parts: list[dict[str, ModuleResult]], targets: dict[str, list[str]]
+           ) -> dict[str, ModuleResult]:
+    """One result per module, in the order of ``targets``; a module found in two run folders is
+    an error (which of the two runs would count is not for the report to guess)."""
+    found: dict[str, ModuleResult] = {}
+    for part in parts:
+        twice = sorted(set(found) & set(part))
+        if twice:
+            raise SystemExit(f"modules {twice} are in more than one --workdir")
+        found.update(part)
+    return {module: found[module] for module in targets if module in found}
+
+
 def report(results: dict[str, ModuleResult], command: str, mode: str) -> str:
     lines = [f"# Mutation testing ({mode})", "",
              f"Generated {datetime.datetime.now(datetime.UTC):%Y-%m-%d %H:%M} UTC by `{command}` "
@@ -189,7 +205,9 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--modules", nargs="+", default=None,
                         help="only these modules of the full run (paths as in targets.py)")
     parser.add_argument("--out", type=Path, default=None)
-    parser.add_argument("--workdir", type=Path, default=None)
+    parser.add_argument("--workdir", type=Path, nargs="+", default=None,
+                        help="the run folder (default .mutation/<mode>); several with "
+                             "--report-only: one report of their modules")
     parser.add_argument("--workers", type=int, default=2)
     parser.add_argument("--report-only", action="store_true",
                         help="no run: report the mutants of --workdir as they stand")
@@ -203,16 +221,21 @@ def main(argv: list[str] | None = None) -> int:
         if unknown:
             parser.error(f"--modules {unknown}: not in mutation/targets.py FULL")
         targets = {module: FULL[module] for module in args.modules}
-    workdir = args.workdir or ROOT / ".mutation" / mode
+    workdirs = args.workdir or [ROOT / ".mutation" / mode]
+    if len(workdirs) > 1 and not args.report_only:
+        parser.error("several --workdir folders only with --report-only")
     out = args.out or ROOT / "reports" / ("mutation-smoke.md" if args.smoke else "mutation.md")
     if not args.report_only:
         # the smoke test loads no torch, so its mutants fork straight from mutmut's process;
         # torch is not fork-safe, so the full run forks them from a server that never ran it
+        workdir = workdirs[0]
         prepare(workdir, targets, "fork" if args.smoke else "forkserver")
         log = workdir / "mutmut-run.log"
         print(f"mutmut over {len(targets)} module(s) in {workdir}; progress in {log}", flush=True)
         mutmut(workdir, "run", "--max-children", str(args.workers), log=log)
-    results = collect(workdir, targets, load_equivalents(ROOT / "mutation" / "equivalent.toml"))
+    results = merged([collect(workdir, targets, load_equivalents(ROOT / "mutation" /
+                                                                 "equivalent.toml"))
+                      for workdir in workdirs], targets)
     command = "python -m mutation.run " + " ".join(argv if argv is not None else sys.argv[1:])
     out.parent.mkdir(parents=True, exist_ok=True)
     out.write_text(report(results, command.strip(), mode), encoding="utf-8")

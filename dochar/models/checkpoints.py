@@ -34,9 +34,11 @@ log = logging.getLogger(__name__)
 
 
 def inputs_digest(*graph_sets: Sequence[Data]) -> str:
-    """Digest of the tensors training sees (features, labels, edges, character ids)."""
+    """Digest of the tensors training sees (features, labels, edges, character ids), set by
+    set: a page moved from training to validation makes other inputs."""
     digest = hashlib.sha256()
     for graphs in graph_sets:
+        digest.update(f"set of {len(graphs)} graphs".encode())
         for graph in graphs:
             for name in ("x", "y", "edge_index", "edge_type", "chars"):
                 value = getattr(graph, name, None)
