@@ -50,6 +50,7 @@ ROW_LINK = "row"    # the links table's kind that rows are made of (not a key ->
 LINK, NO_LINK = "link", "none"
 LINK_LABELS: tuple[str, ...] = (NO_LINK, LINK)
 CANDIDATE_SOURCES: tuple[str, ...] = ("graph", "distance")
+THRESHOLD_BY: tuple[str, ...] = ("links", "rows")
 UNASSIGNED = "~w"   # prefix of the entity id a word without entity_id gets (its own entity)
 
 
@@ -163,7 +164,8 @@ class Links:
 
     Candidates come from the graph builder's edges (``candidates.source: graph``) or from every
     pair within ``candidates.max_distance`` of the page diagonal (``distance``); the decision
-    threshold is chosen on validation pairs only.
+    threshold is chosen on validation pairs only, by link F1 or (``threshold_by: rows``, for
+    ``link_kind: rows``) by the row F1 its connected components give.
     """
 
     name: ClassVar[str] = "links"
@@ -175,6 +177,7 @@ class Links:
     candidates: Mapping[str, Any] = field(default_factory=lambda: {"source": "graph",
                                                                    "max_distance": 0.1})
     negative_ratio: float | None = None
+    threshold_by: str = "links"       # the validation score of the link cut: links | rows
     embedding_dim: int = 64
     pair_head: Mapping[str, Any] = field(default_factory=lambda: {"hidden_dim": 64,
                                                                   "dropout": 0.2})
@@ -196,6 +199,10 @@ class Links:
         if self.negative_ratio is not None and not float(self.negative_ratio) > 0:
             raise LinkTaskError(f"task.negative_ratio must be null or positive, "
                                 f"got {self.negative_ratio!r}")
+        if self.threshold_by not in THRESHOLD_BY or (self.threshold_by == "rows"
+                                                     and self.link_kind != "rows"):
+            raise LinkTaskError(f"task.threshold_by={self.threshold_by!r}: choose one of "
+                                f"{list(THRESHOLD_BY)} ('rows' with link_kind=rows only)")
         if int(self.embedding_dim) < 1:
             raise LinkTaskError(f"task.embedding_dim must be a positive int, "
                                 f"got {self.embedding_dim!r}")
