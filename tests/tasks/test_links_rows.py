@@ -18,6 +18,7 @@ from dochar.graphs.reading_order import ReadingOrderBuilder
 from dochar.metrics.evaluate import SCORER_KINDS
 from dochar.metrics.intervals import bootstrap_scores
 from dochar.metrics.links import RowF1
+from dochar.models.objectives import best_threshold, row_f1_at
 from dochar.tasks.links import LinkTaskError, Links, link_pages
 
 
@@ -121,3 +122,23 @@ def test_candidate_recall_reports_row_links():
     assert recall["true_links_rows"] == 4
     assert recall["candidate_recall_rows"] == 1.0
     assert recall["true_links_key_value"] == 1
+
+
+def test_link_cut_chosen_by_row_f1():
+    # two pages kept apart by node offsets: page 1 nodes 0..2 (true row {0,1}, 2 alone),
+    # page 2 nodes 3..5 (true row {3,4,5})
+    pairs = np.array([[0, 1, 3, 4], [1, 2, 4, 5]])
+    truth = np.array([True, False, True, True])
+    probability = np.array([0.9, 0.7, 0.8, 0.6])
+    # cut 0.65: links 0-1, 1-2, 3-4 -> rows {0,1,2} {3,4}: no true row matched, F1 0
+    assert row_f1_at(probability, truth, pairs, 0.65) == 0.0
+    # cut 0.5: every link -> {0,1,2} {3,4,5}: {3,4,5} right, F1 = 2*1 / (2 + 2) = 0.5
+    assert row_f1_at(probability, truth, pairs, 0.5) == 0.5
+    # cut 0.75: links 0-1, 3-4 -> {0,1} right, {3,4} wrong: F1 = 2*1 / (2 + 2) = 0.5
+    # cut 0.85: link 0-1 only -> {0,1} right, nothing else: F1 = 2*1 / (1 + 2) = 2/3 (best)
+    # cut 0.95: no link, no predicted row: F1 = 0 / (0 + 2) = 0
+    # on the grid 0.05, 0.10 .. 0.95 the cuts in (0.8, 0.9] give 2/3: the first is 0.85
+    threshold, score = best_threshold(probability, truth, rows=pairs)
+    assert threshold == pytest.approx(0.85) and score == pytest.approx(2 / 3)
+    # link F1 picks another cut: 0.05 gives TP 3, FP 1: 6/7; 0.85 gives TP 1, FN 2: 2/4
+    assert best_threshold(probability, truth) == (pytest.approx(0.05), pytest.approx(6 / 7))
