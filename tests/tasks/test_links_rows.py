@@ -13,6 +13,7 @@ import pandas as pd
 import pytest
 
 from dochar.data.word_table import Page
+from dochar.graphs.candidates import missed_links
 from dochar.graphs.diagnostics import candidate_recall
 from dochar.graphs.reading_order import ReadingOrderBuilder
 from dochar.metrics.evaluate import SCORER_KINDS
@@ -142,3 +143,12 @@ def test_link_cut_chosen_by_row_f1():
     assert threshold == pytest.approx(0.85) and score == pytest.approx(2 / 3)
     # link F1 picks another cut: 0.05 gives TP 3, FP 1: 6/7; 0.85 gives TP 1, FN 2: 2/4
     assert best_threshold(probability, truth) == (pytest.approx(0.05), pytest.approx(6 / 7))
+
+
+def test_rows_that_interleave_in_node_order_miss_their_links():
+    # nodes 0..3 in rows a = {0, 2} and b = {1, 3} (a table read column by column); the only
+    # candidates join 0-1 and 2-3, across rows: each row is split in two pieces, so one link
+    # per row is missed, reported as the pair of its pieces' first nodes: (0, 2) and (1, 3)
+    missed = missed_links(np.zeros((2, 0), np.int64), np.array([[0, 2], [1, 3]]), 4,
+                          directed=False, entities=np.array(["a", "b", "a", "b"], object))
+    assert sorted(map(tuple, missed.T.tolist())) == [(0, 2), (1, 3)]
