@@ -76,6 +76,15 @@ class FormJsonDataSchema(DataSchema):
 
 
 @dataclass
+class ReceiptJsonDataSchema(DataSchema):
+    """Receipt JSON (CORD's layout, :mod:`dochar.data.importers.cord`)."""
+
+    source: str = "receipt_json"
+    path: str = MISSING
+    label_map: str = "fine"               # fine: the categories | coarse: the mapped names
+
+
+@dataclass
 class WordTableDataSchema(DataSchema):
     source: str = "word_table"
     path: str = MISSING
@@ -263,6 +272,7 @@ SCHEMAS: dict[tuple[str | None, str], type] = {
     (None, "base_config"): DocharSchema,
     ("data", "base_synth"): SynthDataSchema,
     ("data", "base_form_json"): FormJsonDataSchema,
+    ("data", "base_receipt_json"): ReceiptJsonDataSchema,
     ("data", "base_word_table"): WordTableDataSchema,
     ("data", "base_imported"): ImportedDataSchema,
     ("data", "base_pdf"): PdfDataSchema,

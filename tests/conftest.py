@@ -13,3 +13,8 @@ from tests.helpers import require_dataset
 @pytest.fixture(scope="session")
 def funsd_root() -> Path:
     return require_dataset("funsd")
+
+
+@pytest.fixture(scope="session")
+def cord_root() -> Path:
+    return require_dataset("cord")

@@ -3,7 +3,7 @@
 Each source kind converts into the word table and nothing else; validation is shared, so a
 synthetic set, an imported dataset and a user's own table obey the same rules. The links table
 (:mod:`dochar.data.links_table`) travels beside the words: generated (synth), imported (form
-JSON) or read from ``data.links_path`` (word_table); it is validated against the words kept.
+JSON's key -> value links, receipt JSON's row links) or read from ``data.links_path`` (word_table); it is validated against the words kept.
 """
 
 from __future__ import annotations
@@ -30,7 +30,7 @@ from dochar.data.word_table import (
 )
 
 log = logging.getLogger(__name__)
-SOURCES = ("synth", "form_json", "word_table", "pdf", "hocr", "alto", "image")
+SOURCES = ("synth", "form_json", "receipt_json", "word_table", "pdf", "hocr", "alto", "image")
 
 
 @dataclass
@@ -79,6 +79,25 @@ def _load_raw(data_cfg: Mapping[str, Any], progress: bool
         links = report.links_frame()
         links.attrs["source"] = f"{data_cfg['path']} (linking fields)"
         return frame, {"import_empty_text_dropped": report.dropped["words without text"],
+                       "import_boxes_clipped": report.repairs["boxes clipped to the page"],
+                       "import_files_reported": len(report.problems)}, links
+    if source == "receipt_json":
+        from dochar.data.importers.cord import import_receipts
+
+        if not Path(data_cfg["path"]).exists():
+            raise WordTableError(f"data.path={data_cfg['path']}: no such folder (relative paths "
+                                 f"start at {Path.cwd()}; set DOCHAR_DATASETS to the folder "
+                                 "holding the datasets, or data.path=...)")
+        frame, report = import_receipts([data_cfg["path"]],
+                                        label_map=str(data_cfg.get("label_map", "fine")))
+        frame.attrs["source"] = str(data_cfg["path"])
+        log.info("import: %s", report.summary())
+        if report.problems:
+            log.warning("import problems:\n  %s", "\n  ".join(map(str, report.problems)))
+        links = report.links_frame()
+        links.attrs["source"] = f"{data_cfg['path']} (line items' group_id)"
+        return frame, {"import_words_read": report.words_read,
+                       "import_words_kept": report.words_kept,
                        "import_boxes_clipped": report.repairs["boxes clipped to the page"],
                        "import_files_reported": len(report.problems)}, links
     if source == "word_table":

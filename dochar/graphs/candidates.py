@@ -109,8 +109,11 @@ def missed_links(true_links: np.ndarray, pairs: np.ndarray, n: int, directed: bo
     graph = coo_matrix((np.ones(int(inside.sum())), (source[inside], target[inside])),
                        shape=(n, n))
     _, piece = connected_components(graph, directed=False)
+    # pieces of one entity side by side (stable: node order within it), so entities that
+    # interleave in node order (rows of a table read column by column) miss their links too
     first = pd.DataFrame({"node": np.arange(n), "entity": entities, "piece": piece}
-                         ).drop_duplicates(["entity", "piece"])
+                         ).drop_duplicates(["entity", "piece"]).sort_values("entity",
+                                                                            kind="stable")
     same = first["entity"].to_numpy()[1:] == first["entity"].to_numpy()[:-1]
     nodes = first["node"].to_numpy()
     return np.stack([nodes[:-1][same], nodes[1:][same]]).astype(np.int64).reshape(2, -1)

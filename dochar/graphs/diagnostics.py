@@ -26,7 +26,7 @@ from scipy.sparse.csgraph import connected_components
 from dochar.data.word_table import Page
 from dochar.graphs.base import GraphBuilder, TypedEdges
 from dochar.graphs.candidates import CandidateOptions, candidate_pairs, missed_links
-from dochar.tasks.links import link_pages
+from dochar.tasks.links import ROW_LINK, link_pages
 
 SAME_BAND = 0.5   # overlap, as a share of the smaller extent, for two cells to share a row/column
 
@@ -240,12 +240,15 @@ def candidate_recall(pages: Iterable[Page], builder: GraphBuilder,
                      links: pd.DataFrame | None = None,
                      options: CandidateOptions | None = None) -> CandidateRecall:
     """Share of true links the builder's candidate pairs can supply, for word grouping
-    (``same_entity``, on the words) and, when a links table is given, ``key_value`` (on the
-    segments); see :mod:`dochar.graphs.candidates`. Pages without entity ids are left out."""
+    (``same_entity``, on the words) and, when a links table is given, ``key_value`` (its links
+    other than ``row``) and ``rows`` (its ``row`` links), on the segments; see
+    :mod:`dochar.graphs.candidates`. Pages without entity ids are left out."""
     pages = [page for page in pages if page.entity_ids is not None]
     options = options or CandidateOptions()
     recall = CandidateRecall()
-    kinds = ["same_entity"] + (["key_value"] if links is not None and len(links) else [])
+    present = set() if links is None else set(links["kind"].astype(str))
+    kinds = (["same_entity"] + (["key_value"] if present - {ROW_LINK} else [])
+             + (["rows"] if ROW_LINK in present else []))
     for kind in kinds:
         total = found = pair_count = 0
         for page in link_pages(pages, kind, links):

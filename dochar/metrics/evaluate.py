@@ -22,7 +22,7 @@ import pandas as pd
 from dochar.metrics.calibration import expected_calibration_error
 from dochar.metrics.entities import entity_scores
 from dochar.metrics.intervals import bootstrap_interval
-from dochar.metrics.links import GroupingF1, LinkScore
+from dochar.metrics.links import GroupingF1, LinkScore, RowF1
 from dochar.metrics.scorers import EntityF1, WordF1
 from dochar.metrics.seen_unseen import side_metrics
 from dochar.metrics.tags import TagEntityF1, tag_entity_scores
@@ -39,6 +39,7 @@ SCORER_KINDS: dict[str, Callable[[Task, Sequence[str], Sequence[str]], Any]] = {
     "link_precision": lambda task, labels, ignore: LinkScore("precision"),
     "link_recall": lambda task, labels, ignore: LinkScore("recall"),
     "word_grouping": lambda task, labels, ignore: GroupingF1(),
+    "row_grouping": lambda task, labels, ignore: RowF1(),
 }
 # kinds whose per-class entity table the run keeps beside the score
 ENTITY_TABLES: dict[str, Callable[[pd.DataFrame, Sequence[str], Task, Sequence[str]], Any]] = {

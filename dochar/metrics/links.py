@@ -10,7 +10,8 @@ FN) (van Rijsbergen's F-measure, beta = 1), each 0 where its denominator is 0.
 Entity F1 of word grouping (``same_entity``): predicted entities are the connected components of
 the predicted links over the page's words; true entities the ``entity_id`` groups. An entity
 counts as correct when its word set is exactly a true entity's word set; single-word entities
-count too (keeping a word apart is a decision). F1 = 2 correct / (predicted + true). Words that
+count too (keeping a word apart is a decision). F1 = 2 correct / (predicted + true). Row F1
+(``rows``) is the same count over groups of two nodes or more (:class:`RowF1`). Words that
 appear in no row (no candidate pair, no true link) are single-word entities on both sides, so
 each adds one correct, one predicted and one true entity; ``page_nodes`` gives their number.
 """
@@ -85,8 +86,8 @@ class LinkScore:
         return f"LinkScore({self.measure})"
 
 
-def _page_entity_counts(rows: pd.DataFrame) -> tuple[int, int, int]:
-    """(correct, predicted, true) entities of one page's rows."""
+def _page_entity_counts(rows: pd.DataFrame, min_size: int = 1) -> tuple[int, int, int]:
+    """(correct, predicted, true) groups of at least ``min_size`` nodes of one page's rows."""
     nodes = pd.unique(np.concatenate([rows["source"].to_numpy(), rows["target"].to_numpy()]))
     index = {node: i for i, node in enumerate(nodes)}
     entity_of = dict(zip(rows["source"], rows["source_entity"].astype(str)))
@@ -96,16 +97,21 @@ def _page_entity_counts(rows: pd.DataFrame) -> tuple[int, int, int]:
     b = np.array([index[t] for t in positive["target"]], dtype=np.int64)
     graph = coo_matrix((np.ones(len(a)), (a, b)), shape=(len(nodes), len(nodes)))
     _, component = connected_components(graph, directed=False)
-    predicted_sets = pd.Series(range(len(nodes))).groupby(component).apply(frozenset)
-    true_entities = pd.Series(range(len(nodes))).groupby(
+    predicted_sets = {group for group in pd.Series(range(len(nodes))).groupby(component).apply(
+        frozenset) if len(group) >= min_size}
+    true_entities = {group for group in pd.Series(range(len(nodes))).groupby(
         np.array([entity_of[n] for n in nodes], dtype=object)).apply(frozenset)
-    correct = len(set(predicted_sets) & set(true_entities))
-    outside = int(rows["page_nodes"].iloc[0]) - len(nodes)   # isolated single-word entities
+        if len(group) >= min_size}
+    correct = len(predicted_sets & true_entities)
+    # isolated nodes: single-node groups on both sides, counted only when min_size allows
+    outside = int(rows["page_nodes"].iloc[0]) - len(nodes) if min_size <= 1 else 0
     return correct + outside, len(predicted_sets) + outside, len(true_entities) + outside
 
 
 class GroupingF1:
     """Entity F1 of word grouping from per-document (correct, predicted, true) entity counts."""
+
+    min_size = 1
 
     def __call__(self, frame: pd.DataFrame) -> float:
         _, counts = self.group_counts(frame, None)
@@ -120,7 +126,8 @@ class GroupingF1:
         counts = pd.DataFrame(0.0, index=groups, columns=["correct", "predicted", "true"])
         for (group, _, _), rows in frame.groupby([keys, frame["doc_id"].astype(str),
                                                   frame["page"]], sort=False):
-            counts.loc[group] += np.array(_page_entity_counts(rows), dtype=float)
+            counts.loc[group] += np.array(_page_entity_counts(rows, self.min_size),
+                                          dtype=float)
         return groups, counts.to_numpy(dtype=float)
 
     def from_counts(self, counts: np.ndarray) -> np.ndarray:
@@ -129,6 +136,22 @@ class GroupingF1:
 
     def __repr__(self) -> str:
         return "GroupingF1()"
+
+
+class RowF1(GroupingF1):
+    """Row F1 (links task ``rows``): the grouping F1 over groups of two nodes or more.
+
+    Predicted rows are the connected components of the predicted links, true rows the nodes'
+    row groups (``source_entity`` / ``target_entity``); a predicted row is correct when its set
+    of nodes equals a true row's. A lone node is no row on either side (a table row or line
+    item of one cell needs no grouping), so F1 = 2 correct / (predicted + true) over rows of
+    size >= 2, from per-document counts (bootstrap intervals and paired tests resample them).
+    """
+
+    min_size = 2
+
+    def __repr__(self) -> str:
+        return "RowF1()"
 
 
 def link_scorers(kind: str) -> dict[str, LinkScore | GroupingF1]:

@@ -54,6 +54,17 @@ class FitInputs:
     def pairs(self) -> bool:
         return self.task.target == PAIRS
 
+    @property
+    def rows_threshold(self) -> bool:
+        """The link cut is chosen by validation row F1 (``task.threshold_by: rows``)."""
+        return getattr(self.task, "threshold_by", "links") == "rows"
+
+    def row_pairs(self, part: str) -> np.ndarray:
+        """Every candidate pair of the part, node indices offset so pages stay apart."""
+        offsets = np.cumsum([0, *(len(p) for p in self.sets[part].pages)])[:-1]
+        found = [c.pairs + offset for c, offset in zip(self.candidates[part], offsets)]
+        return np.hstack(found) if found else np.zeros((2, 0), np.int64)
+
     def missed(self, part: str) -> int:
         return sum(c.missed.shape[1] for c in (self.candidates or {}).get(part, []))
 
@@ -97,7 +108,7 @@ def fit_gnn(cfg: DictConfig, inputs: FitInputs) -> FittedModel:
     objective = objective_for(inputs.task.target, cfg.train, num_classes=len(inputs.labels),
                               seed=int(cfg.seed),
                               negative_ratio=getattr(inputs.task, "negative_ratio", None),
-                              val_missed=inputs.missed("val"))
+                              val_missed=inputs.missed("val"), rows=inputs.rows_threshold)
     checkpoint = _checkpoint(cfg, graphs)
     started = time.perf_counter()
     history = train(model, graphs["train"], graphs["val"], objective, cfg.train, int(cfg.seed),
@@ -186,15 +197,17 @@ def fit_baseline(cfg: DictConfig, inputs: FitInputs) -> FittedModel:
     val = probabilities("val") if inputs.sets["val"].pages else None
     threshold, score = None, float("nan")
     if val is not None and inputs.pairs:
-        threshold, score = best_threshold(val[:, 1], _targets(inputs, "val") == 1,
-                                          inputs.missed("val"))
+        threshold, score = best_threshold(
+            val[:, 1], _targets(inputs, "val") == 1, inputs.missed("val"),
+            rows=inputs.row_pairs("val") if inputs.rows_threshold else None)
     elif val is not None:   # the GNN's early-stopping score: macro F1 over the classes present
         score = float(f1_score(_targets(inputs, "val"), val.argmax(axis=1), average="macro",
                                zero_division=0))
     outputs = np.split(test[:, 1] if inputs.pairs else test, _sizes(inputs, "test"))
     cost = {"train_seconds": train_seconds, "parameters": float(estimator_size(estimator)),
             "pages_per_second": len(inputs.sets["test"].pages) / max(infer_seconds, 1e-9),
-            **_validation(score, "val_link_f1" if inputs.pairs else "val_macro_f1")}
+            **_validation(score, ("val_row_f1" if inputs.rows_threshold else "val_link_f1")
+                          if inputs.pairs else "val_macro_f1")}
     return FittedModel(estimator, arguments, outputs, cost,
                        threshold=(0.5 if threshold is None else threshold) if inputs.pairs
                        else None)

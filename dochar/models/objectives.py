@@ -14,6 +14,8 @@ from typing import Any
 
 import numpy as np
 import torch
+from scipy.sparse import coo_matrix
+from scipy.sparse.csgraph import connected_components
 from sklearn.metrics import f1_score
 from torch_geometric.data import Batch, Data
 
@@ -96,14 +98,46 @@ def sample_negatives(y: np.ndarray, ratio: float | None, rng: np.random.Generato
     return np.sort(np.concatenate([positives, keep]))
 
 
+def _groups(pairs: np.ndarray, n: int, keep: np.ndarray) -> set[frozenset]:
+    """Connected components of two nodes or more over the kept pairs."""
+    graph = coo_matrix((np.ones(int(keep.sum())), (pairs[0][keep], pairs[1][keep])),
+                       shape=(n, n))
+    _, component = connected_components(graph, directed=False)
+    sizes = np.bincount(component, minlength=n)
+    members: dict[int, list[int]] = {}
+    for node in np.flatnonzero(sizes[component] > 1):
+        members.setdefault(int(component[node]), []).append(int(node))
+    return {frozenset(group) for group in members.values()}
+
+
+def row_f1_at(probabilities: np.ndarray, labels: np.ndarray, pairs: np.ndarray,
+              threshold: float) -> float:
+    """Row F1 of the cut: predicted rows (components of the pairs at or above it) that equal a
+    true row (components of the true pairs), over rows of two nodes or more; the metric's
+    definition (:class:`dochar.metrics.links.RowF1`) with the true rows seen through the
+    candidates (a row the candidates split counts as its pieces)."""
+    pairs = np.asarray(pairs, np.int64).reshape(2, -1)
+    n = int(pairs.max()) + 1 if pairs.size else 0
+    predicted = _groups(pairs, n, probabilities >= threshold)
+    true = _groups(pairs, n, labels)
+    total = len(predicted) + len(true)
+    return 2 * len(predicted & true) / total if total else 0.0
+
+
 def best_threshold(probabilities: np.ndarray, labels: np.ndarray, missed: int = 0,
-                   grid: Sequence[float] | None = None) -> tuple[float, float]:
-    """(threshold, F1): the probability cut with the best link F1 on these (validation) pairs.
+                   grid: Sequence[float] | None = None,
+                   rows: np.ndarray | None = None) -> tuple[float, float]:
+    """(threshold, F1): the probability cut with the best link F1 on these (validation) pairs,
+    or with ``rows`` (the pairs' node indices, pages kept apart) the best row F1.
 
     ``missed`` true links were no candidates: they add to FN whatever the threshold.
     """
     probabilities, labels = np.asarray(probabilities, float), np.asarray(labels, bool)
     grid = np.linspace(0.05, 0.95, 19) if grid is None else np.asarray(grid, float)
+    if rows is not None:
+        scores = [row_f1_at(probabilities, labels, rows, cut) for cut in grid]
+        best = int(np.argmax(scores))
+        return float(grid[best]), float(scores[best])
     predicted = probabilities[None, :] >= grid[:, None]
     tp = (predicted & labels).sum(axis=1)
     fp = (predicted & ~labels).sum(axis=1)
@@ -134,9 +168,11 @@ class PairLinks:
     score_name = "val_link_f1"
 
     def __init__(self, class_weighting: str = "balanced", negative_ratio: float | None = None,
-                 seed: int = 0, val_missed: int = 0) -> None:
+                 seed: int = 0, val_missed: int = 0, rows: bool = False) -> None:
         self.class_weighting = check_class_weighting(class_weighting)
         self.negative_ratio, self.seed, self.val_missed = negative_ratio, seed, val_missed
+        self.rows = rows       # validation score and threshold by row F1, not link F1
+        self.score_name = "val_row_f1" if rows else "val_link_f1"
         self.loss_fn: torch.nn.Module | None = None
         self.threshold: float | None = 0.5
 
@@ -160,8 +196,9 @@ class PairLinks:
         return self.loss_fn(model(batch), batch.pair_y)
 
     def validate(self, model: torch.nn.Module, batch: Batch) -> tuple[float, float | None]:
-        threshold, score = best_threshold(model.probabilities(batch),
-                                          batch.pair_y.numpy() > 0.5, self.val_missed)
+        threshold, score = best_threshold(
+            model.probabilities(batch), batch.pair_y.numpy() > 0.5, self.val_missed,
+            rows=batch.pair_index.numpy() if self.rows else None)
         return score, threshold
 
     def outputs(self, model: torch.nn.Module, graphs: Sequence[Data]) -> list[np.ndarray]:
@@ -173,8 +210,10 @@ class PairLinks:
 
 
 def objective_for(target: str, train_cfg: Mapping[str, Any], *, num_classes: int, seed: int,
-                  negative_ratio: float | None = None, val_missed: int = 0) -> Any:
+                  negative_ratio: float | None = None, val_missed: int = 0,
+                  rows: bool = False) -> Any:
     """The objective of a task's target (nodes or pairs) under the run's ``train`` options."""
     if target == "pairs":
-        return PairLinks(str(train_cfg["class_weighting"]), negative_ratio, seed, val_missed)
+        return PairLinks(str(train_cfg["class_weighting"]), negative_ratio, seed, val_missed,
+                         rows)
     return NodeClasses(num_classes, check_class_weighting(str(train_cfg["class_weighting"])))

@@ -18,6 +18,8 @@ from omegaconf import DictConfig, OmegaConf
 
 from dochar import graphs
 from dochar.config import check_schema
+from dochar.data.importers.cord import LABEL_MAPS
+from dochar.data.word_table import WordTableError
 from dochar.errors import DocharError
 from dochar.features.char_cnn import CharCNNEncoder
 from dochar.features.featurizer import check_options
@@ -36,6 +38,7 @@ _TRAIN_MINIMA = {"max_epochs": 1, "patience": 1, "pages_per_batch": 1, "threads"
 def check_config(cfg: DictConfig) -> None:
     """Raise a DocharError naming the config key of the first option no stage can use."""
     check_schema(cfg)
+    _check_data(cfg.data)
     graphs.from_config(cfg.graph, cfg.get("edges"))
     _check_features(cfg.features, cfg.data)
     _check_model(cfg.model, list(cfg.data.labels))
@@ -44,6 +47,13 @@ def check_config(cfg: DictConfig) -> None:
 
 def _plain(node: Any) -> Any:
     return OmegaConf.to_container(node, resolve=True) if isinstance(node, DictConfig) else node
+
+
+def _check_data(data: DictConfig) -> None:
+    label_map = data.get("label_map")
+    if label_map is not None and label_map not in LABEL_MAPS:
+        raise WordTableError(f"config key data.label_map={label_map}: choose one of "
+                             f"{list(LABEL_MAPS)}")
 
 
 def _check_features(features: DictConfig, data: DictConfig) -> None:

@@ -54,7 +54,7 @@ def pair_frame(pages: Sequence[LinkPage], candidates: Sequence[PageCandidates],
         p_link = np.concatenate([prob, np.zeros(found.missed.shape[1])])
         truth = np.concatenate([found.y, np.ones(found.missed.shape[1], bool)])
         entities = np.asarray(page.entities, dtype=object)
-        node_ids = np.asarray(page.nodes.entity_ids if page.directed else
+        node_ids = np.asarray(page.nodes.entity_ids if page.segments else
                               page.nodes.word_ids, dtype=object)
         predicted = p_link >= threshold
         boxes = page.nodes.boxes

@@ -22,6 +22,7 @@ from dochar.errors import DocharError
 NODES, PAIRS = "nodes", "pairs"            # what a model of the task predicts
 MACRO_F1, MICRO_F1, ENTITY_F1 = "macro_f1", "micro_f1", "entity_f1"
 LINK_F1, LINK_PRECISION, LINK_RECALL = "link_f1", "link_precision", "link_recall"
+ROW_F1 = "row_f1"                          # rows of entities (line items) recovered exactly
 VALIDATION_SCORE = "val_score"             # the one validation figure every fitter logs
 
 

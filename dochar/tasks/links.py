@@ -11,7 +11,13 @@ Two kinds (``task.link_kind``):
   segment labelling task builds them (:func:`dochar.tasks.segment_labels.segment_page`: union
   box, words' text joined in reading order; here with the label of the segment's first word);
   the true links are the links table's rows of that page, directed ``source -> target``. ``task.link_table_kinds``
-  chooses which of the table's kinds count (null: all).
+  chooses which of the table's kinds count (null: every kind but ``row``).
+* ``rows``: nodes are the given segments, as for ``key_value``; the links table's ``row`` links
+  (the entities of one table row or line item, e.g. CORD's ``group_id``) join segments into
+  rows, undirected. Any two segments of one row are a true pair; a segment in no row is a row
+  of its own. Decoding: predicted rows are the connected components of the predicted links
+  (a link joins two rows whole, so one false link merges them: precision of links matters
+  more than recall). Headline: ``row_f1`` (:class:`dochar.metrics.links.RowF1`).
 """
 
 from __future__ import annotations
@@ -22,6 +28,8 @@ from typing import Any, ClassVar
 
 import numpy as np
 import pandas as pd
+from scipy.sparse import coo_matrix
+from scipy.sparse.csgraph import connected_components
 
 from dochar.data.word_table import Page
 from dochar.tasks.base import (
@@ -32,14 +40,17 @@ from dochar.tasks.base import (
     MACRO_F1,
     MICRO_F1,
     PAIRS,
+    ROW_F1,
     TaskError,
 )
 from dochar.tasks.segment_labels import segment_page
 
-LINK_KINDS: tuple[str, ...] = ("same_entity", "key_value")
+LINK_KINDS: tuple[str, ...] = ("same_entity", "key_value", "rows")
+ROW_LINK = "row"    # the links table's kind that rows are made of (not a key -> value link)
 LINK, NO_LINK = "link", "none"
 LINK_LABELS: tuple[str, ...] = (NO_LINK, LINK)
 CANDIDATE_SOURCES: tuple[str, ...] = ("graph", "distance")
+THRESHOLD_BY: tuple[str, ...] = ("links", "rows")
 UNASSIGNED = "~w"   # prefix of the entity id a word without entity_id gets (its own entity)
 
 
@@ -51,10 +62,11 @@ class LinkTaskError(TaskError):
 class LinkPage:
     """One page as the links task sees it: its nodes and its true links."""
 
-    nodes: Page                # words (same_entity) or segments (key_value), one node each
+    nodes: Page                # words (same_entity) or segments (key_value, rows), one node each
     true_links: np.ndarray     # (2, T) int64 node indices, row 0 = source, row 1 = target
-    entities: list[str]        # true entity id of each node (grouping truth)
+    entities: list[str]        # true group of each node: entity (same_entity) or row (rows)
     directed: bool
+    segments: bool = False     # nodes are segments (named by entity id), not words
 
     @property
     def key(self) -> str:
@@ -80,15 +92,33 @@ def _same_entity_page(page: Page) -> LinkPage:
                     directed=False)
 
 
-def _key_value_page(page: Page, links: pd.DataFrame) -> LinkPage:
+def _segment_links(page: Page, links: pd.DataFrame) -> tuple[Page, np.ndarray]:
+    """The page's segments (labelled by their first word) and the links between them."""
     nodes = segment_page(page, word_entities(page), None)
     if page.labels is not None:
         nodes.labels = [page.labels[int(members[0])] for members in nodes.members]
     index = {entity: i for i, entity in enumerate(nodes.entity_ids)}
     pairs = [(index[s], index[t]) for s, t in zip(links["source"], links["target"])
              if s in index and t in index]
-    true_links = np.array(pairs, dtype=np.int64).T.reshape(2, -1)
-    return LinkPage(nodes, true_links, list(nodes.entity_ids), directed=True)
+    return nodes, np.array(pairs, dtype=np.int64).T.reshape(2, -1)
+
+
+def _key_value_page(page: Page, links: pd.DataFrame) -> LinkPage:
+    nodes, true_links = _segment_links(page, links)
+    return LinkPage(nodes, true_links, list(nodes.entity_ids), directed=True, segments=True)
+
+
+def _rows_page(page: Page, links: pd.DataFrame) -> LinkPage:
+    """Rows are the connected components of the row links; a lone segment names its own."""
+    nodes, true_links = _segment_links(page, links)
+    n = len(nodes)
+    graph = coo_matrix((np.ones(true_links.shape[1]), (true_links[0], true_links[1])),
+                       shape=(n, n))
+    _, component = connected_components(graph, directed=False)
+    sizes = np.bincount(component, minlength=n) if n else np.zeros(0, int)
+    rows = [f"row{component[i]}" if sizes[component[i]] > 1 else str(entity)
+            for i, entity in enumerate(nodes.entity_ids)]
+    return LinkPage(nodes, true_links, rows, directed=False, segments=True)
 
 
 def link_pages(pages: Iterable[Page], kind: str, links: pd.DataFrame | None = None,
@@ -102,19 +132,30 @@ def link_pages(pages: Iterable[Page], kind: str, links: pd.DataFrame | None = No
     if kind == "same_entity":
         return [_same_entity_page(page) for page in pages]
     if links is None or links.empty:
-        raise LinkTaskError("task.link_kind=key_value needs a links table: data=synth and "
-                            "data=funsd bring one; for data=word_table set data.links_path")
-    if table_kinds is not None:
-        unknown = sorted(set(table_kinds) - set(links["kind"].astype(str)))
-        if unknown:
-            raise LinkTaskError(f"task.link_table_kinds: {unknown} not in the links table "
-                                f"(it has {sorted(set(links['kind'].astype(str)))})")
-        links = links[links["kind"].astype(str).isin(list(table_kinds))]
+        raise LinkTaskError(f"task.link_kind={kind} needs a links table: data=synth, "
+                            "data=funsd and data=cord bring one; for data=word_table set "
+                            "data.links_path")
+    present = set(links["kind"].astype(str))
+    if kind == "rows":
+        if ROW_LINK not in present:
+            raise LinkTaskError(f"task.link_kind=rows needs links of kind {ROW_LINK!r}; the "
+                                f"links table has {sorted(present)}")
+        table_kinds = (ROW_LINK,)
+    elif table_kinds is None:
+        table_kinds = tuple(sorted(present - {ROW_LINK}))
+        if not table_kinds:
+            raise LinkTaskError(f"task.link_kind=key_value: the links table has only "
+                                f"{ROW_LINK!r} links; use task.link_kind=rows")
+    unknown = sorted(set(table_kinds) - present)
+    if unknown:
+        raise LinkTaskError(f"task.link_table_kinds: {unknown} not in the links table "
+                            f"(it has {sorted(present)})")
+    links = links[links["kind"].astype(str).isin(list(table_kinds))]
     by_page = {key: rows for key, rows in links.groupby([links["doc_id"].astype(str),
                                                           links["page"].astype(int)])}
     empty = links.iloc[:0]
-    return [_key_value_page(page, by_page.get((page.doc_id, page.page), empty))
-            for page in pages]
+    build = _rows_page if kind == "rows" else _key_value_page
+    return [build(page, by_page.get((page.doc_id, page.page), empty)) for page in pages]
 
 
 @dataclass(frozen=True)
@@ -123,7 +164,8 @@ class Links:
 
     Candidates come from the graph builder's edges (``candidates.source: graph``) or from every
     pair within ``candidates.max_distance`` of the page diagonal (``distance``); the decision
-    threshold is chosen on validation pairs only.
+    threshold is chosen on validation pairs only, by link F1 or (``threshold_by: rows``, for
+    ``link_kind: rows``) by the row F1 its connected components give.
     """
 
     name: ClassVar[str] = "links"
@@ -135,6 +177,7 @@ class Links:
     candidates: Mapping[str, Any] = field(default_factory=lambda: {"source": "graph",
                                                                    "max_distance": 0.1})
     negative_ratio: float | None = None
+    threshold_by: str = "links"       # the validation score of the link cut: links | rows
     embedding_dim: int = 64
     pair_head: Mapping[str, Any] = field(default_factory=lambda: {"hidden_dim": 64,
                                                                   "dropout": 0.2})
@@ -156,6 +199,10 @@ class Links:
         if self.negative_ratio is not None and not float(self.negative_ratio) > 0:
             raise LinkTaskError(f"task.negative_ratio must be null or positive, "
                                 f"got {self.negative_ratio!r}")
+        if self.threshold_by not in THRESHOLD_BY or (self.threshold_by == "rows"
+                                                     and self.link_kind != "rows"):
+            raise LinkTaskError(f"task.threshold_by={self.threshold_by!r}: choose one of "
+                                f"{list(THRESHOLD_BY)} ('rows' with link_kind=rows only)")
         if int(self.embedding_dim) < 1:
             raise LinkTaskError(f"task.embedding_dim must be a positive int, "
                                 f"got {self.embedding_dim!r}")
@@ -170,6 +217,8 @@ class Links:
                  LINK_RECALL: "link_recall"}
         if self.link_kind == "same_entity":
             found[ENTITY_F1] = "word_grouping"
+        if self.link_kind == "rows":
+            found = {ROW_F1: "row_grouping", **found}
         return {**found, MACRO_F1: "word_macro", MICRO_F1: "word_micro"}
 
     @property
@@ -189,8 +238,8 @@ class Links:
         """Link pages of new pages, with no true links (a word without entity id stands alone)."""
         if self.link_kind == "same_entity":
             return [_same_entity_page(page) for page in pages]
-        return [_key_value_page(page, pd.DataFrame(columns=["source", "target"]))
-                for page in pages]
+        build = _rows_page if self.link_kind == "rows" else _key_value_page
+        return [build(page, pd.DataFrame(columns=["source", "target"])) for page in pages]
 
     def word_predictions(self, pages: Sequence[Page], frame: pd.DataFrame) -> pd.DataFrame:
         """Links are not word labels: the pair rows are the predictions (no word view)."""

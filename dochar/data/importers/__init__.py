@@ -1,7 +1,8 @@
 """Importers: documents in open formats -> the word table, with a summary of what was read.
 
 One module per format (``pdf``, ``hocr``, ``alto``, ``image``; form-annotation JSON through
-``dochar.data.importers.form_json``), one registry (``READERS``), one entry point (``import_sources``) shared
+``dochar.data.importers.form_json``, receipt JSON through ``dochar.data.importers.cord``; a
+``.json`` file is told apart by content), one registry (``READERS``), one entry point (``import_sources``) shared
 by ``dochar import`` and the ``data=pdf|hocr|alto|images`` sources of ``dochar run``.
 """
 
@@ -26,7 +27,7 @@ log = logging.getLogger(__name__)
 Reader = Callable[[Path, str, ImportSummary, bool, OcrSettings], list[dict]]
 SUFFIXES: dict[str, tuple[str, ...]] = {
     "pdf": (".pdf",), "hocr": (".hocr", ".html", ".htm", ".xhtml"), "alto": (".xml", ".alto"),
-    "image": IMAGE_SUFFIXES, "form_json": (".json",),
+    "image": IMAGE_SUFFIXES, "form_json": (".json",), "receipt_json": (".json",),
 }
 FUNSD_STYLE_FOLDERS = ("training_data", "testing_data")
 
@@ -38,6 +39,13 @@ def _read_form_json(path: Path, doc_id: str, summary: ImportSummary, ocr: bool,
     return read_form_file(path, summary)
 
 
+def _read_receipt_json(path: Path, doc_id: str, summary: ImportSummary, ocr: bool,
+                       settings: OcrSettings) -> list[dict]:
+    from dochar.data.importers.cord import read_receipt_file
+
+    return read_receipt_file(path, summary)
+
+
 READERS: dict[str, Reader] = {
     "pdf": lambda path, doc, summary, ocr, settings: read_pdf(path, doc, summary, ocr=ocr,
                                                               settings=settings),
@@ -45,13 +53,19 @@ READERS: dict[str, Reader] = {
     "alto": lambda path, doc, summary, ocr, settings: read_alto(path, doc, summary),
     "image": lambda path, doc, summary, ocr, settings: read_image(path, doc, summary, settings),
     "form_json": _read_form_json,
+    "receipt_json": _read_receipt_json,
 }
 FORMATS = ("auto", *READERS)
 
 
 def detect_format(path: Path) -> str | None:
-    """By suffix; an ``.xml`` or ``.html`` file holding ``ocr_page`` is hOCR, else ALTO/hOCR."""
+    """By suffix; an ``.xml`` or ``.html`` file holding ``ocr_page`` is hOCR, else ALTO/hOCR;
+    a ``.json`` file holding ``valid_line`` is receipt JSON, else form JSON."""
     suffix = path.suffix.lower()
+    if suffix == ".json":
+        from dochar.data.importers.cord import is_receipt_json
+
+        return "receipt_json" if is_receipt_json(path) else "form_json"
     if suffix in (".xml", ".html", ".htm", ".xhtml"):
         try:
             head = path.read_bytes()[:4096]
