@@ -11,7 +11,8 @@ Two kinds (``task.link_kind``):
   segment labelling task builds them (:func:`dochar.tasks.segment_labels.segment_page`: union
   box, words' text joined in reading order; here with the label of the segment's first word);
   the true links are the links table's rows of that page, directed ``source -> target``. ``task.link_table_kinds``
-  chooses which of the table's kinds count (null: all).
+  chooses which of the table's kinds count (null: every kind but ``row``, which joins the cells
+  of a table row and points from no key to a value).
 """
 
 from __future__ import annotations
@@ -23,6 +24,7 @@ from typing import Any, ClassVar
 import numpy as np
 import pandas as pd
 
+from dochar.data.links_table import ROW_KIND
 from dochar.data.word_table import Page
 from dochar.tasks.base import (
     ENTITY_F1,
@@ -110,6 +112,8 @@ def link_pages(pages: Iterable[Page], kind: str, links: pd.DataFrame | None = No
             raise LinkTaskError(f"task.link_table_kinds: {unknown} not in the links table "
                                 f"(it has {sorted(set(links['kind'].astype(str)))})")
         links = links[links["kind"].astype(str).isin(list(table_kinds))]
+    else:
+        links = links[links["kind"].astype(str) != ROW_KIND]
     by_page = {key: rows for key, rows in links.groupby([links["doc_id"].astype(str),
                                                           links["page"].astype(int)])}
     empty = links.iloc[:0]
