@@ -41,7 +41,8 @@ REPAIRS = (None, "clip")   # data.repair: nothing, or clip boxes within data.cli
 
 @dataclass
 class RecordSchema:
-    """``data.record``: the record's shape (dochar.records.shape), checked by check_config."""
+    """``data.record``: the record's shape (dochar.records.shape), checked by check_config;
+    naming no header field and no item column means the data has no records."""
 
     header_fields: List[str] = field(default_factory=list)
     item_columns: List[str] = field(default_factory=list)
@@ -62,7 +63,7 @@ class DataSchema:
     table_labels: List[str] = field(default_factory=list)   # classes of table cells (graph-stats)
     repair: Optional[str] = None          # null | clip (boxes a little past the page edge)
     clip_tolerance: float = 0.01          # clip: fraction of the page width/height allowed
-    record: Optional[RecordSchema] = None  # header fields and line-item columns
+    record: RecordSchema = field(default_factory=RecordSchema)   # none named: no records
 
 
 @dataclass

@@ -45,9 +45,10 @@ def check_config(cfg: DictConfig) -> None:
 
 
 def record_shape(data: DictConfig) -> RecordShape | None:
-    """The data's record shape (``data.record``), checked against its labels; None without."""
+    """The data's record shape (``data.record``), checked against its labels; None when it
+    names no header field and no item column."""
     block = data.get("record")
-    if block is None:
+    if block is None or not (block.get("header_fields") or block.get("item_columns")):
         return None
     return RecordShape.from_mapping(_plain(block), labels=list(data.labels))
 
