@@ -35,7 +35,8 @@ class Link:
     page: int
     source: str
     target: str
-    kind: str      # "key_value" (key phrase -> its value) or "column_cell" (heading -> cell)
+    kind: str      # "key_value" (key phrase -> its value), "column_cell" (heading -> cell) or
+                   # "row" (a table cell -> the next cell of its row)
 
 
 def text_width(text: str, size: float, bold: bool = False) -> float:

@@ -1,7 +1,8 @@
 """The table of tested parameters, spilling to a new page (heading repeated) when it runs out.
 
 Every cell is one entity labelled by its column; heading cells are "column_header", and each
-heading is linked to every cell below it on its page (kind ``column_cell``). Column
+heading is linked to every cell below it on its page (kind ``column_cell``), and each cell of a
+row to the next cell of that row (kind ``row``: the row is their chain). Column
 widths follow content, except that the analyte column is capped by the layout, so long analyte
 names wrap onto a second line where the family has a narrow analyte column.
 """
@@ -53,7 +54,8 @@ def _row(canvas: Canvas, texts: list[str], labels: list[str], xs: list[float],
          widths: list[float], y: float, layout: Layout, bold: bool,
          headings: list[str] | None = None) -> list[str]:
     """Place one row of cells; returns their entity ids. With ``headings`` (the entity ids of
-    this page's heading cells) each cell is linked from its column's heading."""
+    this page's heading cells) each cell is linked from its column's heading and from the cell
+    left of it in the row."""
     entities = []
     for index, (text, label, x, width, kind) in enumerate(zip(texts, labels, xs, widths,
                                                               layout.columns)):
@@ -62,6 +64,8 @@ def _row(canvas: Canvas, texts: list[str], labels: list[str], xs: list[float],
         if headings is not None:
             canvas.link(headings[index], entity, "column_cell")
         canvas.cell(text, x, y, width, layout.font_size, label, entity, bold=bold, align=align)
+        if headings is not None and entities:
+            canvas.link(entities[-1], entity, "row")
         entities.append(entity)
     return entities
 

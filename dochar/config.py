@@ -40,8 +40,21 @@ REPAIRS = (None, "clip")   # data.repair: nothing, or clip boxes within data.cli
 # --- data: one schema per source kind -------------------------------------------------------
 
 @dataclass
+class RecordSchema:
+    """``data.record``: the record's shape (dochar.records.shape), checked by check_config;
+    naming no header field and no item column means the data has no records."""
+
+    header_fields: List[str] = field(default_factory=list)
+    item_columns: List[str] = field(default_factory=list)
+    items_name: str = "items"
+    date_fields: List[str] = field(default_factory=list)
+    amount_fields: List[str] = field(default_factory=list)
+
+
+@dataclass
 class DataSchema:
-    """What every source shares: the label set, lexicons, and the word-table repair."""
+    """What every source shares: the label set, lexicons, the word-table repair, and the shape
+    of the records its documents carry (none: no record scores)."""
 
     source: str = MISSING
     name: str = MISSING
@@ -50,6 +63,7 @@ class DataSchema:
     table_labels: List[str] = field(default_factory=list)   # classes of table cells (graph-stats)
     repair: Optional[str] = None          # null | clip (boxes a little past the page edge)
     clip_tolerance: float = 0.01          # clip: fraction of the page width/height allowed
+    record: RecordSchema = field(default_factory=RecordSchema)   # none named: no records
 
 
 @dataclass

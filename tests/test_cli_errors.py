@@ -189,6 +189,8 @@ NO_DATA = ("data=word_table", "data.path=no/such/words.csv", "data.labels=[analy
     (["train.class_weighting=inverse"], "config key train.class_weighting='inverse'"),
     (["train.pages_per_batch=0"], "config key train.pages_per_batch=0"),
     (["train.learning_rate=0"], "config key train.learning_rate=0"),
+    (["data.record.item_columns=[analyte,lot]"],
+     "config key data.record.item_columns: label 'lot' is not one of data.labels"),
 ])
 def test_an_option_no_stage_can_use_fails_before_any_data_loads(capsys, monkeypatch, tmp_path,
                                                                  overrides, expected):

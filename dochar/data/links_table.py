@@ -20,6 +20,7 @@ from dochar.data.word_table import Problem, WordTableError
 
 LINK_COLUMNS: tuple[str, ...] = ("doc_id", "page", "source", "target", "kind")
 TEXT_COLUMNS: tuple[str, ...] = ("doc_id", "source", "target", "kind")
+ROW_KIND = "row"   # two cells of one table row (a line item); the other kinds point key -> value
 
 
 class LinksTableError(WordTableError):

@@ -26,7 +26,8 @@ from scipy.sparse.csgraph import connected_components
 from dochar.data.word_table import Page
 from dochar.graphs.base import GraphBuilder, TypedEdges
 from dochar.graphs.candidates import CandidateOptions, candidate_pairs, missed_links
-from dochar.tasks.links import ROW_LINK, link_pages
+from dochar.data.links_table import ROW_KIND
+from dochar.tasks.links import link_pages
 
 SAME_BAND = 0.5   # overlap, as a share of the smaller extent, for two cells to share a row/column
 
@@ -247,8 +248,8 @@ def candidate_recall(pages: Iterable[Page], builder: GraphBuilder,
     options = options or CandidateOptions()
     recall = CandidateRecall()
     present = set() if links is None else set(links["kind"].astype(str))
-    kinds = (["same_entity"] + (["key_value"] if present - {ROW_LINK} else [])
-             + (["rows"] if ROW_LINK in present else []))
+    kinds = (["same_entity"] + (["key_value"] if present - {ROW_KIND} else [])
+             + (["rows"] if ROW_KIND in present else []))
     for kind in kinds:
         total = found = pair_count = 0
         for page in link_pages(pages, kind, links):

@@ -29,6 +29,7 @@ from dochar.models.baselines import check_baseline_options, make_template
 from dochar.models.gnn import GNNStack
 from dochar.models.layers import LayerOptionError
 from dochar.models.objectives import TrainOptionError, check_class_weighting
+from dochar.records.shape import RecordShape
 
 # train.* numbers and the least value each may take
 _TRAIN_MINIMA = {"max_epochs": 1, "patience": 1, "pages_per_batch": 1, "threads": 1,
@@ -43,6 +44,16 @@ def check_config(cfg: DictConfig) -> None:
     _check_features(cfg.features, cfg.data)
     _check_model(cfg.model, list(cfg.data.labels))
     _check_train(cfg.train)
+    record_shape(cfg.data)
+
+
+def record_shape(data: DictConfig) -> RecordShape | None:
+    """The data's record shape (``data.record``), checked against its labels; None when it
+    names no header field and no item column."""
+    block = data.get("record")
+    if block is None or not (block.get("header_fields") or block.get("item_columns")):
+        return None
+    return RecordShape.from_mapping(_plain(block), labels=list(data.labels))
 
 
 def _plain(node: Any) -> Any:

@@ -31,6 +31,7 @@ import pandas as pd
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
+from dochar.data.links_table import ROW_KIND
 from dochar.data.word_table import Page
 from dochar.tasks.base import (
     ENTITY_F1,
@@ -46,7 +47,6 @@ from dochar.tasks.base import (
 from dochar.tasks.segment_labels import segment_page
 
 LINK_KINDS: tuple[str, ...] = ("same_entity", "key_value", "rows")
-ROW_LINK = "row"    # the links table's kind that rows are made of (not a key -> value link)
 LINK, NO_LINK = "link", "none"
 LINK_LABELS: tuple[str, ...] = (NO_LINK, LINK)
 CANDIDATE_SOURCES: tuple[str, ...] = ("graph", "distance")
@@ -137,15 +137,15 @@ def link_pages(pages: Iterable[Page], kind: str, links: pd.DataFrame | None = No
                             "data.links_path")
     present = set(links["kind"].astype(str))
     if kind == "rows":
-        if ROW_LINK not in present:
-            raise LinkTaskError(f"task.link_kind=rows needs links of kind {ROW_LINK!r}; the "
+        if ROW_KIND not in present:
+            raise LinkTaskError(f"task.link_kind=rows needs links of kind {ROW_KIND!r}; the "
                                 f"links table has {sorted(present)}")
-        table_kinds = (ROW_LINK,)
+        table_kinds = (ROW_KIND,)
     elif table_kinds is None:
-        table_kinds = tuple(sorted(present - {ROW_LINK}))
+        table_kinds = tuple(sorted(present - {ROW_KIND}))
         if not table_kinds:
             raise LinkTaskError(f"task.link_kind=key_value: the links table has only "
-                                f"{ROW_LINK!r} links; use task.link_kind=rows")
+                                f"{ROW_KIND!r} links; use task.link_kind=rows")
     unknown = sorted(set(table_kinds) - present)
     if unknown:
         raise LinkTaskError(f"task.link_table_kinds: {unknown} not in the links table "

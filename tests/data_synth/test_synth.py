@@ -325,3 +325,23 @@ def test_generated_links_follow_the_layout_truth():
         overlap = (np.minimum(source["x1"].to_numpy(), target["x1"].to_numpy())
                    - np.maximum(source["x0"].to_numpy(), target["x0"].to_numpy()))
         assert (overlap > 0).all() and (target["y0"].to_numpy() > source["y0"].to_numpy()).all()
+
+
+def test_row_links_chain_the_cells_of_each_table_row():
+    # kind row: each cell points to the next cell of its row, left to right, on one line
+    # (cells of a row share their top edge when the page is clean)
+    from data_synth.generator import iter_documents_with_links
+    from data_synth.layouts import COLUMNS
+
+    for words, links in iter_documents_with_links(12, seed=4):
+        first = words.groupby("entity_id").agg(page=("page", "first"), x0=("x0", "min"),
+                                               y0=("y0", "min"), label=("label", "first"))
+        rows = links[links["kind"] == "row"]
+        source, target = first.loc[rows["source"]], first.loc[rows["target"]]
+        assert set(source["label"]) | set(target["label"]) <= set(COLUMNS)
+        assert (source["y0"].to_numpy() == target["y0"].to_numpy()).all()
+        assert (source["x0"].to_numpy() < target["x0"].to_numpy()).all()
+        # every body cell is in its row's chain: a chain of k cells has k - 1 links
+        cells = first[first["label"].isin(COLUMNS)]
+        table_rows = cells.groupby(["page", "y0"]).ngroups
+        assert len(rows) == len(cells) - table_rows

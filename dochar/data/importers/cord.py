@@ -34,10 +34,10 @@ from pathlib import Path
 import pandas as pd
 
 from dochar.data.importers.base import ImportSummary
+from dochar.data.links_table import ROW_KIND
 from dochar.data.word_table import WordTableError
 
 KEY_LABEL = "key"
-ROW_LINK = "row"
 ITEM_PREFIXES = ("menu.", "void_menu.")
 LABEL_MAPS = ("fine", "coarse")
 COARSE_LABELS: dict[str, tuple[str, ...]] = {
@@ -171,7 +171,7 @@ def row_links(words: list[dict], doc_id: str) -> list[dict]:
             group = members[word["group"]]
             if word["entity_id"] not in group:
                 group.append(word["entity_id"])
-    return [{"doc_id": doc_id, "page": 1, "source": a, "target": b, "kind": ROW_LINK}
+    return [{"doc_id": doc_id, "page": 1, "source": a, "target": b, "kind": ROW_KIND}
             for group in members.values() for a, b in zip(group, group[1:])]
 
 

@@ -1,0 +1,123 @@
+"""Records from words: shape checks, normalisation, row grouping, the synthetic round trip."""
+
+from __future__ import annotations
+
+import json
+
+import pandas as pd
+import pytest
+
+from dochar.records.assemble import assemble_records, parses, true_records
+from dochar.records.normalise import NORMALISED, RAW, as_amount, as_date, normalise
+from dochar.records.output import write_records
+from dochar.records.shape import RecordShape, RecordShapeError
+
+SHAPE = RecordShape(("cert_no", "date"), ("analyte", "result"), items_name="results",
+                    date_fields=("date",), amount_fields=("result",))
+
+
+def test_dates_become_iso_8601_day_first():
+    # 05/03/2024 read day first is 5 March 2024 (the certificates' convention, common practice)
+    assert as_date("05/03/2024") == "2024-03-05"
+    assert as_date("05.03.2024") == "2024-03-05"
+    assert as_date("Mar 5,  2024") == "2024-03-05"
+    assert as_date("not a date") == "not a date"
+
+
+def test_amounts_become_plain_decimals_and_other_texts_stay():
+    # price-parser reads "45.000" with a point before three digits as 45 thousand
+    assert as_amount("Rp 45.000") == "45000"
+    assert as_amount("$ 3.50") == "3.5"
+    assert as_amount("-2") == "-2"
+    assert as_amount("<0.01") == "<0.01"          # a sign of limit is no amount sign: kept
+    assert normalise("cert_no", " A  1 ", SHAPE, NORMALISED) == "A 1"
+    assert normalise("cert_no", " A  1 ", SHAPE, RAW) == " A  1 "
+
+
+def test_a_shape_names_known_labels_in_one_role():
+    labels = ["cert_no", "date", "analyte", "result", "other"]
+    shape = RecordShape.from_mapping({"header_fields": ["cert_no"], "item_columns": ["analyte"]},
+                                     labels=labels)
+    assert shape.labels == ("cert_no", "analyte") and shape.items_name == "items"
+    with pytest.raises(RecordShapeError, match=r"data.record.item_columns: label 'analite' .*"
+                                               r"did you mean analyte"):
+        RecordShape.from_mapping({"item_columns": ["analite"]}, labels=labels)
+    with pytest.raises(RecordShapeError, match="also in data.record.header_fields"):
+        RecordShape.from_mapping({"header_fields": ["date"], "item_columns": ["date"]})
+    with pytest.raises(RecordShapeError, match="data.record.date_fields: label 'lot'"):
+        RecordShape.from_mapping({"header_fields": ["date"], "date_fields": ["lot"]})
+    with pytest.raises(RecordShapeError, match="data.record.columns: unknown"):
+        RecordShape.from_mapping({"columns": ["date"]})
+
+
+def _words(rows):
+    frame = pd.DataFrame(rows, columns=["text", "x0", "y0", "x1", "y1", "label", "entity_id"])
+    return frame.assign(doc_id="d", page=1, word_id=range(len(frame)), probability=0.9)
+
+
+# A drawn page: key "No." and its value, two dates stacked with their keys, then a table whose
+# first row's analyte wraps onto a second line (9-point type, 11.7-point line pitch).
+PAGE = _words([
+    ("No.", 40, 40, 60, 49, "key", "k1"), ("C-17", 100, 40, 120, 49, "cert_no", "v1"),
+    ("Received", 40, 52, 80, 61, "key", "k2"), ("05/03/2024", 100, 52, 145, 61, "date", "v2"),
+    ("Reported", 40, 65, 80, 74, "key", "k3"), ("07/03/2024", 100, 65, 145, 74, "date", "v3"),
+    ("Total", 40, 100, 62, 109, "analyte", "a1"), ("lead", 65, 100, 83, 109, "analyte", "a1"),
+    ("0.50", 200, 100, 218, 109, "result", "r1"),
+    ("content", 40, 111.7, 72, 120.7, "analyte", "a1"),
+    ("Zinc", 40, 125, 58, 134, "analyte", "a2"), ("1.20", 200, 125, 218, 134, "result", "r2"),
+])
+TRUE_PARSE = {"cert_no": "C-17", "date": ["05/03/2024", "07/03/2024"],
+              "results": [{"analyte": "Total lead content", "result": "0.50"},
+                          {"analyte": "Zinc", "result": "1.20"}]}
+
+
+def test_the_layout_rule_joins_wrapped_cells_and_keeps_stacked_dates_apart():
+    (record,) = assemble_records(PAGE, SHAPE, label_col="label")
+    assert record.parse(SHAPE) == TRUE_PARSE
+    assert record.parse(SHAPE, NORMALISED)["date"] == ["2024-03-05", "2024-03-07"]
+    assert record.parse(SHAPE, NORMALISED)["results"][0]["result"] == "0.5"
+
+
+def test_rows_from_row_links_are_connected_components():
+    links = pd.DataFrame({"doc_id": "d", "page": 1, "source": ["a1", "a2"],
+                          "target": ["r1", "r2"], "kind": "row"})
+    (record,) = true_records(PAGE, SHAPE, links)
+    assert record.parse(SHAPE) == TRUE_PARSE
+    # no links: every cell a row of its own
+    (alone,) = true_records(PAGE, SHAPE, links.iloc[:0])
+    assert len(alone.items) == 4
+
+
+def test_records_files(tmp_path):
+    records = assemble_records(PAGE, SHAPE, label_col="label")
+    json_path, csv_path = write_records(records, SHAPE, tmp_path)
+    (written,) = json.loads(json_path.read_text())
+    assert written["fields"]["cert_no"]["text"] == "C-17"
+    assert [d["text"] for d in written["fields"]["date"]] == ["05/03/2024", "07/03/2024"]
+    first = written["results"][0]["analyte"]
+    # the wrapped analyte: three words, union box, least probability
+    assert first["word_ids"] == [6, 7, 9] and first["box"] == [40, 100, 83, 120.7]
+    assert first["probability"] == 0.9
+    table = pd.read_csv(csv_path, keep_default_na=False)
+    assert table["item"].tolist() == [1, 2]
+    assert table["date"].tolist() == ["05/03/2024 | 07/03/2024"] * 2
+    assert table["analyte"].tolist() == ["Total lead content", "Zinc"]
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["records.csv", "records.json"]
+
+
+def test_synthetic_round_trip_recovers_the_generators_records_from_true_labels():
+    # true labels without groups or rows (the layout rule) against the generator's entities
+    # and row links, on noisy certificates of every layout family
+    from data_synth.generator import iter_documents_with_links
+    from data_synth.layouts import LAYOUTS
+    from data_synth.noise import NoiseConfig
+
+    shape = RecordShape(("lab_name", "client", "cert_no", "sample_id", "date"),
+                        ("analyte", "method", "result", "unit", "limit", "verdict"))
+    documents = list(iter_documents_with_links(len(LAYOUTS) * 2, seed=3,
+                                               noise=NoiseConfig(0.6, 0.01, 0.01, 0.01)))
+    words = pd.concat([w for w, _ in documents], ignore_index=True)
+    links = pd.concat([k for _, k in documents], ignore_index=True)
+    truth = parses(true_records(words, shape, links), shape)
+    assert all(len(tree["items"]) >= 3 for tree in truth.values())
+    assert parses(assemble_records(words, shape, label_col="label"), shape) == truth
