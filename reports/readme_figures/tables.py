@@ -10,6 +10,7 @@ from pathlib import Path
 
 import torch
 
+from dochar.report.summaries import size_unit
 from dochar.runs.bundle import RunBundle
 from dochar.runs.compare import compare_runs
 from reports.readme_figures.cheap import compose, today
@@ -106,8 +107,7 @@ def full_sweep(keep: Path | None = None) -> str:
     ranked = sorted(runs.items(), key=lambda item: -item[1].metrics["macro_f1"])
 
     def size(bundle: RunBundle) -> str:
-        parameters = f"{bundle.cost.get('parameters', 0):,.0f}"
-        return parameters if bundle.tags.get("model_kind") == "gnn" else f"{parameters} nodes"
+        return f"{bundle.cost.get('parameters', 0):,.0f} {size_unit(bundle)}"
 
     return "\n".join([
         f"The full sweep over every layer and baseline on the same split "
@@ -115,7 +115,7 @@ def full_sweep(keep: Path | None = None) -> str:
         f"`python -m reports.readme_figures --only full-sweep`, one thread on {machine()}, "
         f"shared with other jobs, so train seconds are inflated):",
         "",
-        "| run | macro-F1 [95% CI] | entity F1 | train s | size (weights, or tree nodes) |",
+        "| run | macro-F1 [95% CI] | entity F1 | train s | size |",
         "|---|---|---|---|---|",
         *[f"| {DESCRIPTIONS[m]} | {interval(b.metrics, 'macro_f1')} | "
           f"{b.metrics['entity_f1']:.3f} | {b.cost['train_seconds']:.0f} | {size(b)} |"
