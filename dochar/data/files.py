@@ -7,7 +7,8 @@ SIGKILL leaves the old file (or none), never half of a new one.
 
 A kill inside a write leaves its scratch file, named ``<name>.<pid>-<random>.partial``. The next
 write into the same folder removes every partial whose writer (the pid in its name) is no longer
-running on this machine; a partial of a live writer is left alone. A folder that cannot be
+running on this machine (a process that took its pid later does not count); a partial of a live
+writer is left alone. A folder that cannot be
 written (permissions, read-only, full disk, file size limit) raises :class:`OutputWriteError`
 naming the path, never a deep traceback.
 """
@@ -66,6 +67,28 @@ def process_running(pid: int) -> bool:
     return True
 
 
+def process_started(pid: int) -> float | None:
+    """When the process ``pid`` started (seconds since the epoch), from Linux's /proc; None
+    where that cannot be read."""
+    try:
+        fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
+        boot = next(float(line.split()[1]) for line in Path("/proc/stat").read_text().splitlines()
+                    if line.startswith("btime "))
+        return boot + int(fields[19]) / os.sysconf("SC_CLK_TCK")  # field 22: start, in ticks
+    except (OSError, ValueError, IndexError, StopIteration):
+        return None
+
+
+def writer_alive(pid: int, since: float) -> bool:
+    """The process that wrote something last modified at ``since`` still runs: a process with
+    its pid runs and did not start after ``since`` (on a busy machine pids are reused within
+    minutes)."""
+    if not process_running(pid):
+        return False
+    started = process_started(pid)
+    return started is None or started <= since + 1.0   # /proc's start time is in whole ticks
+
+
 def remove_stale_partials(folder: str | Path) -> list[Path]:
     """Delete the partial files and folders in ``folder`` whose writer no longer runs (it was
     killed while writing). Partials of this process or of a running one stay. Returns those
@@ -76,7 +99,11 @@ def remove_stale_partials(folder: str | Path) -> list[Path]:
         return removed
     for path in folder.glob(f"*{PARTIAL_SUFFIX}"):
         pid = writer_pid(path)
-        if pid is None or pid == os.getpid() or process_running(pid):
+        try:
+            modified = path.lstat().st_mtime
+        except FileNotFoundError:       # removed meanwhile by another writer
+            continue
+        if pid is None or pid == os.getpid() or writer_alive(pid, modified):
             continue
         if path.is_dir() and not path.is_symlink():
             shutil.rmtree(path, ignore_errors=True)

@@ -6,7 +6,8 @@ end-run, so the store shows the run RUNNING for ever. Every run dochar creates c
 (or sweep hash) written on this host by a process that no longer runs are ended as KILLED, with
 tags saying when they were found (``killed_found_at``, ISO 8601 UTC) and by which process
 (``killed_found_by``). Runs written on another host are left alone: their writer cannot be asked.
-A pid reused by a new process keeps its run RUNNING until that process ends too.
+A pid taken by a process started after the run is not taken for its writer (start time from
+/proc).
 """
 
 from __future__ import annotations
@@ -17,7 +18,7 @@ import socket
 
 from mlflow.tracking import MlflowClient
 
-from dochar.data.files import process_running
+from dochar.data.files import writer_alive
 
 WRITTEN_BY_TAG = "written_by"
 FOUND_AT_TAG = "killed_found_at"
@@ -30,14 +31,15 @@ def writer() -> str:
     return f"{socket.gethostname()}:{os.getpid()}"
 
 
-def writer_is_dead(written_by: str | None) -> bool:
-    """True only when the writer ran on this host and its pid no longer runs."""
+def writer_is_dead(written_by: str | None, started: float) -> bool:
+    """True only when the writer ran on this host and no process of its pid that started by
+    ``started`` (the run's start, seconds since the epoch) still runs."""
     if not written_by or ":" not in written_by:
         return False
     host, pid = written_by.rsplit(":", 1)
     if host != socket.gethostname() or not pid.isdigit() or int(pid) == os.getpid():
         return False
-    return not process_running(int(pid))
+    return not writer_alive(int(pid), started)
 
 
 def end_killed_runs(client: MlflowClient, experiment: str, tag: str, value: str) -> list[str]:
@@ -51,7 +53,7 @@ def end_killed_runs(client: MlflowClient, experiment: str, tag: str, value: str)
                                             "attributes.status = 'RUNNING'", max_results=1000)
     ended = []
     for run in runs:
-        if not writer_is_dead(run.data.tags.get(WRITTEN_BY_TAG)):
+        if not writer_is_dead(run.data.tags.get(WRITTEN_BY_TAG), run.info.start_time / 1000):
             continue
         now = dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds")
         client.set_tag(run.info.run_id, FOUND_AT_TAG, now)

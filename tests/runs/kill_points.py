@@ -162,7 +162,7 @@ class RenameKiller:
 
     def replace(self, source, destination) -> None:
         if os.path.basename(destination) == self.name and \
-                str(source).endswith(files.PARTIAL_SUFFIX):
+                str(source).endswith(".partial"):
             self.seen += 1
             if self.seen == self.count:
                 kill()

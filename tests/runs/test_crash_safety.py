@@ -66,6 +66,22 @@ def test_a_running_writers_partial_is_kept(tmp_path):
     assert live.exists()
 
 
+def test_a_partial_whose_pid_a_later_process_took_is_removed(tmp_path):
+    """On a busy machine pids wrap within minutes (pid_max 32768): a process started after the
+    partial was last written cannot be its writer (start time from /proc, proc(5))."""
+    sleeper = subprocess.Popen([sys.executable, "-c", "import time; time.sleep(60)"])
+    try:
+        stale = left_by(sleeper.pid, tmp_path / "sweep_context.json")
+        hour_ago = stale.stat().st_mtime - 3600
+        os.utime(stale, (hour_ago, hour_ago))
+        fresh = left_by(sleeper.pid, tmp_path / "sweep_table.csv")   # written by it just now
+        assert remove_stale_partials(tmp_path) == [stale]
+        assert fresh.exists()
+    finally:
+        sleeper.kill()
+        sleeper.wait()
+
+
 def test_a_killed_model_save_leaves_a_folder_the_next_save_removes(tmp_path, dead_pid):
     staging = left_by(dead_pid, tmp_path / "model")
     staging.unlink()

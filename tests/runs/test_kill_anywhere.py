@@ -204,3 +204,32 @@ def test_import_killed_while_writing_then_rerun_writes_the_whole_table(tmp_path)
     assert rerun.returncode == 0, rerun.stderr[-3000:]
     assert (tmp_path / "imported.csv").read_bytes() == (tmp_path / "reference.csv").read_bytes()
     assert not list(tmp_path.rglob("*.partial"))
+
+
+@pytest.mark.slow
+def test_two_sweeps_at_once_on_one_sqlite_store_both_end_correct(tmp_path, uninterrupted):
+    """Two sweeps of the same jobs started together, one store, one checkpoint folder: both
+    finish, nothing is left RUNNING or partial, and every FINISHED run (a job may finish once
+    in each sweep: neither had finished when the other looked) has the uninterrupted scores."""
+    env = {**os.environ, "PYTHONPATH": str(REPO), "OMP_NUM_THREADS": "1"}
+    sweeps = [subprocess.Popen([sys.executable, "-m", "dochar.cli", "run", *SWEEP,
+                                f"hydra.sweep.dir={name}"], cwd=tmp_path, env=env,
+                               stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+              for name in ("sweep_a", "sweep_b")]
+    for process in sweeps:
+        out, err = process.communicate(timeout=1800)
+        assert process.returncode == 0, out[-2000:] + err[-3000:]
+    frame = runs_frame(f"sqlite:///{tmp_path / 'mlflow.db'}", "kill")
+    assert set(frame["status"]) == {"FINISHED"}
+    jobs = frame[frame["tags.kind"].isna()]
+    assert set(jobs["tags.model"]) == {"relational", "random_forest"}
+    expected = {uninterrupted[job]["metrics"]["macro_f1"] for job in range(JOBS)}
+    assert set(jobs["metrics.macro_f1"]) == expected
+    for name in ("sweep_a", "sweep_b"):
+        assert len(pd.read_csv(tmp_path / name / "sweep_table.csv")) == JOBS
+        for job in range(JOBS):
+            summary = json.loads((tmp_path / name / str(job) / "run" / "summary.json")
+                                 .read_text())
+            assert scores(summary) == uninterrupted[job], (name, job)
+    assert not list(tmp_path.rglob("*.partial"))
+    assert not list((tmp_path / "checkpoints").glob("*"))
