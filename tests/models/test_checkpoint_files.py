@@ -80,16 +80,44 @@ def _dead_pid() -> int:
 
 
 def test_partials_of_finished_writers_are_removed_and_a_running_writers_kept(tmp_path):
-    dead, running = _dead_pid(), 1                    # pid 1 runs as long as the machine does
-    names = {"dead": f"k.pt.{dead}.partial", "running": f"k.pt.{running}.partial",
-             "own": f"k.pt.{os.getpid()}.partial", "no pid": "k.pt.x.partial",
-             "checkpoint": "k.pt", "other file": "notes.partial"}
-    for name in names.values():
-        (tmp_path / name).write_bytes(b"half")
-    removed = remove_stale_partials(tmp_path)
+    dead = _dead_pid()
+    running = subprocess.Popen([sys.executable, "-c", "import sys; sys.stdin.readline(); "
+                                "print('still running')"], stdin=subprocess.PIPE,
+                               stdout=subprocess.PIPE, text=True)
+    try:
+        names = {"dead": f"k.pt.{dead}.partial", "running": f"k.pt.{running.pid}.partial",
+                 "own": f"k.pt.{os.getpid()}.partial", "no pid": "k.pt.x.partial",
+                 "checkpoint": "k.pt", "other file": "notes.partial"}
+        for name in names.values():
+            (tmp_path / name).write_bytes(b"half")
+        removed = remove_stale_partials(tmp_path)
+        # asked whether it runs (signal 0), not signalled: it lives on to answer
+        assert running.communicate("go\n", timeout=60) == ("still running\n", None)
+    finally:
+        running.kill()
+        running.wait()
     gone = {names["dead"], names["own"], names["no pid"]}
     assert sorted(p.name for p in removed) == sorted(gone)
     assert sorted(p.name for p in tmp_path.iterdir()) == sorted(set(names.values()) - gone)
+
+
+def test_a_writer_of_another_user_counts_as_running(monkeypatch):
+    """kill(2) fails with EPERM for a process that exists under another user (POSIX)."""
+    def refused(pid, signal):
+        raise PermissionError(1, "Operation not permitted")
+
+    monkeypatch.setattr(checkpoints.os, "kill", refused)
+    assert checkpoints._running(12345) is True
+
+
+def test_removing_a_checkpoint_removes_its_file_and_stale_partials_only(tmp_path):
+    checkpoint = EpochCheckpoint(tmp_path, "k", "inputs")
+    for name in ("k.pt", "other.pt", f"k.pt.{_dead_pid()}.partial"):
+        (tmp_path / name).write_bytes(b"x")
+    checkpoint.remove()
+    assert [p.name for p in tmp_path.iterdir()] == ["other.pt"]
+    checkpoint.remove()                        # nothing left to remove is no error
+    assert [p.name for p in tmp_path.iterdir()] == ["other.pt"]
 
 
 def test_a_write_that_fails_keeps_the_previous_checkpoint(tmp_path, monkeypatch):
