@@ -173,3 +173,41 @@ def test_no_checkpoint_file_starts_at_epoch_one_with_the_given_best(tmp_path):
     first, kept = EpochCheckpoint(tmp_path, "k", "inputs").restore(
         torch.nn.Linear(2, 1), None, None, None, best)
     assert first == 1 and kept is best
+
+
+def test_a_checkpoint_of_other_inputs_is_named_in_the_warning(tmp_path, caplog):
+    model = torch.nn.Linear(2, 1)
+    optimizer = torch.optim.SGD(model.parameters(), lr=0.1)
+    history = make_dataclass("History", [("losses", list)])([1.0])
+    EpochCheckpoint(tmp_path, "k", "old inputs").save(1, model, optimizer, torch.Generator(),
+                                                      history, {})
+    with caplog.at_level("WARNING", logger=checkpoints.__name__):
+        first, _ = EpochCheckpoint(tmp_path, "k", "new inputs").restore(
+            model, optimizer, torch.Generator(), history, {})
+    assert first == 1
+    assert [r.getMessage() for r in caplog.records] == [
+        f"checkpoint {tmp_path / 'k.pt'} is of other training inputs; starting afresh"]
+
+
+class _Planted:
+    """Unpickling this runs code (pickle's __reduce__ protocol): a checkpoint must never."""
+
+    ran = False
+
+    def __reduce__(self):
+        return (_mark_ran, ())
+
+
+def _mark_ran():
+    _Planted.ran = True
+    return {}
+
+
+def test_a_checkpoint_holding_code_is_refused_unrun(tmp_path):
+    """torch.load(weights_only=True) refuses globals it does not allow (torch's serialization
+    notes); the checkpoint must be loaded that way."""
+    torch.save({"inputs": "inputs", "epoch": 1, "model": _Planted()}, tmp_path / "k.pt")
+    with pytest.raises(Exception, match="(?i)weights_only|unsupported global"):
+        EpochCheckpoint(tmp_path, "k", "inputs").restore(
+            torch.nn.Linear(2, 1), None, None, None, {})
+    assert _Planted.ran is False
