@@ -140,8 +140,10 @@ def test_a_write_that_fails_keeps_the_previous_checkpoint(tmp_path, monkeypatch)
     assert [p.name for p in tmp_path.iterdir()] == ["k.pt"]
 
 
-def test_restore_gives_back_the_random_states_and_the_saved_best(tmp_path):
-    """What the next epoch draws after a restore is what it drew after the save."""
+def test_restore_gives_back_the_random_states_and_the_saved_best(tmp_path, capsys):
+    """What the next epoch draws after a restore is what it drew after the save; the folder
+    is created on the first save, however deep."""
+    tmp_path = tmp_path / "not" / "there"
     History = make_dataclass("History", [("losses", list), ("best_epoch", int)])
     model = torch.nn.Linear(2, 1)
     optimizer = torch.optim.SGD(model.parameters(), lr=0.1)
@@ -161,6 +163,8 @@ def test_restore_gives_back_the_random_states_and_the_saved_best(tmp_path):
         torch.nn.Linear(2, 1), torch.optim.SGD(model.parameters(), lr=0.1), fresh_generator,
         history, {"w": torch.zeros(1)})
     assert first == 4 and torch.equal(kept["w"], best["w"])
+    assert capsys.readouterr().out == (f"resuming training from the checkpoint of epoch 3: "
+                                       f"{tmp_path / 'k.pt'}\n")
     assert history == History([0.5, 0.25], 2)
     drawn = (torch.rand(2, generator=fresh_generator), torch.rand(2), np.random.normal(),
              np.random.rand(), random.random())
