@@ -215,3 +215,18 @@ def test_a_checkpoint_holding_code_is_refused_unrun(tmp_path):
         EpochCheckpoint(tmp_path, "k", "inputs").restore(
             torch.nn.Linear(2, 1), None, None, None, {})
     assert _Planted.ran is False
+
+
+def test_a_write_that_cannot_start_raises_its_own_error(tmp_path, monkeypatch):
+    """No partial file was made, so there is none to clean up: the caller sees why the write
+    failed, not a missing file."""
+    def refused(*args, **kwargs):
+        raise PermissionError(13, "Permission denied")
+
+    monkeypatch.setattr(checkpoints, "open", refused, raising=False)
+    model = torch.nn.Linear(2, 1)
+    history = make_dataclass("History", [("losses", list)])([])
+    with pytest.raises(PermissionError):
+        EpochCheckpoint(tmp_path, "k", "inputs").save(
+            1, model, torch.optim.SGD(model.parameters(), lr=0.1), torch.Generator(), history, {})
+    assert list(tmp_path.iterdir()) == []
