@@ -79,7 +79,7 @@ def _dead_pid() -> int:
     return child.pid
 
 
-def test_partials_of_finished_writers_are_removed_and_a_running_writers_kept(tmp_path):
+def test_partials_of_finished_writers_are_removed_and_a_running_writers_kept(tmp_path, caplog):
     dead = _dead_pid()
     running = subprocess.Popen([sys.executable, "-c", "import sys; sys.stdin.readline(); "
                                 "print('still running')"], stdin=subprocess.PIPE,
@@ -90,7 +90,8 @@ def test_partials_of_finished_writers_are_removed_and_a_running_writers_kept(tmp
                  "checkpoint": "k.pt", "other file": "notes.partial"}
         for name in names.values():
             (tmp_path / name).write_bytes(b"half")
-        removed = remove_stale_partials(tmp_path)
+        with caplog.at_level("INFO", logger=checkpoints.__name__):
+            removed = remove_stale_partials(tmp_path)
         # asked whether it runs (signal 0), not signalled: it lives on to answer
         assert running.communicate("go\n", timeout=60) == ("still running\n", None)
     finally:
@@ -99,6 +100,17 @@ def test_partials_of_finished_writers_are_removed_and_a_running_writers_kept(tmp
     gone = {names["dead"], names["own"], names["no pid"]}
     assert sorted(p.name for p in removed) == sorted(gone)
     assert sorted(p.name for p in tmp_path.iterdir()) == sorted(set(names.values()) - gone)
+    assert sorted(r.getMessage() for r in caplog.records) == sorted(
+        f"removed {tmp_path / name}, a checkpoint write its killed process left unfinished"
+        for name in gone)
+
+
+def test_a_partial_another_start_removed_first_is_no_error(tmp_path, monkeypatch):
+    """Two runs starting in one folder may both list a stale partial; the second to remove it
+    finds it gone."""
+    gone = tmp_path / "k.pt.4194305.partial"       # above Linux's largest pid: no such process
+    monkeypatch.setattr(checkpoints.Path, "glob", lambda self, pattern: iter([gone]))
+    assert remove_stale_partials(tmp_path) == [gone]
 
 
 def test_a_writer_of_another_user_counts_as_running(monkeypatch):
