@@ -98,7 +98,11 @@ def _toml_list(items) -> str:
 
 def mutmut(workdir: Path, *args: str, log: Path | None = None) -> str:
     """Run a mutmut command in ``workdir``; with ``log``, its output goes to that file."""
-    env = {**os.environ, "OMP_NUM_THREADS": "1", "PYTHONPATH": ""}
+    # the scratch copy sits elsewhere, so the tests' default dataset folder (beside the
+    # checkout) is passed on explicitly: a FUNSD test that skipped would leave its mutants
+    # reached by no test
+    datasets = os.environ.get("DOCHAR_DATASETS", str(ROOT.parent / "shared" / "datasets"))
+    env = {**os.environ, "OMP_NUM_THREADS": "1", "PYTHONPATH": "", "DOCHAR_DATASETS": datasets}
     command = [sys.executable, "-m", "mutmut", *args]
     if log is not None:
         with open(log, "w", encoding="utf-8") as handle:

@@ -79,17 +79,57 @@ def _dead_pid() -> int:
     return child.pid
 
 
-def test_partials_of_finished_writers_are_removed_and_a_running_writers_kept(tmp_path):
-    dead, running = _dead_pid(), 1                    # pid 1 runs as long as the machine does
-    names = {"dead": f"k.pt.{dead}.partial", "running": f"k.pt.{running}.partial",
-             "own": f"k.pt.{os.getpid()}.partial", "no pid": "k.pt.x.partial",
-             "checkpoint": "k.pt", "other file": "notes.partial"}
-    for name in names.values():
-        (tmp_path / name).write_bytes(b"half")
-    removed = remove_stale_partials(tmp_path)
+def test_partials_of_finished_writers_are_removed_and_a_running_writers_kept(tmp_path, caplog):
+    dead = _dead_pid()
+    running = subprocess.Popen([sys.executable, "-c", "import sys; sys.stdin.readline(); "
+                                "print('still running')"], stdin=subprocess.PIPE,
+                               stdout=subprocess.PIPE, text=True)
+    try:
+        names = {"dead": f"k.pt.{dead}.partial", "running": f"k.pt.{running.pid}.partial",
+                 "own": f"k.pt.{os.getpid()}.partial", "no pid": "k.pt.x.partial",
+                 "checkpoint": "k.pt", "other file": "notes.partial"}
+        for name in names.values():
+            (tmp_path / name).write_bytes(b"half")
+        with caplog.at_level("INFO", logger=checkpoints.__name__):
+            removed = remove_stale_partials(tmp_path)
+        # asked whether it runs (signal 0), not signalled: it lives on to answer
+        assert running.communicate("go\n", timeout=60) == ("still running\n", None)
+    finally:
+        running.kill()
+        running.wait()
     gone = {names["dead"], names["own"], names["no pid"]}
     assert sorted(p.name for p in removed) == sorted(gone)
     assert sorted(p.name for p in tmp_path.iterdir()) == sorted(set(names.values()) - gone)
+    assert sorted(r.getMessage() for r in caplog.records) == sorted(
+        f"removed {tmp_path / name}, a checkpoint write its killed process left unfinished"
+        for name in gone)
+
+
+def test_a_partial_another_start_removed_first_is_no_error(tmp_path, monkeypatch):
+    """Two runs starting in one folder may both list a stale partial; the second to remove it
+    finds it gone."""
+    gone = tmp_path / "k.pt.4194305.partial"       # above Linux's largest pid: no such process
+    monkeypatch.setattr(checkpoints.Path, "glob", lambda self, pattern: iter([gone]))
+    assert remove_stale_partials(tmp_path) == [gone]
+
+
+def test_a_writer_of_another_user_counts_as_running(monkeypatch):
+    """kill(2) fails with EPERM for a process that exists under another user (POSIX)."""
+    def refused(pid, signal):
+        raise PermissionError(1, "Operation not permitted")
+
+    monkeypatch.setattr(checkpoints.os, "kill", refused)
+    assert checkpoints._running(12345) is True
+
+
+def test_removing_a_checkpoint_removes_its_file_and_stale_partials_only(tmp_path):
+    checkpoint = EpochCheckpoint(tmp_path, "k", "inputs")
+    for name in ("k.pt", "other.pt", f"k.pt.{_dead_pid()}.partial"):
+        (tmp_path / name).write_bytes(b"x")
+    checkpoint.remove()
+    assert [p.name for p in tmp_path.iterdir()] == ["other.pt"]
+    checkpoint.remove()                        # nothing left to remove is no error
+    assert [p.name for p in tmp_path.iterdir()] == ["other.pt"]
 
 
 def test_a_write_that_fails_keeps_the_previous_checkpoint(tmp_path, monkeypatch):
@@ -112,8 +152,10 @@ def test_a_write_that_fails_keeps_the_previous_checkpoint(tmp_path, monkeypatch)
     assert [p.name for p in tmp_path.iterdir()] == ["k.pt"]
 
 
-def test_restore_gives_back_the_random_states_and_the_saved_best(tmp_path):
-    """What the next epoch draws after a restore is what it drew after the save."""
+def test_restore_gives_back_the_random_states_and_the_saved_best(tmp_path, capsys):
+    """What the next epoch draws after a restore is what it drew after the save; the folder
+    is created on the first save, however deep."""
+    tmp_path = tmp_path / "not" / "there"
     History = make_dataclass("History", [("losses", list), ("best_epoch", int)])
     model = torch.nn.Linear(2, 1)
     optimizer = torch.optim.SGD(model.parameters(), lr=0.1)
@@ -133,6 +175,8 @@ def test_restore_gives_back_the_random_states_and_the_saved_best(tmp_path):
         torch.nn.Linear(2, 1), torch.optim.SGD(model.parameters(), lr=0.1), fresh_generator,
         history, {"w": torch.zeros(1)})
     assert first == 4 and torch.equal(kept["w"], best["w"])
+    assert capsys.readouterr().out == (f"resuming training from the checkpoint of epoch 3: "
+                                       f"{tmp_path / 'k.pt'}\n")
     assert history == History([0.5, 0.25], 2)
     drawn = (torch.rand(2, generator=fresh_generator), torch.rand(2), np.random.normal(),
              np.random.rand(), random.random())
@@ -145,3 +189,56 @@ def test_no_checkpoint_file_starts_at_epoch_one_with_the_given_best(tmp_path):
     first, kept = EpochCheckpoint(tmp_path, "k", "inputs").restore(
         torch.nn.Linear(2, 1), None, None, None, best)
     assert first == 1 and kept is best
+
+
+def test_a_checkpoint_of_other_inputs_is_named_in_the_warning(tmp_path, caplog):
+    model = torch.nn.Linear(2, 1)
+    optimizer = torch.optim.SGD(model.parameters(), lr=0.1)
+    history = make_dataclass("History", [("losses", list)])([1.0])
+    EpochCheckpoint(tmp_path, "k", "old inputs").save(1, model, optimizer, torch.Generator(),
+                                                      history, {})
+    with caplog.at_level("WARNING", logger=checkpoints.__name__):
+        first, _ = EpochCheckpoint(tmp_path, "k", "new inputs").restore(
+            model, optimizer, torch.Generator(), history, {})
+    assert first == 1
+    assert [r.getMessage() for r in caplog.records] == [
+        f"checkpoint {tmp_path / 'k.pt'} is of other training inputs; starting afresh"]
+
+
+class _Planted:
+    """Unpickling this runs code (pickle's __reduce__ protocol): a checkpoint must never."""
+
+    ran = False
+
+    def __reduce__(self):
+        return (_mark_ran, ())
+
+
+def _mark_ran():
+    _Planted.ran = True
+    return {}
+
+
+def test_a_checkpoint_holding_code_is_refused_unrun(tmp_path):
+    """torch.load(weights_only=True) refuses globals it does not allow (torch's serialization
+    notes); the checkpoint must be loaded that way."""
+    torch.save({"inputs": "inputs", "epoch": 1, "model": _Planted()}, tmp_path / "k.pt")
+    with pytest.raises(Exception, match="(?i)weights_only|unsupported global"):
+        EpochCheckpoint(tmp_path, "k", "inputs").restore(
+            torch.nn.Linear(2, 1), None, None, None, {})
+    assert _Planted.ran is False
+
+
+def test_a_write_that_cannot_start_raises_its_own_error(tmp_path, monkeypatch):
+    """No partial file was made, so there is none to clean up: the caller sees why the write
+    failed, not a missing file."""
+    def refused(*args, **kwargs):
+        raise PermissionError(13, "Permission denied")
+
+    monkeypatch.setattr(checkpoints, "open", refused, raising=False)
+    model = torch.nn.Linear(2, 1)
+    history = make_dataclass("History", [("losses", list)])([])
+    with pytest.raises(PermissionError):
+        EpochCheckpoint(tmp_path, "k", "inputs").save(
+            1, model, torch.optim.SGD(model.parameters(), lr=0.1), torch.Generator(), history, {})
+    assert list(tmp_path.iterdir()) == []
