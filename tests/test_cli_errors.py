@@ -185,6 +185,9 @@ NO_DATA = ("data=word_table", "data.path=no/such/words.csv", "data.labels=[analy
      "config key features.char_cnn.out_dim=-4"),
     (["features.groups=[geometry,text_flags]", "+data.lexicons.units=['mg per L']"],
      "config key data.lexicons.units[0]: 'mg per L' holds a space"),
+    (["data=cord", "data.path=no/such/words.csv", "data.label_map=medium"],
+     "config key data.label_map=medium"),
+    (["task=links", "task.threshold_by=rows"], "task.threshold_by='rows'"),
     # train.*
     (["train.class_weighting=inverse"], "config key train.class_weighting='inverse'"),
     (["train.pages_per_batch=0"], "config key train.pages_per_batch=0"),

@@ -44,6 +44,26 @@ class LoadedData:
         return self.validation.table
 
 
+def _dataset(data_cfg: Mapping[str, Any], read, links_from: str
+             ) -> tuple[pd.DataFrame, dict[str, Any], pd.DataFrame]:
+    """A dataset folder read by ``read(path) -> (frame, ImportSummary)``, its summary logged."""
+    path = data_cfg["path"]
+    if not Path(path).exists():
+        raise WordTableError(f"data.path={path}: no such folder (relative paths start at "
+                             f"{Path.cwd()}; set DOCHAR_DATASETS to the folder holding the "
+                             "datasets, or data.path=...)")
+    frame, report = read(path)
+    frame.attrs["source"] = str(path)
+    log.info("import: %s", report.summary())
+    if report.problems:
+        log.warning("import problems:\n  %s", "\n  ".join(map(str, report.problems)))
+    links = report.links_frame()
+    links.attrs["source"] = f"{path} ({links_from})"
+    return frame, {"import_empty_text_dropped": report.dropped["words without text"],
+                   "import_boxes_clipped": report.repairs["boxes clipped to the page"],
+                   "import_files_reported": len(report.problems)}, links
+
+
 def _load_raw(data_cfg: Mapping[str, Any], progress: bool
               ) -> tuple[pd.DataFrame, dict[str, Any], pd.DataFrame]:
     """Words, import notes and links (empty where the source has none)."""
@@ -65,41 +85,14 @@ def _load_raw(data_cfg: Mapping[str, Any], progress: bool
     if source == "form_json":
         from dochar.data.importers.form_json import import_form_json
 
-        if not Path(data_cfg["path"]).exists():
-            raise WordTableError(f"data.path={data_cfg['path']}: no such folder (relative paths "
-                                 f"start at {Path.cwd()}; set DOCHAR_DATASETS to the folder "
-                                 "holding the datasets, or data.path=...)")
-        frame, report = import_form_json([data_cfg["path"]],
-                                         empty_text=data_cfg.get("empty_text", "drop"),
-                                         progress=progress)
-        frame.attrs["source"] = str(data_cfg["path"])
-        log.info("import: %s", report.summary())
-        if report.problems:
-            log.warning("import problems:\n  %s", "\n  ".join(map(str, report.problems)))
-        links = report.links_frame()
-        links.attrs["source"] = f"{data_cfg['path']} (linking fields)"
-        return frame, {"import_empty_text_dropped": report.dropped["words without text"],
-                       "import_boxes_clipped": report.repairs["boxes clipped to the page"],
-                       "import_files_reported": len(report.problems)}, links
+        return _dataset(data_cfg, lambda path: import_form_json(
+            [path], empty_text=data_cfg.get("empty_text", "drop"), progress=progress),
+            "linking fields")
     if source == "receipt_json":
         from dochar.data.importers.cord import import_receipts
 
-        if not Path(data_cfg["path"]).exists():
-            raise WordTableError(f"data.path={data_cfg['path']}: no such folder (relative paths "
-                                 f"start at {Path.cwd()}; set DOCHAR_DATASETS to the folder "
-                                 "holding the datasets, or data.path=...)")
-        frame, report = import_receipts([data_cfg["path"]],
-                                        label_map=str(data_cfg.get("label_map", "fine")))
-        frame.attrs["source"] = str(data_cfg["path"])
-        log.info("import: %s", report.summary())
-        if report.problems:
-            log.warning("import problems:\n  %s", "\n  ".join(map(str, report.problems)))
-        links = report.links_frame()
-        links.attrs["source"] = f"{data_cfg['path']} (line items' group_id)"
-        return frame, {"import_words_read": report.words_read,
-                       "import_words_kept": report.words_kept,
-                       "import_boxes_clipped": report.repairs["boxes clipped to the page"],
-                       "import_files_reported": len(report.problems)}, links
+        return _dataset(data_cfg, lambda path: import_receipts(
+            [path], label_map=str(data_cfg.get("label_map", "fine"))), "line items' group_id")
     if source == "word_table":
         links_path = data_cfg.get("links_path")
         links = read_links_table(links_path) if links_path else empty_links()

@@ -68,7 +68,8 @@ def headline_names() -> tuple[str, ...]:
     """Every score a run can carry with an interval, whatever its task: what the gate may watch."""
     names: dict[str, None] = {}
     for cls in TASKS.values():
-        names.update(dict.fromkeys(cls().scores))
+        for task in getattr(cls, "variants", lambda: [cls()])():
+            names.update(dict.fromkeys(task.scores))
     return tuple(names)
 
 

@@ -57,7 +57,7 @@ class FitInputs:
     @property
     def rows_threshold(self) -> bool:
         """The link cut is chosen by validation row F1 (``task.threshold_by: rows``)."""
-        return getattr(self.task, "threshold_by", "links") == "rows"
+        return bool(getattr(self.task, "threshold_by_rows", False))
 
     def row_pairs(self, part: str) -> np.ndarray:
         """Every candidate pair of the part, node indices offset so pages stay apart."""

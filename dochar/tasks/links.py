@@ -211,6 +211,11 @@ class Links:
         if self.link_table_kinds is not None:
             object.__setattr__(self, "link_table_kinds", tuple(self.link_table_kinds))
 
+    @classmethod
+    def variants(cls) -> list[Links]:
+        """One task per link kind: together they name every score a links run can carry."""
+        return [cls(link_kind=kind) for kind in LINK_KINDS]
+
     @property
     def scores(self) -> dict[str, str]:
         found = {LINK_F1: "link_f1", LINK_PRECISION: "link_precision",
@@ -220,6 +225,11 @@ class Links:
         if self.link_kind == "rows":
             found = {ROW_F1: "row_grouping", **found}
         return {**found, MACRO_F1: "word_macro", MICRO_F1: "word_micro"}
+
+    @property
+    def threshold_by_rows(self) -> bool:
+        """The link cut is chosen by validation row F1 (not link F1)."""
+        return self.threshold_by == "rows"
 
     @property
     def label(self) -> str:

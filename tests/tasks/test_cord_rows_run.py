@@ -58,4 +58,5 @@ def test_cord_rows_forest_run(tmp_path, cord_root):
     assert bundle.metrics["row_f1"] == pytest.approx(2 * correct / (predicted + true))
     assert bundle.metrics["row_f1_low"] <= bundle.metrics["row_f1"] <= \
         bundle.metrics["row_f1_high"]
-    assert 0.9 < bundle.metrics["candidate_recall"] <= 1   # reading order: 0.994 on all 600
+    # candidate recall of the test receipts, seed 0: 0.986 (knn k=16), 0.857 (reading order)
+    assert 0.8 < bundle.metrics["candidate_recall"] <= 1

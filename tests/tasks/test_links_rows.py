@@ -16,7 +16,7 @@ from dochar.data.word_table import Page
 from dochar.graphs.candidates import missed_links
 from dochar.graphs.diagnostics import candidate_recall
 from dochar.graphs.reading_order import ReadingOrderBuilder
-from dochar.metrics.evaluate import SCORER_KINDS
+from dochar.metrics.evaluate import SCORER_KINDS, headline_names
 from dochar.metrics.intervals import bootstrap_scores
 from dochar.metrics.links import RowF1
 from dochar.models.objectives import best_threshold, row_f1_at
@@ -113,6 +113,7 @@ def test_key_value_leaves_row_links_out():
 def test_rows_task_scores_row_f1_first():
     assert list(Links(link_kind="rows").scores)[0] == "row_f1"
     assert "row_f1" not in Links(link_kind="key_value").scores
+    assert "row_f1" in headline_names()      # what the gate may watch
 
 
 def test_candidate_recall_reports_row_links():
