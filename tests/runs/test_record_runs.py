@@ -12,6 +12,8 @@ import pytest
 
 from dochar.runs.compare import compare_runs
 
+pytestmark = pytest.mark.slow   # two forest runs and their record scores: about 2.5 minutes
+
 QUICK = ["train.progress=false", "tracking.enabled=false", "data.documents=24",
          "split=random", "evaluation.bootstrap_resamples=50", "features=geometry_text",
          "model=random_forest", "model.options.n_estimators=10"]
@@ -59,3 +61,23 @@ def test_two_runs_compare_on_straight_through(runs):
     assert normalised.score_a == pytest.approx(runs[1].metrics["records/normalised/field_f1"])
     with pytest.raises(ValueError, match="normalised/row_f1"):
         compare_runs(runs[1], runs[0], score="row_f2")
+
+
+def test_the_report_has_a_records_chapter_ranked_by_straight_through(runs, tmp_path):
+    import re
+
+    from dochar.report import write_report
+
+    page = write_report(runs, tmp_path / "report.html").read_text()
+    chapter = page[page.index('<section id="records">'):]
+    chapter = chapter[:chapter.index("</section>")]
+    table = chapter[chapter.index('id="records-table"'):chapter.index("</table>")]
+    # first numeric column: straight-through, highest first
+    firsts = [float(v) for v in re.findall(r"<tr><td>.*?</td><td class=num>([0-9.]+)", table)]
+    expected = sorted((b.metrics["records/straight_through"] for b in runs), reverse=True)
+    assert firsts == pytest.approx(expected, abs=5e-4)
+    assert 'id="record-fields-table"' in chapter
+    worst = runs[int(runs[1].metrics["records/straight_through"]
+                     < runs[0].metrics["records/straight_through"])]
+    if worst.metrics["records/straight_through"] < 1:
+        assert chapter.count('class="record-pair"') >= 1
