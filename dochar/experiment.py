@@ -13,12 +13,13 @@ import torch
 from omegaconf import DictConfig, OmegaConf
 
 from dochar import graphs, tasks
-from dochar.runs.checks import check_config
+from dochar.runs.checks import check_config, record_shape
 from dochar.data.sources import load_data
 from dochar.data.word_table import iter_pages, table_fingerprint
 from dochar.features import WordFeaturizer
 from dochar.graphs.diagnostics import graph_stats
 from dochar.metrics.evaluate import evaluate
+from dochar.metrics.record_run import record_evaluation, scored_words
 from dochar.graphs.candidates import CandidateOptions
 from dochar.models.fit import FitInputs, FittedModel, fit_model, system_name
 from dochar.models.inputs import PageSet
@@ -149,6 +150,14 @@ def run_experiment(cfg: DictConfig) -> tuple[RunBundle, FittedModel]:
                       words=words, word_labels=word_labels)
     metrics = scores.metrics
     metrics.update(_pair_notes(inputs, fitted, predictions))
+    shape = record_shape(cfg.data)
+    if shape is not None and not words.empty:   # a links task decodes to no word labels
+        tested = {doc for doc, part in part_of.items() if part == "test"}
+        found, record_tables = record_evaluation(scored_words(split.table, words, tested),
+                                                 shape, data.links, cfg.evaluation,
+                                                 seed=int(cfg.seed))
+        metrics.update(found)
+        scores.tables.update(record_tables)
     stats = graph_stats(sets["test"].pages, builder, list(cfg.data.table_labels),
                         edges=sets["test"].edges).to_dict()
     metrics.update({f"graph/{k}": float(v) for k, v in stats.items()

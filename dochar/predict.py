@@ -13,6 +13,9 @@ Writes, into DIR:
                         segments; each with its text, page, box (the union of the words'
                         boxes), least word probability and word ids
     fields.csv          the same fields, one row each
+    records.json        with a record shape (the training data's ``record:`` block, saved with
+    records.csv         the model, or ``--record-shape FILE.yaml``): one record per document,
+                        header fields and line items (dochar.records.output)
 
 When the input has a ``label`` column, prints word accuracy and macro-F1 over the words whose
 label the model knows, and reports (document, page, word) the labels it does not know.
@@ -48,6 +51,9 @@ from dochar.errors import DocharError, SuggestingParser
 from dochar.metrics.entities import entity_tables, reading_order
 from dochar.metrics.words import score_words
 from dochar.models.saved import SavedModel, SavedModelError, load_model
+from dochar.records.assemble import assemble_records
+from dochar.records.output import write_records
+from dochar.records.shape import RecordShape, RecordShapeError
 from dochar.runs.bundle import PROBABILITY_PREFIX
 from dochar.runs.frames import pair_frame
 from dochar.runs.tracking import MODEL_DIR, resolve_uri
@@ -82,6 +88,10 @@ def _parser() -> argparse.ArgumentParser:
     parser.add_argument("--task", help="refuse unless the model was trained for this task")
     parser.add_argument("--labels", help="comma-separated label set the model must have "
                                          "(same labels, same order)")
+    parser.add_argument("--record-shape", type=Path, metavar="FILE",
+                        help="YAML file with a record shape (header_fields, item_columns, ...) "
+                             "to write records.json/records.csv with; default: the shape of "
+                             "the model's training data, if it had one")
     return parser
 
 
@@ -229,8 +239,40 @@ def run(args: argparse.Namespace) -> int:
     if "label" in words.columns:
         for line in score(words, saved):
             print(line)
-    print(f"wrote {words_path}, {args.out / 'fields.json'}, {args.out / 'fields.csv'}")
+    written = [words_path, args.out / "fields.json", args.out / "fields.csv"]
+    shape = record_shape(args.record_shape, saved)
+    if shape is not None:
+        records = assemble_records(words, shape, label_col="predicted",
+                                   group_col="entity" if "entity" in words else None)
+        written.extend(write_records(records, shape, args.out))
+        print(f"{len(records)} records, {sum(len(r.items) for r in records)} line items")
+    print(f"wrote {', '.join(map(str, written))}")
     return 0
+
+
+def record_shape(path: Path | None, saved: SavedModel) -> RecordShape | None:
+    """The shape from ``--record-shape`` (a YAML mapping, or one under a ``record:`` key), else
+    the one saved with the model; its labels must be labels the model predicts."""
+    if path is None:
+        block = saved.manifest["data"].get("record") or {}
+        if not (block.get("header_fields") or block.get("item_columns")):
+            return None
+        where = "data.record"
+    else:
+        import yaml
+
+        try:
+            block = yaml.safe_load(path.read_text())
+        except (OSError, yaml.YAMLError) as error:
+            raise RecordShapeError(f"--record-shape {path}: not a readable YAML file ({error})"
+                                   ) from None
+        if isinstance(block, dict) and isinstance(block.get("record"), dict):
+            block = block["record"]
+        if not isinstance(block, dict):
+            raise RecordShapeError(f"--record-shape {path}: expected a mapping of "
+                                   "header_fields, item_columns, ...")
+        where = f"{path}: record"
+    return RecordShape.from_mapping(block, where=where, labels=saved.word_labels)
 
 
 LINK_COLUMNS = ["doc_id", "page", "source_id", "target_id", "text", "probability"]

@@ -168,3 +168,37 @@ def test_fields_are_runs_of_one_label_in_reading_order():
         [1, "key", "Lot", "0"], [1, "cert_no", "A-12 B7 C9", "1 2 3"],
         [1, "verdict", "Pass", "4"], [2, "cert_no", "D1", "0"]]
     assert found.loc[1, ["x0", "y0", "x1", "y1", "probability"]].tolist() == [10, 10, 90, 40, 0.6]
+
+
+def test_records_come_with_the_models_record_shape_and_from_a_shape_file(trained, tmp_path,
+                                                                         capsys):
+    # the forest was trained on data=synth, whose record block names five header fields and six
+    # item columns: every document gets a record whose items are the table rows
+    code, out = predict(capsys, "--model", trained["folder"], "--input", trained["table"],
+                        "--out", tmp_path / "saved")
+    assert code == 0, out
+    records = json.loads((tmp_path / "saved" / "records.json").read_text())
+    documents = sorted(set(trained["test_words"]["doc_id"]))
+    assert sorted(r["doc_id"] for r in records) == documents
+    assert all({"doc_id", "fields", "results"} == set(r) for r in records)
+    table = pd.read_csv(tmp_path / "saved" / "records.csv", keep_default_na=False)
+    assert sorted(set(table["doc_id"])) == documents
+    assert {"cert_no", "analyte", "verdict", "probability"} <= set(table.columns)
+    # each line item's values are words the model labelled with that column's label
+    words = pd.read_csv(tmp_path / "saved" / "words.csv", keep_default_na=False)
+    labelled = words.set_index(["doc_id", "word_id"])["predicted"]
+    for record in records:
+        for item in record["results"]:
+            for column, value in item.items():
+                assert {labelled[(record["doc_id"], w)] for w in value["word_ids"]} == {column}
+    shape = tmp_path / "shape.yaml"
+    shape.write_text("record:\n  header_fields: [cert_no]\n")
+    code, out = predict(capsys, "--model", trained["folder"], "--input", trained["table"],
+                        "--out", tmp_path / "file", "--record-shape", shape)
+    assert code == 0, out
+    records = json.loads((tmp_path / "file" / "records.json").read_text())
+    assert all(set(r["fields"]) <= {"cert_no"} and r["items"] == [] for r in records)
+    shape.write_text("header_fields: [cert_number]\n")
+    code, out = predict(capsys, "--model", trained["folder"], "--input", trained["table"],
+                        "--out", tmp_path / "bad", "--record-shape", shape)
+    assert code == 2 and "label 'cert_number' is not one of data.labels" in out

@@ -1,7 +1,8 @@
 """When a score counts as fallen: tolerances per metric kind and the comparison itself.
 
 Gated metrics are the headline scores named in the gate's tolerances (any score a run carries
-with an interval: ``macro_f1``, ``entity_f1``, ``link_f1`` ..., see
+with an interval: ``macro_f1``, ``entity_f1``, ``link_f1`` ..., and on data with a record shape
+``records/straight_through`` and the other record scores; see
 :func:`dochar.metrics.evaluate.headline_names`) and every class's word F1 (``f1/<class>``). A new
 headline score is gated by its scorer plus one tolerance line. Two modes:
 

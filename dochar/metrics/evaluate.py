@@ -23,6 +23,7 @@ from dochar.metrics.calibration import expected_calibration_error
 from dochar.metrics.entities import entity_scores
 from dochar.metrics.intervals import bootstrap_interval
 from dochar.metrics.links import GroupingF1, LinkScore, RowF1
+from dochar.metrics.records import RECORD_SCORES
 from dochar.metrics.scorers import EntityF1, WordF1
 from dochar.metrics.seen_unseen import side_metrics
 from dochar.metrics.tags import TagEntityF1, tag_entity_scores
@@ -65,11 +66,13 @@ def headline_scorers(labels: Sequence[str], ignore: Sequence[str] = ("other",), 
 
 
 def headline_names() -> tuple[str, ...]:
-    """Every score a run can carry with an interval, whatever its task: what the gate may watch."""
+    """Every score a run can carry with an interval, whatever its task: what the gate may watch
+    (record scores, ``records/<score>``, when the data has a record shape)."""
     names: dict[str, None] = {}
     for cls in TASKS.values():
         for task in getattr(cls, "variants", lambda: [cls()])():
             names.update(dict.fromkeys(task.scores))
+    names.update(dict.fromkeys(f"records/{name}" for name in RECORD_SCORES))
     return tuple(names)
 
 

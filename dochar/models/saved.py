@@ -118,6 +118,13 @@ def _sha256(path: Path) -> str:
     return digest.hexdigest()
 
 
+def _record_block(data: Mapping[str, Any]) -> dict[str, Any]:
+    """The data's ``record:`` block as plain values (what ``dochar predict`` assembles)."""
+    block = data.get("record") or {}
+    return {str(k): v if isinstance(v, str) else [str(x) for x in v]
+            for k, v in dict(block).items() if v is not None}
+
+
 def save_model(destination: str | Path, fitted: FittedModel, config: Mapping[str, Any], *,
                name: str = "", labels: Sequence[str] | None = None) -> Path:
     """Write the unit for a fitted model and the resolved run config it was trained with.
@@ -136,7 +143,8 @@ def save_model(destination: str | Path, fitted: FittedModel, config: Mapping[str
         "format": FORMAT, "kind": kind, "task": task, "labels": labels,
         "name": name or str(config.get("run_name") or ""), "seed": config.get("seed"),
         "data": {"name": str(config["data"].get("name", "")),
-                 "labels": [str(label) for label in config["data"]["labels"]]},
+                 "labels": [str(label) for label in config["data"]["labels"]],
+                 "record": _record_block(config["data"])},
         "graph": dict(config["graph"]), "relations": list(builder.relations),
         "edges": dict(config.get("edges") or {}), "edge_attr_names": list(builder.edge_attr_names),
         "features": dict(config["features"]), "model": dict(config["model"]),

@@ -25,6 +25,7 @@ from dochar.report.summaries import (ReportInputError, calibration_bins, check_b
                                      has_layouts, layout_scores, learning_curve, metric, ranking,
                                      reliability, score_words)
 from dochar.report.verdict import provenance, verdict
+from dochar.report.records import RECORD_STYLE, records_sections
 from dochar.report.seen_unseen import seen_unseen_sections
 from dochar.runs.bundle import RunBundle
 
@@ -70,6 +71,7 @@ def write_report(bundles: Sequence[RunBundle], out_path: str | Path, *,
         ("leaderboard", f"Runs ranked by {words}",
          leaderboard(bundles, names, order, score, pairing)),
         *seen_unseen_sections(bundles, names, order, pairing),
+        *records_sections(bundles, names, order),
         ("per-class", "Word F1 per class and run", _per_class(bundles, names, order, labels)),
         ("confusion", "Which classes the top runs confuse", _confusion(bundles, names, order)),
         ("per-layout", "Word macro-F1 per layout family", _per_layout(bundles, names, order)),
@@ -107,8 +109,8 @@ def write_report(bundles: Sequence[RunBundle], out_path: str | Path, *,
            contents([(i, heading) for i, heading, _ in chapters])]
     out_path = Path(out_path)
     write_text_atomic(out_path, document(title, lede, [section(*c) for c in chapters],
-                                         OVERLAY_STYLE + "\n" + class_style(page_labels),
-                                         top=top))
+                                         "\n".join([OVERLAY_STYLE, RECORD_STYLE,
+                                                    class_style(page_labels)]), top=top))
     return out_path
 
 

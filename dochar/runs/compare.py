@@ -5,6 +5,8 @@ from __future__ import annotations
 from dochar import tasks
 from dochar.metrics.evaluate import has_entity_ids, headline_scorers
 from dochar.metrics.intervals import PairedResult, paired_comparison
+from dochar.metrics.record_run import PREFIXES, RECORD_TABLES
+from dochar.metrics.records import record_scorers
 from dochar.runs.bundle import RunBundle
 from dochar.runs.numbers import p_phrase
 
@@ -20,10 +22,29 @@ def compare_runs(run_a: RunBundle, run_b: RunBundle, *, score: str | None = None
     scorers = headline_scorers(run_a.labels, ignore, task=task,
                                entities=has_entity_ids(run_a.predictions))
     score = score or run_a.headline
-    if score not in scorers:
-        raise ValueError(f"--score {score!r}: choose one of {sorted(scorers)}")
-    return paired_comparison(run_a.predictions, run_b.predictions, scorers[score],
-                             n_resamples=resamples, seed=seed, method=method)
+    frames = (run_a.predictions, run_b.predictions)
+    records = _record_scores(run_a, run_b)
+    if score in records:
+        (frames, scorer) = records[score]
+    elif score in scorers:
+        scorer = scorers[score]
+    else:
+        raise ValueError(f"--score {score!r}: choose one of {sorted([*scorers, *records])}")
+    return paired_comparison(*frames, scorer, n_resamples=resamples, seed=seed, method=method)
+
+
+def _record_scores(run_a: RunBundle, run_b: RunBundle) -> dict:
+    """Record scores both runs carry (their per-document record tables): ``straight_through``
+    on raw values, ``normalised/straight_through`` on normalised ones, and so on."""
+    found = {}
+    for how, table in RECORD_TABLES.items():
+        if table in run_a.tables and table in run_b.tables:
+            frames = tuple(run.tables[table].rename_axis("doc_id").reset_index()
+                           for run in (run_a, run_b))
+            prefix = PREFIXES[how].removeprefix("records/")
+            found.update({f"{prefix}{name}": (frames, scorer)
+                          for name, scorer in record_scorers().items()})
+    return found
 
 
 def format_comparison(run_a: RunBundle, run_b: RunBundle, result: PairedResult,

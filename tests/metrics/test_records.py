@@ -121,3 +121,11 @@ def test_record_scores_resample_by_document():
                                           n_resamples=200)
     # a right, b wrong: 0.5; a resample holds 0, 1 or 2 copies of a
     assert point == 0.5 and low == 0.0 and high == 1.0
+
+
+def test_the_distance_from_the_empty_record_is_what_zss_finds():
+    # the shortcut (sum of insert costs) against zss's own search on the same trees
+    from dochar.metrics.records import distance_from_empty
+
+    for tree in (TRUE, PRED, {"a": "xy"}, {"items": [{"n": "a"}, {"n": "b"}]}, {}):
+        assert distance_from_empty(tree) == tree_distance({}, tree)

@@ -1,0 +1,43 @@
+"""The records ceiling: record scores when every word label is right.
+
+True labels go through the same assembly as a model's predictions (runs of words, header
+values joined over lines, rows by the layout rule) and are scored against the generator's
+records (entity ids and row links). Whatever is lost here is lost by the decoding rules, not by
+a model. ``python -m reports.readme_figures.records_ceiling [documents]`` prints one line per
+score (raw and normalised) with its 95% bootstrap interval over documents.
+"""
+
+from __future__ import annotations
+
+import sys
+
+from hydra import compose, initialize_config_dir
+
+from dochar.config import CONFIG_DIR
+from dochar.data.sources import load_data
+from dochar.metrics.intervals import bootstrap_interval
+from dochar.metrics.records import record_frame, record_scorers
+from dochar.records.assemble import assemble_records, parses, true_records
+from dochar.records.normalise import NORMALISATIONS
+from dochar.runs.checks import record_shape
+
+
+def main(documents: int = 300) -> None:
+    with initialize_config_dir(str(CONFIG_DIR), version_base=None):
+        cfg = compose("config", overrides=[f"data.documents={documents}"])
+    shape = record_shape(cfg.data)
+    data = load_data(cfg.data, progress=False)
+    words = data.table
+    truth = true_records(words, shape, data.links)
+    perfect = assemble_records(words, shape, label_col="label")
+    for how in NORMALISATIONS:
+        frame = record_frame(parses(perfect, shape, how), parses(truth, shape, how),
+                             list(shape.labels), shape.items_name)
+        for name, scorer in record_scorers().items():
+            point, low, high = bootstrap_interval(frame, scorer, n_resamples=1000, seed=0)
+            print(f"{how:10s} {name:16s} {point:.3f} [{low:.3f}, {high:.3f}]  "
+                  f"({len(frame)} documents)")
+
+
+if __name__ == "__main__":
+    main(*(int(a) for a in sys.argv[1:]))
