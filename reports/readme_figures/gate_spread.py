@@ -11,7 +11,7 @@ from pathlib import Path
 from dochar.gate.baseline import run_scores
 from dochar.gate.command import load_settings
 from dochar.gate.rules import CLASS_PREFIX, Score
-from reports.readme_figures.runs import run, with_overrides
+from reports.readme_figures.runs import machine, run, with_overrides
 
 SEEDS = range(5)
 PLANTED = ["features=geometry"]
@@ -78,5 +78,6 @@ def gate_tolerances(keep: Path | None = None) -> str:
         f"{worst['macro_f1'].text()} macro-F1, {worst['entity_f1'].text()} entity F1 and "
         f"{worst['class'].text()} for one class ({worst['class'].where}), {verdict}; the "
         f"planted regression `{' '.join(PLANTED)}` falls {planted_fall:.3f} macro-F1 below it "
-        f"(`tests/gate/test_gate.py` runs it). Measured {dt.date.today().isoformat()} with "
+        f"(`tests/gate/test_gate.py` runs it). Measured {dt.date.today().isoformat()} on "
+        f"{machine()} with "
         f"`python -m reports.readme_figures --only gate-tolerances`.\n")

@@ -10,9 +10,13 @@ from __future__ import annotations
 
 import hashlib
 import logging
+import os
+import platform
 import time
 from collections.abc import Sequence
 from pathlib import Path
+
+import torch
 
 from dochar.gate.command import run_reference
 from dochar.runs.bundle import RunBundle
@@ -20,6 +24,12 @@ from dochar.runs.bundle import RunBundle
 log = logging.getLogger(__name__)
 
 QUIET = ["tracking.enabled=false", "train.progress=false", "train.threads=1"]
+
+
+def machine() -> str:
+    """Where a trained figure was measured: a GNN's scores move with the CPU and the torch
+    build (the order of floating-point sums), so the figure says which ones it came from."""
+    return f"{platform.machine()}, {os.cpu_count()} CPUs, torch {torch.__version__}"
 
 
 def with_overrides(base: Sequence[str], extra: Sequence[str]) -> list[str]:

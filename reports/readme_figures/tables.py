@@ -3,18 +3,14 @@ learning curve and the sweep over every layer and baseline."""
 
 from __future__ import annotations
 
-import os
-import platform
 from collections.abc import Sequence
 from pathlib import Path
-
-import torch
 
 from dochar.report.summaries import size_unit
 from dochar.runs.bundle import RunBundle
 from dochar.runs.compare import compare_runs
 from reports.readme_figures.cheap import compose, today
-from reports.readme_figures.runs import run
+from reports.readme_figures.runs import machine, run
 
 DESCRIPTIONS = {
     "relational": "R-GCN, sector graph, geometry + text flags + char CNN",
@@ -35,12 +31,6 @@ SWEEP_MODELS = ("relational", "attention", "max", "gcn", "none", "random_forest"
 DEMO = ["split=seen_and_unseen_layouts"]
 DEMO_MODELS = ("relational", "random_forest", "layout_template")
 CURVE_SIZES = (1, 2, 5, 10, None)
-
-
-def machine() -> str:
-    """Where a trained figure was measured: a GNN's scores move with the CPU and the torch
-    build (the order of floating-point sums), so the figure says which ones it came from."""
-    return f"{platform.machine()}, {os.cpu_count()} CPUs, torch {torch.__version__}"
 
 
 def interval(metrics: dict[str, float], name: str) -> str:
