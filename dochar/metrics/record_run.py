@@ -26,7 +26,7 @@ import pandas as pd
 from dochar.metrics.intervals import bootstrap_interval
 from dochar.metrics.records import field_accuracy, record_frame, record_scorers
 from dochar.records.assemble import assemble_records, parses, true_records
-from dochar.records.normalise import NORMALISED, NORMALISATIONS, RAW
+from dochar.records.normalise import NORMALISATIONS, NORMALISED, RAW
 from dochar.records.shape import RecordShape
 
 RECORD_TABLES = {RAW: "records", NORMALISED: "records_normalised"}

@@ -15,16 +15,13 @@ from __future__ import annotations
 from collections.abc import Iterable
 from dataclasses import dataclass, field
 
-
 import pandas as pd
 
 from dochar.data.links_table import ROW_KIND
-
 from dochar.records.normalise import RAW, normalise
 from dochar.records.pieces import Value, cut_pieces
 from dochar.records.rows import Row, join_header_lines, rows_by_layout, rows_from_links
 from dochar.records.shape import RecordShape
-
 
 
 @dataclass
