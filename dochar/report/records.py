@@ -12,22 +12,15 @@ import json
 from collections.abc import Sequence
 
 from dochar.report.page import Html, esc, note, paragraph, table
+from dochar.report.seen_unseen import score_cell
 from dochar.runs.bundle import RunBundle
-from dochar.runs.numbers import interval, number
+from dochar.runs.numbers import number
 
 SCORES = (("straight_through", "straight-through"), ("field_f1", "field F1"),
           ("ted_accuracy", "TED accuracy"), ("row_f1", "row F1"))
 WORST = 5   # documents shown side by side
 RECORD_STYLE = (".record-pair { display: grid; grid-template-columns: 1fr 1fr; gap: 1em; }\n"
                 ".record-pair pre { max-height: 24em; overflow: auto; font-size: 0.8em; }")
-
-
-def _cell(bundle: RunBundle, key: str) -> str:
-    metrics = bundle.metrics
-    if key not in metrics:
-        return "–"
-    spread = interval(metrics.get(f"{key}_low"), metrics.get(f"{key}_high"))
-    return f"{number(metrics[key])} {spread}".strip()
 
 
 def _worst(bundle: RunBundle) -> list[Html]:
@@ -55,8 +48,8 @@ def records_sections(bundles: Sequence[RunBundle], names: Sequence[str], order: 
     if not chosen:
         return []
     chosen.sort(key=lambda i: -bundles[i].metrics["records/straight_through"])
-    rows = [[names[i], *(_cell(bundles[i], f"records/{key}") for key, _ in SCORES),
-             _cell(bundles[i], "records/normalised/straight_through")] for i in chosen]
+    rows = [[names[i], *(score_cell(bundles[i], f"records/{key}") for key, _ in SCORES),
+             score_cell(bundles[i], "records/normalised/straight_through")] for i in chosen]
     labels = sorted({k.removeprefix("records/field/") for i in chosen
                      for k in bundles[i].metrics if k.startswith("records/field/")})
     fields = [[names[i], *(number(bundles[i].metrics.get(f"records/field/{label}"))

@@ -24,7 +24,8 @@ SIDES = ("unseen", "seen")   # the question a layout-held-out test asks comes fi
 _PER_LAYOUT = re.compile(r"curve_per_layout/(\d+(?:\.\d+)?)/(seen|unseen)/macro_f1")
 
 
-def _cell(bundle: RunBundle, key: str) -> str:
+def score_cell(bundle: RunBundle, key: str) -> str:
+    """A metric with its interval, or an en dash when the run lacks it."""
     metrics = bundle.metrics
     if key not in metrics:
         return "–"
@@ -40,8 +41,9 @@ def _side_rows(bundles: Sequence[RunBundle], names: Sequence[str], order: Sequen
         gap = (number(m["seen/macro_f1"] - m["unseen/macro_f1"])
                if "seen/macro_f1" in m and "unseen/macro_f1" in m else "–")
         rows.append([names[i], *(value for side in SIDES for value in (
-            f"{int(m.get(f'{side}/test_documents', 0)):,}", _cell(bundles[i], f"{side}/macro_f1"),
-            _cell(bundles[i], f"{side}/entity_f1"))), gap])
+            f"{int(m.get(f'{side}/test_documents', 0)):,}",
+            score_cell(bundles[i], f"{side}/macro_f1"),
+            score_cell(bundles[i], f"{side}/entity_f1"))), gap])
     return rows
 
 
