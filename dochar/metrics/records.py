@@ -11,7 +11,8 @@ text or list of texts, and the items name -> a list of line items (column -> tex
 * **TED accuracy** (Hwang et al., "Cost-effective End-to-end Information Extraction for
   Semi-structured Document Images", EMNLP 2021; as Kim et al. 2022 compute it):
   ``max(0, 1 - TED(pred, truth) / TED(empty, truth))`` per document, averaged over documents.
-  The tree edit distance is Zhang–Shasha's (the ``zss`` package); a leaf costs its number of
+  The tree edit distance is Zhang–Shasha's (:mod:`dochar.metrics.tree_edit`, checked against
+  the ``zss`` package); a leaf costs its number of
   characters to insert or delete and the character edit distance to its rival leaf to change;
   an inner node costs 1 (to change: 1 when the names differ, plus a leaf's length when a leaf
   becomes an inner node). Keys are ordered by name in both trees, list elements keep their order.
@@ -35,7 +36,9 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
+from rapidfuzz.distance import Levenshtein
 
+from dochar.metrics.tree_edit import PostorderTree, tree_edit_distance
 from dochar.metrics.scorers import ColumnMean, _CountScore, _groups
 from dochar.metrics.words import MetricInputError
 
@@ -77,60 +80,44 @@ def field_counts(pred: Tree, true: Tree) -> tuple[int, int, int]:
     return tp, fp, sum(left.values())
 
 
-@lru_cache(maxsize=1 << 16)
-def _edit_distance(a: str, b: str) -> int:
-    """Levenshtein distance (insert, delete, substitute a character: cost 1 each)."""
-    row = list(range(len(b) + 1))
-    for i, ca in enumerate(a, 1):
-        previous, row[0] = row[0], i
-        for j, cb in enumerate(b, 1):
-            previous, row[j] = row[j], min(row[j] + 1, row[j - 1] + 1, previous + (ca != cb))
-    return row[-1]
-
-
 _LEAF = "\x00leaf:"
 
 
-def to_tree(tree: Tree):
-    """The record as a zss tree: inner nodes named by key ("<item>" for a line item), leaves
-    holding the texts."""
-    from zss import Node
-
-    def build(value: Any, name: str) -> Node:
-        node = Node(name)
+def to_tree(tree: Tree) -> tuple[str, list]:
+    """The record as a tree of ``(label, children)``: inner nodes named by key ("<item>" for a
+    line item), leaves holding the texts."""
+    def build(value: Any, name: str) -> tuple[str, list]:
+        kids: list = []
         if isinstance(value, Mapping):
-            for key in sorted(value):
-                node.addkid(build(value[key], str(key)))
+            kids = [build(value[key], str(key)) for key in sorted(value)]
         elif isinstance(value, (list, tuple)):
-            for child in value:
-                if isinstance(child, Mapping):
-                    node.addkid(build(child, "<item>"))
-                else:
-                    node.addkid(Node(f"{_LEAF}{child}"))
+            kids = [build(child, "<item>") if isinstance(child, Mapping)
+                    else (f"{_LEAF}{child}", []) for child in value]
         else:
-            node.addkid(Node(f"{_LEAF}{value}"))
-        return node
+            kids = [(f"{_LEAF}{value}", [])]
+        return name, kids
 
     return build(tree, "<record>")
+
+
+def _postorder(tree: Tree) -> PostorderTree:
+    return PostorderTree.build(to_tree(tree), children=lambda node: node[1],
+                               label=lambda node: node[0])
 
 
 def _is_leaf(label: str) -> bool:
     return label.startswith(_LEAF)
 
 
-def _insert_cost(node) -> int:
-    return len(node.label) - len(_LEAF) if _is_leaf(node.label) else 1
-
-
-def _update_cost(a, b) -> int:
-    return _label_cost(a.label, b.label)
+def _insert_cost(label: str) -> int:
+    return len(label) - len(_LEAF) if _is_leaf(label) else 1
 
 
 @lru_cache(maxsize=1 << 16)
 def _label_cost(a: str, b: str) -> int:
     la, lb = _is_leaf(a), _is_leaf(b)
     if la and lb:
-        return _edit_distance(a[len(_LEAF):], b[len(_LEAF):])
+        return Levenshtein.distance(a[len(_LEAF):], b[len(_LEAF):])
     if la != lb:
         return 1 + len(a if la else b) - len(_LEAF)
     return int(a != b)
@@ -138,21 +125,14 @@ def _label_cost(a: str, b: str) -> int:
 
 def tree_distance(pred: Tree, true: Tree) -> float:
     """Zhang–Shasha tree edit distance between two records with the costs above."""
-    import zss
-
-    return float(zss.distance(to_tree(pred), to_tree(true), get_children=zss.Node.get_children,
-                              insert_cost=_insert_cost, remove_cost=_insert_cost,
-                              update_cost=_update_cost))
+    return float(tree_edit_distance(_postorder(pred), _postorder(true), _insert_cost,
+                                    _label_cost))
 
 
 def distance_from_empty(true: Tree) -> float:
     """TED(empty, true) without the search: the empty record's root matches ``true``'s root
     (same name, cost 0) and every other node is inserted, so it is the sum of insert costs."""
-    def total(node) -> int:
-        return _insert_cost(node) + sum(total(kid) for kid in node.children)
-
-    root = to_tree(true)
-    return float(sum(total(kid) for kid in root.children))
+    return float(sum(_insert_cost(label) for label in _postorder(true).labels[:-1]))
 
 
 def ted_accuracy(pred: Tree, true: Tree) -> float:
