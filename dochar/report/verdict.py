@@ -27,6 +27,9 @@ from dochar.runs.tracking import LIBRARIES
 # A run records each library's version as tag "version/<name>" (dochar.runs.tracking) or under
 # the config key "versions".
 TEMPLATE_KIND = "template"
+# Without layout ids nothing tells a seen layout from an unseen one; the sentence says so
+# rather than leave the reader to assume either.
+NO_FAMILIES = " (no layout families recorded, so seen and unseen layouts cannot be told apart)"
 
 
 def _plural(n: int, one: str, many: str) -> str:
@@ -34,11 +37,12 @@ def _plural(n: int, one: str, many: str) -> str:
 
 
 def _documents(docs: pd.DataFrame, side: str | None = None) -> str:
-    """'60 test documents of 2 layout families unseen in training' for the documents given."""
+    """'60 test documents of 2 layout families unseen in training' for the documents given;
+    without layout ids, says that seen and unseen cannot be told apart."""
     text = _plural(len(docs), "test document", "test documents")
     families = docs.loc[docs["layout_id"] != "", "layout_id"].nunique()
     if families == 0:
-        return text
+        return text + NO_FAMILIES
     text += " of " + _plural(families, "layout family", "layout families")
     sides = set(docs["side"]) if side is None else {side}
     if sides == {"unseen"}:
