@@ -19,14 +19,15 @@ import pandas as pd
 
 from dochar.report.leaderboard import Pairing
 from dochar.report.page import interval, number
-from dochar.report.summaries import described, document_sides, metric, score_words
+from dochar.report.summaries import (described, document_sides, metric, score_words,
+                                     system_words)
 from dochar.runs.bundle import RunBundle
 from dochar.runs.numbers import p_phrase
 from dochar.runs.tracking import LIBRARIES
 
-# A run records each library's version as tag "version/<name>" (dochar.runs.tracking) or under
-# the config key "versions".
-TEMPLATE_KIND = "template"
+# Without layout ids nothing tells a seen layout from an unseen one; the sentence says so
+# rather than leave the reader to assume either.
+NO_FAMILIES = " (no layout families recorded, so seen and unseen layouts cannot be told apart)"
 
 
 def _plural(n: int, one: str, many: str) -> str:
@@ -34,11 +35,12 @@ def _plural(n: int, one: str, many: str) -> str:
 
 
 def _documents(docs: pd.DataFrame, side: str | None = None) -> str:
-    """'60 test documents of 2 layout families unseen in training' for the documents given."""
+    """'60 test documents of 2 layout families unseen in training' for the documents given;
+    without layout ids, says that seen and unseen cannot be told apart."""
     text = _plural(len(docs), "test document", "test documents")
     families = docs.loc[docs["layout_id"] != "", "layout_id"].nunique()
     if families == 0:
-        return text
+        return text + NO_FAMILIES
     text += " of " + _plural(families, "layout family", "layout families")
     sides = set(docs["side"]) if side is None else {side}
     if sides == {"unseen"}:
@@ -66,19 +68,25 @@ def _capital(text: str) -> str:
     return text[:1].upper() + text[1:]
 
 
-def _templates(bundles: Sequence[RunBundle], names: Sequence[str], order: Sequence[int],
-               named: set[int], docs: pd.DataFrame) -> str:
-    """Per-layout templates beside the comparison: what they score on each side."""
+def _others(bundles: Sequence[RunBundle], names: Sequence[str], order: Sequence[int],
+            named: set[int], docs: pd.DataFrame, score: str) -> str:
+    """The best run of each system the comparison leaves out (a GNN, templates, ...), with its
+    score on each side, so no system a reader ran is missing from the paragraph."""
+    systems = {system_words(bundles[i]) for i in named}
+    sides = [side for side in ("unseen", "seen") if (docs["side"] == side).any()]
     parts = []
     for i in order:
         bundle = bundles[i]
-        if i in named or bundle.tags.get("model_kind") != TEMPLATE_KIND:
+        if i in named or system_words(bundle) in systems:
             continue
-        scores = [f"{number(metric(bundle, f'{side}/macro_f1'))} on the {side} families"
-                  for side in ("unseen", "seen") if metric(bundle, f"{side}/macro_f1") is not None
-                  and (docs["side"] == side).any()]
+        systems.add(system_words(bundle))
+        scores = [f"{number(metric(bundle, f'{side}/{score}'))} on the {side} families"
+                  for side in sides if metric(bundle, f"{side}/{score}") is not None]
+        if not scores and metric(bundle, score) is not None:
+            every = _plural(len(docs), "test document", "test documents")
+            scores = [f"{number(metric(bundle, score))} on all {every}"]
         if scores:
-            parts.append(f" {_capital(described(bundle, names[i]))} score word macro-F1 "
+            parts.append(f" {_capital(described(bundle, names[i]))}: {score_words(score)} "
                          f"{' and '.join(scores)}.")
     return "".join(parts)
 
@@ -113,7 +121,7 @@ def verdict(bundles: Sequence[RunBundle], names: Sequence[str], order: Sequence[
                    for side in ("unseen", "seen")]
         every = _plural(len(docs), "test document", "test documents")
         text = " ".join([*clauses, f"Over all {every}, {overall}."])
-    return text + _templates(bundles, names, order, {challenger, reference}, docs)
+    return text + _others(bundles, names, order, {challenger, reference}, docs, score)
 
 
 def _agreed(values: Sequence[str | None], what: str) -> str:
@@ -131,6 +139,8 @@ def _agreed(values: Sequence[str | None], what: str) -> str:
     return text + (f"; {missing} run(s) record none" if missing else "")
 
 
+# A run records each library's version as tag "version/<name>" (dochar.runs.tracking) or under
+# the config key "versions".
 def _recorded_version(bundle: RunBundle, library: str) -> str | None:
     versions = bundle.config.get("versions") if isinstance(bundle.config, dict) else None
     value = bundle.tags.get(f"version/{library}") or \

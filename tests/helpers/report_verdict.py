@@ -21,7 +21,8 @@ TIE = re.compile(rf"no clear difference between (?P<a>.+) and (?P<b>.+): "
                  rf"(?P<high>{NUMBER})\] \(the interval covers 0\), {P}")
 DOCUMENTS = (r"(?P<documents>[\d,]+) test documents?(?: of (?P<families>\d+) layout "
              r"famil(?:y|ies)(?P<side>, all unseen in training|, all seen in training| unseen "
-             r"in training| also seen in training)?)?")
+             r"in training| also seen in training)?|(?P<unknown> \(no layout families recorded, "
+             r"so seen and unseen layouts cannot be told apart\)))?")
 PLAIN = re.compile(rf"(?P<clause>.+), on {DOCUMENTS}\.(?P<rest>.*)")
 SIDED = re.compile(rf"On the {DOCUMENTS}, (?P<clause>.+?)\. (?P<rest>(?:On the|Over all) .*)")
 OVERALL = re.compile(r"Over all (?P<documents>[\d,]+) test documents?, (?P<clause>.+?)\."
@@ -135,7 +136,7 @@ def check_verdict(html: str, runs: list[RunBundle], reference: str, measure: str
         assert match is not None, f"verdict not in any expected form: {sentence!r}"
         documents = int(match["documents"].replace(",", ""))
         families = None if match["families"] is None else int(match["families"])
-        scope = match["side"]
+        scope = match["side"] if match["unknown"] is None else match["unknown"]
     clause = parse_clause(match["clause"], this, that)
     _form_follows(clause)
     # The leaderboard's cells for the same pair say the same.

@@ -205,6 +205,10 @@ def test_verdict_opens_the_page_and_agrees_with_the_leaderboard(runs, report):
     said = check_verdict(report, runs, reference="forest & friends", measure="macro_f1")
     assert said.challenger == "deep tree" and said.form == "reference beats"
     assert said.documents == runs[0].predictions["doc_id"].nunique() and said.families is None
+    # FUNSD forms carry no layout id (dataset README): the sentence must not call them seen
+    # or unseen, and says why.
+    assert said.scope == " (no layout families recorded, so seen and unseen layouts cannot " \
+                         "be told apart)"
 
 
 def test_verdict_of_a_run_beating_the_reference(runs, tmp_path):

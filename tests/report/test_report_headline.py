@@ -13,7 +13,8 @@ import pytest
 from sklearn.metrics import f1_score
 
 from dochar.report import write_report
-from tests.helpers.report_runs import table_cells
+from dochar.runs.bundle import RunBundle
+from tests.helpers.report_runs import funsd_runs, table_cells
 from tests.helpers.report_verdict import check_verdict
 from tests.helpers.split_runs import SPLITS, expected_sides, protocol_runs
 
@@ -67,3 +68,23 @@ def test_headline_names_the_documents_and_sides_of_the_split(split, tmp_path):
         assert said.families == test["layout_id"].nunique()
         assert said.scope == f", all {side} in training"
         assert said.sides is None
+
+
+def test_verdict_names_every_system_the_comparison_leaves_out(funsd_root, tmp_path):
+    # A run of a third system (the shallow tree's predictions tagged as an R-GCN) ranks below
+    # the pair compared; the paragraph still names it once, with its score recomputed here by
+    # sklearn's f1_score; a second run of a system already named is not repeated.
+    runs = funsd_runs(funsd_root)
+    shallow = next(r for r in runs if r.name == "shallow tree")
+    graph = RunBundle(name="graph on forms", labels=shallow.labels,
+                      metrics=dict(shallow.metrics), predictions=shallow.predictions,
+                      tags={**shallow.tags, "model": "relational"})
+    chosen = [*runs, graph]
+    html = write_report(chosen, tmp_path / "others.html", overlay_pages=0).read_text()
+    said = check_verdict(html, chosen, reference="forest & friends", measure="macro_f1")
+    assert said.challenger == "deep tree"
+    truth, predicted = graph.predictions["label"], graph.predictions["predicted"]
+    documents = graph.predictions["doc_id"].nunique()
+    assert said.rest == (f" R-GCN (graph on forms): word macro-F1 "
+                         f"{f1_score(truth, predicted, average='macro'):.3f} on all "
+                         f"{documents} test documents.")
