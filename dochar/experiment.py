@@ -155,7 +155,8 @@ def run_experiment(cfg: DictConfig) -> tuple[RunBundle, FittedModel]:
         tested = {doc for doc, part in part_of.items() if part == "test"}
         found, record_tables = record_evaluation(scored_words(split.table, words, tested),
                                                  shape, data.links, cfg.evaluation,
-                                                 seed=int(cfg.seed))
+                                                 seed=int(cfg.seed),
+                                                 sides=split.assignment.test_sides)
         metrics.update(found)
         scores.tables.update(record_tables)
     stats = graph_stats(sets["test"].pages, builder, list(cfg.data.table_labels),

@@ -7,7 +7,10 @@ table's labels, entity ids and the links table's ``row`` links
 ``dochar predict``: the task's groups where it has them, runs of words otherwise, rows by the
 layout rule. Scores are logged raw as ``records/<score>`` and on normalised values as
 ``records/normalised/<score>``, each with a bootstrap interval over documents
-(``..._low``/``..._high``), and the per-field accuracy as ``records/field/<label>``.
+(``..._low``/``..._high``), and the per-field accuracy as ``records/field/<label>``. On a split
+with seen and unseen layouts the raw scores are also given per side,
+``records/<side>/<score>``, each side resampling its own documents
+(:func:`dochar.metrics.seen_unseen.side_metrics`).
 
 Tables: ``records`` and ``records_normalised`` (one row per document: the counts of
 :func:`dochar.metrics.records.record_frame`, what ``dochar compare`` resamples), and
@@ -25,6 +28,7 @@ import pandas as pd
 
 from dochar.metrics.intervals import bootstrap_interval
 from dochar.metrics.records import field_accuracy, record_frame, record_scorers
+from dochar.metrics.seen_unseen import SIDE_COLUMN, side_metrics
 from dochar.records.assemble import assemble_records, parses, true_records
 from dochar.records.normalise import NORMALISATIONS, NORMALISED, RAW
 from dochar.records.shape import RecordShape
@@ -47,9 +51,10 @@ def scored_words(table: pd.DataFrame, decoded: pd.DataFrame, documents: set[str]
 
 
 def record_evaluation(words: pd.DataFrame, shape: RecordShape, links: pd.DataFrame | None,
-                      cfg: Mapping[str, Any], *, seed: int
+                      cfg: Mapping[str, Any], *, seed: int, sides: Mapping[str, str] | None = None
                       ) -> tuple[dict[str, float], dict[str, pd.DataFrame]]:
-    """(metrics, tables) of the module docstring; ``cfg`` is the run's ``evaluation`` section."""
+    """(metrics, tables) of the module docstring; ``cfg`` is the run's ``evaluation`` section,
+    ``sides`` each test document's layout side (seen / unseen / blank)."""
     truth = true_records(words, shape, links)
     guessed = assemble_records(words, shape, label_col="predicted",
                                group_col="entity" if "entity" in words else None)
@@ -70,6 +75,10 @@ def record_evaluation(words: pd.DataFrame, shape: RecordShape, links: pd.DataFra
         if how == RAW:
             metrics.update({f"records/field/{label}": value
                             for label, value in field_accuracy(frame).items()})
+            if sides:
+                by_side = frame.assign(**{SIDE_COLUMN: frame["doc_id"].map(sides).fillna("")})
+                metrics.update({f"{prefix}{key}": value for key, value in
+                                side_metrics(by_side, record_scorers(), cfg, seed=seed).items()})
         tables[RECORD_TABLES[how]] = frame.set_index("doc_id")
     true_raw, guessed_raw = parses(truth, shape), parses(guessed, shape)
     tables["record_pairs"] = pd.DataFrame({
