@@ -19,7 +19,8 @@ from dochar.runs.numbers import number
 SCORES = (("straight_through", "straight-through"), ("field_f1", "field F1"),
           ("ted_accuracy", "TED accuracy"), ("row_f1", "row F1"))
 WORST = 5   # documents shown side by side
-RECORD_STYLE = (".record-pair { display: grid; grid-template-columns: 1fr 1fr; gap: 1em; }\n"
+RECORD_STYLE = (".record-pair { display: grid; gap: 1em;\n"
+                "  grid-template-columns: minmax(0, 1fr) minmax(0, 1fr); }\n"   # long lines scroll
                 ".record-pair pre { max-height: 24em; overflow: auto; font-size: 0.8em; }")
 
 
@@ -48,8 +49,8 @@ def records_sections(bundles: Sequence[RunBundle], names: Sequence[str], order: 
     if not chosen:
         return []
     chosen.sort(key=lambda i: -bundles[i].metrics["records/straight_through"])
-    rows = [[names[i], *(score_cell(bundles[i], f"records/{key}") for key, _ in SCORES),
-             score_cell(bundles[i], "records/normalised/straight_through")] for i in chosen]
+    rows = [[names[i], *(score_cell(bundles[i], f"records/{key}") for key, _ in SCORES)]
+            for i in chosen]
     labels = sorted({k.removeprefix("records/field/") for i in chosen
                      for k in bundles[i].metrics if k.startswith("records/field/")})
     sided = [side for side in ("unseen", "seen")
@@ -67,9 +68,14 @@ def records_sections(bundles: Sequence[RunBundle], names: Sequence[str], order: 
                   "2022), TED accuracy (Hwang et al., EMNLP 2021) and row F1 as in "
                   "docs/records.md; 95% bootstrap intervals over test documents."),
         table(["run", SCORES[0][1], *(f"straight-through, {side} layouts" for side in sided),
-               *(words for _, words in SCORES[1:]), "straight-through, normalised"], rows,
-              numeric=range(1, len(SCORES) + len(sided) + 2), wrap=[0],
+               *(words for _, words in SCORES[1:])], rows,
+              numeric=range(1, len(SCORES) + len(sided) + 1), wrap=[0],
               table_id="records-table"),
+        note("Scores on normalised values (dates, amounts, spaces) are logged beside these as "
+             "records/normalised/<score>: " + "; ".join(
+                 f"{names[i]} straight-through "
+                 f"{number(bundles[i].metrics.get('records/normalised/straight_through'))}"
+                 for i in chosen) + "."),
         Html("<h3>Accuracy of each field</h3>"),
         table(["run", *labels], fields, numeric=range(1, len(labels) + 1), wrap=[0],
               table_id="record-fields-table"),

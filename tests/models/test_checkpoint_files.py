@@ -3,8 +3,9 @@ writes are removed, and that a failed write keeps the previous checkpoint whole.
 
 Expected values are the documented rules of dochar/models/checkpoints.py worked out by hand:
 a digest changes when any tensor training sees changes (common practice: a content hash), the
-key ignores the display-only settings, and a ``<key>.pt.<pid>.partial`` file is removed unless
-another process with that pid still runs (``os.kill(pid, 0)``, POSIX ``kill(2)``).
+key ignores the display-only settings, and a ``<key>.pt.<pid>-<random>.partial`` file
+(dochar/data/files.py) is removed unless another process with that pid still runs
+(``os.kill(pid, 0)``, POSIX ``kill(2)``).
 """
 
 from __future__ import annotations
@@ -20,9 +21,10 @@ import pytest
 import torch
 from torch_geometric.data import Data
 
+from dochar.data import files
+from dochar.data.files import OutputWriteError, remove_stale_partials
 from dochar.models import checkpoints
-from dochar.models.checkpoints import (EpochCheckpoint, inputs_digest, remove_stale_partials,
-                                       training_key)
+from dochar.models.checkpoints import EpochCheckpoint, inputs_digest, training_key
 
 
 def _graph(**change) -> Data:
@@ -85,32 +87,33 @@ def test_partials_of_finished_writers_are_removed_and_a_running_writers_kept(tmp
                                 "print('still running')"], stdin=subprocess.PIPE,
                                stdout=subprocess.PIPE, text=True)
     try:
-        names = {"dead": f"k.pt.{dead}.partial", "running": f"k.pt.{running.pid}.partial",
-                 "own": f"k.pt.{os.getpid()}.partial", "no pid": "k.pt.x.partial",
+        names = {"dead": f"k.pt.{dead}-0a1b.partial",
+                 "running": f"k.pt.{running.pid}-0a1b.partial",
+                 "own": f"k.pt.{os.getpid()}-0a1b.partial", "no pid": "k.pt.x.partial",
                  "checkpoint": "k.pt", "other file": "notes.partial"}
         for name in names.values():
             (tmp_path / name).write_bytes(b"half")
-        with caplog.at_level("INFO", logger=checkpoints.__name__):
+        with caplog.at_level("INFO", logger=files.__name__):
             removed = remove_stale_partials(tmp_path)
         # asked whether it runs (signal 0), not signalled: it lives on to answer
         assert running.communicate("go\n", timeout=60) == ("still running\n", None)
     finally:
         running.kill()
         running.wait()
-    gone = {names["dead"], names["own"], names["no pid"]}
+    gone = {names["dead"]}   # this process's own and unnamed partials are not a dead writer's
     assert sorted(p.name for p in removed) == sorted(gone)
     assert sorted(p.name for p in tmp_path.iterdir()) == sorted(set(names.values()) - gone)
     assert sorted(r.getMessage() for r in caplog.records) == sorted(
-        f"removed {tmp_path / name}, a checkpoint write its killed process left unfinished"
+        f"removed {tmp_path / name}, a write its killed process left unfinished"
         for name in gone)
 
 
 def test_a_partial_another_start_removed_first_is_no_error(tmp_path, monkeypatch):
     """Two runs starting in one folder may both list a stale partial; the second to remove it
     finds it gone."""
-    gone = tmp_path / "k.pt.4194305.partial"       # above Linux's largest pid: no such process
-    monkeypatch.setattr(checkpoints.Path, "glob", lambda self, pattern: iter([gone]))
-    assert remove_stale_partials(tmp_path) == [gone]
+    gone = tmp_path / "k.pt.4194305-0a1b.partial"  # above Linux's largest pid: no such process
+    monkeypatch.setattr(files.Path, "glob", lambda self, pattern: iter([gone]))
+    assert remove_stale_partials(tmp_path) == []
 
 
 def test_a_writer_of_another_user_counts_as_running(monkeypatch):
@@ -118,13 +121,13 @@ def test_a_writer_of_another_user_counts_as_running(monkeypatch):
     def refused(pid, signal):
         raise PermissionError(1, "Operation not permitted")
 
-    monkeypatch.setattr(checkpoints.os, "kill", refused)
-    assert checkpoints._running(12345) is True
+    monkeypatch.setattr(files.os, "kill", refused)
+    assert files.process_running(12345) is True
 
 
 def test_removing_a_checkpoint_removes_its_file_and_stale_partials_only(tmp_path):
     checkpoint = EpochCheckpoint(tmp_path, "k", "inputs")
-    for name in ("k.pt", "other.pt", f"k.pt.{_dead_pid()}.partial"):
+    for name in ("k.pt", "other.pt", f"k.pt.{_dead_pid()}-0a1b.partial"):
         (tmp_path / name).write_bytes(b"x")
     checkpoint.remove()
     assert [p.name for p in tmp_path.iterdir()] == ["other.pt"]
@@ -146,7 +149,7 @@ def test_a_write_that_fails_keeps_the_previous_checkpoint(tmp_path, monkeypatch)
         raise OSError("disk full")
 
     monkeypatch.setattr(checkpoints.torch, "save", fail)
-    with pytest.raises(OSError):
+    with pytest.raises(OutputWriteError, match="disk full"):
         checkpoint.save(2, model, optimizer, generator, history, {"w": torch.zeros(1)})
     assert checkpoint.path.read_bytes() == before
     assert [p.name for p in tmp_path.iterdir()] == ["k.pt"]
@@ -238,7 +241,7 @@ def test_a_write_that_cannot_start_raises_its_own_error(tmp_path, monkeypatch):
     monkeypatch.setattr(checkpoints, "open", refused, raising=False)
     model = torch.nn.Linear(2, 1)
     history = make_dataclass("History", [("losses", list)])([])
-    with pytest.raises(PermissionError):
+    with pytest.raises(OutputWriteError, match="permission denied"):
         EpochCheckpoint(tmp_path, "k", "inputs").save(
             1, model, torch.optim.SGD(model.parameters(), lr=0.1), torch.Generator(), history, {})
     assert list(tmp_path.iterdir()) == []

@@ -98,6 +98,8 @@ def test_the_printed_address_lists_the_sweep_in_the_mlflow_ui(swept):
                 page = browser.new_page(viewport={"width": 1400, "height": 900})
                 page.goto(address, wait_until="load")   # the UI keeps polling: never idle
                 page.wait_for_selector("text=matching runs", timeout=90_000)
+                # the heading renders after the runs table on a loaded machine: wait for it
+                page.locator("h2, h1", has_text="Training runs").first.wait_for(timeout=60_000)
                 title = page.locator("h2, h1").all_inner_texts()
                 # the sweep is one parent row; its expander shows the runs it launched
                 page.locator('[col-id="attributes.`Run Name`"] button').first.click()
