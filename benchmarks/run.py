@@ -22,6 +22,7 @@ from threadpoolctl import threadpool_limits
 from benchmarks.builders import builder_figures
 from benchmarks.complete import complete_figures
 from benchmarks.inputs import FUNSD_PRESET, SYNTH_PRESET, run_inputs
+from benchmarks.prediction import prediction_figures
 from benchmarks.records import record_figures
 from benchmarks.report import markdown
 from benchmarks.scale import scale_figures
@@ -54,7 +55,9 @@ def main(argv: list[str] | None = None) -> int:
             inputs = run_inputs([*SYNTH_PRESET, "data.documents=12", "train.max_epochs=3"])
         else:
             inputs = run_inputs(FUNSD_PRESET, datasets_root())
-        figures += training_figures(inputs, repeats, judged, trees=20 if args.smoke else 300)
+        trees = 20 if args.smoke else 300
+        figures += training_figures(inputs, repeats, judged, trees=trees)
+        figures += prediction_figures(inputs, repeats, judged, trees=trees)
         figures += scale_figures(scale, judged)
         figures += record_figures(20, 4 if args.smoke else 10, repeats, judged)
     command = "python -m benchmarks.run " + " ".join(argv if argv is not None else sys.argv[1:])

@@ -1,11 +1,12 @@
-"""Training and prediction figures for the relational GNN, with the random forest beside it.
+"""Training figures for the relational GNN, with the random forest beside it.
 
 * one training epoch (the loop of :func:`dochar.models.training.train`, validation included),
   against the same weights computed the way the model was computed before its sparse product
   (:mod:`benchmarks.reference_training`), and, for context, the dense products of the relational
   layers alone: the arithmetic no loop or kernel change can avoid;
-* training to the early stop (the preset's epochs and patience) against the forest's fit;
-* prediction end to end, word table to labels: features, graph, model, argmax per page.
+* training to the early stop (the preset's epochs and patience) against the forest's fit.
+
+Prediction speed lives in :mod:`benchmarks.prediction`.
 """
 
 from __future__ import annotations
@@ -20,11 +21,9 @@ from benchmarks.inputs import RunInputs
 from benchmarks.reference_training import reference_copy
 from benchmarks.report import Figure, timed
 from dochar.models.inputs import label_indices, to_graphs, to_matrix
-from dochar import graphs as graph_builders
-from dochar.graphs.base import no_edges
 from dochar.models.baselines import make_baseline
 from dochar.models.objectives import NodeClasses
-from dochar.models.training import predict_proba, seed_everything, train
+from dochar.models.training import seed_everything, train
 
 
 def training_figures(inputs: RunInputs, repeats: int, judged: bool, trees: int = 300
@@ -62,7 +61,6 @@ def training_figures(inputs: RunInputs, repeats: int, judged: bool, trees: int =
         Figure(f"training to the early stop ({history[-1].epochs_run} epochs) / random forest "
                f"fit ({trees} trees), same words", f"{to_stop:.1f} s", f"{forest_fit:.1f} s",
                to_stop / forest_fit, "<=", 2, judged),
-        *prediction_figures(inputs, forest, repeats, judged),
     ]
 
 
@@ -101,57 +99,3 @@ def fitted_forest(inputs: RunInputs, index: dict[str, int], trees: int):
                   hash_features=int(cfg.features.hash_features), neighbour_features=False)
     y = np.concatenate([label_indices(p, index) for p in inputs.sets["train"].pages])
     return forest, timed(lambda: forest.fit(x, y))
-
-
-def prediction_figures(inputs: RunInputs, forest, repeats: int, judged: bool) -> list[Figure]:
-    """Pages per second from words to labels, every stage included, one page at a time."""
-    from dochar.models.inputs import PageSet
-
-    pages = inputs.sets["test"].pages
-    builder = graph_builders.from_config(inputs.cfg.graph)
-    model = inputs.model().eval()
-    featurizer = inputs.featurizer
-    hashes = int(inputs.cfg.features.hash_features)
-
-    def gnn() -> None:
-        with torch.no_grad():
-            for page in pages:
-                edges = builder(page)
-                x = torch.from_numpy(featurizer.transform(page))
-                chars = torch.from_numpy(featurizer.char_ids(page))
-                logits = model(x, torch.from_numpy(edges.edge_index),
-                               torch.from_numpy(edges.edge_type), chars)
-                logits.argmax(dim=1).numpy()
-
-    def forest_labels() -> None:        # no graph: the forest reads each word's own features
-        for page in pages:
-            one = PageSet([page], [no_edges(builder.relations)], tuple(builder.relations))
-            forest.predict(to_matrix(one, featurizer, hash_features=hashes,
-                                     neighbour_features=False))
-
-    def gnn_together() -> None:      # as a run predicts its test pages: one disjoint graph
-        page_set = PageSet(list(pages), [builder(page) for page in pages],
-                           tuple(builder.relations))
-        graphs = to_graphs(page_set, featurizer, index)
-        predict_proba(model, graphs)
-
-    def forest_together() -> None:
-        page_set = PageSet(list(pages), [no_edges(builder.relations)] * len(pages),
-                           tuple(builder.relations))
-        forest.predict(to_matrix(page_set, featurizer, hash_features=hashes,
-                                 neighbour_features=False))
-
-    index = {label: i for i, label in enumerate(inputs.labels)}
-    rates = {name: len(pages) / timed(work, repeats) for name, work in (
-        ("gnn", gnn_together), ("forest", forest_together), ("gnn one", gnn),
-        ("forest one", forest_labels))}
-    words = sum(len(p) for p in pages) / len(pages)
-    return [
-        Figure(f"prediction end to end, relational GNN, {len(pages)} pages in one batch, pages/s "
-               f"({words:.0f} words a page)", f"{rates['gnn']:.0f} pages/s", comparison=">=",
-               threshold=200, judged=judged, number=rates["gnn"]),
-        Figure("prediction end to end, random forest (same features), pages/s",
-               f"{rates['forest']:.0f} pages/s", number=rates["forest"]),
-        Figure("prediction end to end one page at a time: relational GNN, random forest",
-               f"{rates['gnn one']:.0f}, {rates['forest one']:.0f} pages/s"),
-    ]
