@@ -9,7 +9,9 @@ every other survivor is listed in the report with its diff, as a test to write.
 
 Kill rate = killed / (mutants - equivalent - not run). Mutants that no selected test reaches
 count as not killed; mutants of an interrupted run that were never tried count as not run
-(``--report-only`` writes the report of run folders as they stand, e.g. after an
+(``--again`` goes on with a run folder after tests were added: it refreshes the folder's
+tests and unmutated code from the checkout and runs every mutant not yet killed again;
+``--report-only`` writes the report of run folders as they stand, e.g. after an
 interruption; given several ``--workdir`` folders, each of one module's separate run, it merges
 them into one report). ``--min-rate`` makes the exit status 1 when a module falls below it.
 
@@ -71,12 +73,39 @@ def prepare(workdir: Path, targets: dict[str, list[str]], isolation: str) -> Non
     """A scratch copy of the tracked sources plus mutmut's settings for these targets."""
     shutil.rmtree(workdir, ignore_errors=True)
     workdir.mkdir(parents=True)
+    _copy_tracked(workdir, skip=set())
+    _write_settings(workdir, targets, isolation)
+
+
+def refresh(workdir: Path, targets: dict[str, list[str]], isolation: str) -> None:
+    """Bring a run folder's tests and unmutated code up to the checkout, keeping its mutants:
+    the mutated modules must be those the run was made of, or its verdicts would be of other
+    code."""
+    if not (workdir / "mutants").is_dir():
+        raise SystemExit(f"--again: {workdir} holds no mutmut run; run without --again first")
+    changed = [module for module in targets
+               if (workdir / module).read_bytes() != (ROOT / module).read_bytes()]
+    if changed:
+        raise SystemExit(f"--again: {changed} changed since the run in {workdir}; "
+                         "run afresh (without --again)")
+    _copy_tracked(workdir, skip=set(targets))
+    _write_settings(workdir, targets, isolation)
+
+
+def _copy_tracked(workdir: Path, skip: set[str]) -> None:
     tracked = subprocess.run(["git", "ls-files", *COPIED], cwd=ROOT, check=True,
                              capture_output=True, text=True).stdout.split()
     for name in tracked:
+        if name in skip:
+            continue
         target = workdir / name
         target.parent.mkdir(parents=True, exist_ok=True)
         shutil.copy2(ROOT / name, target)
+
+
+def _write_settings(workdir: Path, targets: dict[str, list[str]], isolation: str) -> None:
+    """The checkout's pyproject.toml plus mutmut's settings (the same for the same targets,
+    so that mutmut keeps the verdicts of a run it goes on with)."""
     tests = list(dict.fromkeys(t for paths in targets.values() for t in paths))
     settings = "\n".join([
         "", "[tool.mutmut]",
@@ -88,8 +117,8 @@ def prepare(workdir: Path, targets: dict[str, list[str]], isolation: str) -> Non
                                                *(f"--deselect={t}" for t in DESELECTED)]),
         f'process_isolation = "{isolation}"',
         "use_git_change_detection = false", ""])
-    with open(workdir / "pyproject.toml", "a", encoding="utf-8") as handle:
-        handle.write(settings)
+    pyproject = (ROOT / "pyproject.toml").read_text(encoding="utf-8")
+    (workdir / "pyproject.toml").write_text(pyproject + settings, encoding="utf-8")
 
 
 def _toml_list(items) -> str:
@@ -117,6 +146,13 @@ def mutmut(workdir: Path, *args: str, log: Path | None = None) -> str:
         raise SystemExit(f"{' '.join(command)} failed ({done.returncode}):\n"
                          f"{done.stdout[-3000:]}\n{done.stderr[-3000:]}")
     return done.stdout
+
+
+def not_killed(workdir: Path) -> list[str]:
+    """The mutants of a run folder that no test has killed yet (survived, untried, ...)."""
+    found = (re.match(r"\s*(\S+): (.+)$", line)
+             for line in mutmut(workdir, "results", "--all", "true").splitlines())
+    return [match[1] for match in found if match and match[2] != "killed"]
 
 
 def module_of(mutant: str, modules: list[str]) -> str:
@@ -213,6 +249,9 @@ def main(argv: list[str] | None = None) -> int:
                         help="the run folder (default .mutation/<mode>); several with "
                              "--report-only: one report of their modules")
     parser.add_argument("--workers", type=int, default=2)
+    parser.add_argument("--again", action="store_true",
+                        help="go on with the run in --workdir: its tests and unmutated code "
+                             "refreshed from the checkout, every mutant not killed run again")
     parser.add_argument("--report-only", action="store_true",
                         help="no run: report the mutants of --workdir as they stand")
     parser.add_argument("--min-rate", type=float, default=None,
@@ -233,10 +272,15 @@ def main(argv: list[str] | None = None) -> int:
         # the smoke test loads no torch, so its mutants fork straight from mutmut's process;
         # torch is not fork-safe, so the full run forks them from a server that never ran it
         workdir = workdirs[0]
-        prepare(workdir, targets, "fork" if args.smoke else "forkserver")
+        isolation = "fork" if args.smoke else "forkserver"
+        again = not_killed(workdir) if args.again else []
+        (refresh if args.again else prepare)(workdir, targets, isolation)
         log = workdir / "mutmut-run.log"
-        print(f"mutmut over {len(targets)} module(s) in {workdir}; progress in {log}", flush=True)
-        mutmut(workdir, "run", "--max-children", str(args.workers), log=log)
+        print(f"mutmut over {len(targets)} module(s) in {workdir}"
+              f"{f', {len(again)} mutants again' if args.again else ''}; progress in {log}",
+              flush=True)
+        if not args.again or again:
+            mutmut(workdir, "run", "--max-children", str(args.workers), *again, log=log)
     results = merged([collect(workdir, targets, load_equivalents(ROOT / "mutation" /
                                                                  "equivalent.toml"))
                       for workdir in workdirs], targets)

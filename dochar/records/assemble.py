@@ -20,7 +20,8 @@ import pandas as pd
 from dochar.data.links_table import ROW_KIND
 from dochar.records.normalise import RAW, normalise
 from dochar.records.pieces import Value, cut_pieces
-from dochar.records.rows import Row, join_header_lines, rows_by_layout, rows_from_links
+from dochar.records.rows import (Row, join_header_lines, rows_by_anchor, rows_by_layout,
+                                 rows_from_links)
 from dochar.records.shape import RecordShape
 
 
@@ -62,7 +63,7 @@ def assemble_records(words: pd.DataFrame, shape: RecordShape, *, label_col: str 
 
     ``group_col`` names the words' groups (the task's entities), else values are runs of
     words; ``row_links`` (``doc_id, page, source, target`` between groups) gives the rows,
-    else the layout rule does.
+    else the shape's ``row_anchor`` does (an item per line holding it), else the layout rule.
     """
     links = _links_by_document(row_links)
     records = []
@@ -80,8 +81,12 @@ def assemble_records(words: pd.DataFrame, shape: RecordShape, *, label_col: str 
                 record.fields.setdefault(value.label, []).append(value)
             items.extend(p for p in pieces if p.label in shape.item_columns)
         if items:
-            record.items = (rows_from_links(items, links.get(str(doc_id), []))
-                            if row_links is not None else rows_by_layout(items))
+            if row_links is not None:
+                record.items = rows_from_links(items, links.get(str(doc_id), []))
+            elif shape.row_anchor:
+                record.items = rows_by_anchor(items, shape.row_anchor)
+            else:
+                record.items = rows_by_layout(items)
         records.append(record)
     return records
 

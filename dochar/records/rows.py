@@ -1,6 +1,6 @@
 """Table rows from item pieces, and header values written over several lines.
 
-Two ways to find a document's line items:
+Three ways to find a document's line items:
 
 * **from row links** (a row model's predicted links, or the truth's links of kind ``row``):
   the rows are the connected components of the links between the pieces' groups; a piece no
@@ -16,6 +16,11 @@ Two ways to find a document's line items:
      column. Any other band starts a new row.
 
   Cells of one column within one row are joined in reading order.
+* **by an anchor column** (the shape's ``row_anchor``, e.g. a receipt's item name), page by
+  page: the same line bands; a band holding an anchor piece starts a new item when the current
+  item has its anchor already, and every other band joins the current item (a receipt's count,
+  unit price, price and sub-item lines under their item's name). Bands before the first anchor
+  belong to the first item. Cells of one column within one item are joined in reading order.
 
 Header values over several lines (:func:`join_header_lines`): a piece joins the value above it
 when it has the same label, starts within one height of that value's left edge, lies less than
@@ -105,6 +110,23 @@ def rows_by_layout(pieces: Sequence[Value]) -> list[Row]:
             else:
                 current = _join_cells(band)
                 rows.append(current)
+    return rows
+
+
+def rows_by_anchor(pieces: Sequence[Value], anchor: str) -> list[Row]:
+    """Rows of item pieces opened by ``anchor`` pieces (module docstring), page by page."""
+    rows: list[Row] = []
+    for page in sorted({p.page for p in pieces}):
+        on_page = [p for p in pieces if p.page == page]
+        height = float(np.median([p.height for p in on_page]))
+        current: Row | None = None
+        for band in _bands(on_page, height):
+            if current is None or (anchor in current and any(p.label == anchor for p in band)):
+                current = {}
+                rows.append(current)
+            for piece in band:
+                current[piece.label] = (current[piece.label].join(piece)
+                                        if piece.label in current else piece)
     return rows
 
 

@@ -4,7 +4,9 @@
 number, its dates); ``item_columns`` are the labels of table cells, one column each, that make
 up a line item; ``items_name`` is the key the list of line items goes under. ``date_fields`` and
 ``amount_fields`` name the labels (of either kind) whose values normalisation reads as dates or
-amounts. A label may be in one role only, and every label named must be one of the data's labels:
+amounts. ``row_anchor`` (optional) is the item column that opens a line item: every line
+holding it starts a new item, and the lines under it join that item until the next one (a
+receipt's item name; :func:`dochar.records.rows.rows_by_anchor`). A label may be in one role only, and every label named must be one of the data's labels:
 :func:`check_shape` says which key names what, before any data loads.
 """
 
@@ -17,7 +19,7 @@ from typing import Any
 from dochar.errors import DocharError, did_you_mean
 
 SHAPE_KEYS: tuple[str, ...] = ("header_fields", "item_columns", "items_name", "date_fields",
-                               "amount_fields")
+                               "amount_fields", "row_anchor")
 
 
 class RecordShapeError(DocharError):
@@ -33,6 +35,7 @@ class RecordShape:
     items_name: str = "items"
     date_fields: tuple[str, ...] = ()
     amount_fields: tuple[str, ...] = ()
+    row_anchor: str = ""             # "": rows by the layout rule
 
     @property
     def labels(self) -> tuple[str, ...]:
@@ -62,6 +65,12 @@ class RecordShape:
                                            "a non-empty name")
                 values[key] = value.strip()
                 continue
+            if key == "row_anchor":
+                if not isinstance(value, str):
+                    raise RecordShapeError(f"config key {where}.row_anchor={value!r}: expected "
+                                           "one label")
+                values[key] = value.strip()
+                continue
             if isinstance(value, str) or not all(isinstance(v, str) for v in value):
                 raise RecordShapeError(f"config key {where}.{key}={value!r}: expected a list "
                                        "of labels")
@@ -89,6 +98,9 @@ def check_shape(shape: RecordShape, labels: Sequence[str] | None, *,
             if label not in seen:
                 raise RecordShapeError(f"config key {where}.{key}: label {label!r} is neither "
                                        "a header field nor an item column")
+    if shape.row_anchor and shape.row_anchor not in shape.item_columns:
+        raise RecordShapeError(f"config key {where}.row_anchor: label {shape.row_anchor!r} is "
+                               f"not one of {where}.item_columns")
     if labels is None:
         return
     for key in ("header_fields", "item_columns"):

@@ -323,3 +323,122 @@ def test_percentile_interval_equals_the_documented_draws(options, resamples, see
     assert point == pytest.approx(doc_means.mean())
     assert (low, high) == (pytest.approx(expected[0], abs=1e-12),
                            pytest.approx(expected[1], abs=1e-12))
+
+
+# ------------------------------------------------ edges: sizes, defaults, messages, groups
+
+def _accuracy(frame: pd.DataFrame) -> float:
+    """A plain (not additive) score: share of words labelled right, re-run on each resample."""
+    return float((frame["label"] == frame["predicted"]).mean())
+
+
+def test_two_documents_and_one_resample_are_enough():
+    # the documented minimum is 2 groups and 1 resample (the errors name 1 and 0)
+    frame = _predictions(2, seed=5)
+    assert len(bootstrap_scores(frame, WordF1(LABELS), n_resamples=1)) == 1
+    point, low, high = bootstrap_interval(frame, WordF1(LABELS), n_resamples=20)
+    assert low <= high
+    with pytest.raises(MetricInputError, match="^n_resamples must be positive, got 0$"):
+        bootstrap_scores(frame, WordF1(LABELS), n_resamples=0)
+
+
+@pytest.mark.parametrize("confidence", [0.0, 1.0, 1.5, -0.1])
+def test_confidence_must_lie_strictly_between_zero_and_one(confidence):
+    with pytest.raises(MetricInputError, match="strictly between 0 and 1"):
+        bootstrap_interval(_predictions(3, seed=0), WordF1(LABELS), confidence=confidence)
+
+
+def test_bootstrap_defaults_are_1000_resamples_of_seed_0():
+    # the documented defaults (docstring of bootstrap_scores): R = 1000, seed 0
+    frame = _predictions(6, seed=2)
+    default = bootstrap_scores(frame, WordF1(LABELS))
+    assert len(default) == 1000
+    np.testing.assert_array_equal(default, bootstrap_scores(frame, WordF1(LABELS),
+                                                            n_resamples=1000, seed=0))
+
+
+def _scored(frame: pd.DataFrame) -> pd.DataFrame:
+    """The frame with a 0/1 ``correct`` column, for ColumnMean("correct") (word accuracy)."""
+    return frame.assign(correct=(frame["label"] == frame["predicted"]).astype(float))
+
+
+def test_paired_comparison_defaults_and_result_fields():
+    # better is right on every word: each bootstrap resample has the same difference as the
+    # data, so p = 1 / (1 + R) = 1/2001 at the default R = 2000 (Davison & Hinkley 1997,
+    # sec. 4.2); the scores reported are those of the two frames (accuracy, computed here)
+    worse = _scored(_predictions(6, seed=4, accuracy=0.5))
+    better = _scored(worse.assign(predicted=worse["label"]))
+    accuracy = ColumnMean("correct")
+    result = paired_comparison(better, worse, accuracy)
+    assert result.method == "bootstrap" and result.exact is False
+    assert result.p_value == pytest.approx(1 / 2001, abs=1e-12)
+    assert result.score_a == 1.0 and result.score_b == pytest.approx(_accuracy(worse))
+    # the default seed is 0: documents whose differences vary give a draw-dependent interval
+    rival = _scored(_predictions(6, seed=9, accuracy=0.6))
+    default = paired_comparison(worse, rival, accuracy, n_resamples=300)
+    seeded = paired_comparison(worse, rival, accuracy, n_resamples=300, seed=0)
+    other = paired_comparison(worse, rival, accuracy, n_resamples=300, seed=1)
+    assert (default.low, default.high, default.p_value) == (seeded.low, seeded.high,
+                                                            seeded.p_value)
+    assert (default.low, default.high, default.p_value) != (other.low, other.high,
+                                                            other.p_value)
+
+
+def test_approximate_randomisation_is_seeded_and_reports_its_fields():
+    # 12 documents have 4096 swap patterns: 500 resamples draw them (Noreen 1989, ch. 3)
+    a, b = _scored(_predictions(12, seed=1)), _scored(_predictions(12, seed=2, accuracy=0.5))
+    runs = [paired_comparison(a, b, ColumnMean("correct"), method="randomisation",
+                              n_resamples=500, seed=seed) for seed in (3, 3, 4)]
+    assert runs[0].exact is False and runs[0].method == "randomisation"
+    assert (runs[0].score_a, runs[0].score_b) == (pytest.approx(_accuracy(a)),
+                                                  pytest.approx(_accuracy(b)))
+    assert runs[0].p_value == runs[1].p_value            # one seed, one draw
+    assert runs[0].p_value != runs[2].p_value            # the seed is used
+
+
+def test_paired_comparison_refusals_name_the_problem():
+    frame = _scored(_predictions(12, seed=3))
+    with pytest.raises(MetricInputError,
+                       match="^method must be 'bootstrap' or 'randomisation', not 'swap'$"):
+        paired_comparison(frame, frame, ColumnMean("correct"), method="swap")
+    # 11 documents only in A: the message counts them and names the first 10 (sorted)
+    more = pd.concat([frame, _scored(_predictions(23, seed=3)).query("doc_id >= 'doc012'")])
+    with pytest.raises(MetricInputError) as refused:
+        paired_comparison(more, frame, ColumnMean("correct"))
+    named = [f"doc{d:03d}" for d in range(12, 22)]
+    assert f"only in system A (11): {named}; only in system B (0): []" in str(refused.value)
+
+
+class _OtherIds(ColumnMean):
+    """A broken additive score: its counts are labelled with group ids of its own."""
+
+    def group_counts(self, frame, group_col):
+        ids, counts = super().group_counts(frame, group_col)
+        return np.array([f"x{i}" for i in range(len(ids))]), counts
+
+
+def test_counts_for_other_groups_are_refused():
+    frame = _scored(_predictions(3, seed=0))
+    with pytest.raises(MetricInputError, match="returned counts for other groups than "
+                                               "'doc_id' holds"):
+        bootstrap_scores(frame, _OtherIds("correct"), n_resamples=5)
+
+
+def _copies(frame: pd.DataFrame) -> float:
+    """A plain score that counts groups: 100 per distinct lab, 1 per distinct document."""
+    return 100.0 * frame["lab"].nunique() + frame["doc_id"].nunique()
+
+
+def test_each_drawn_copy_is_its_own_group_and_its_own_document():
+    # resampling labs (group_col="lab") of two documents each: a resample of G = 3 labs holds
+    # 3 lab copies and 6 document copies whatever was drawn, twice the same lab included
+    # (the rule of dochar.metrics.intervals._rescore), so every score is 3·100 + 6 = 306
+    frame = _predictions(6, seed=7)
+    frame["lab"] = frame["doc_id"].map(lambda d: f"lab{int(d[3:]) // 2}")
+    scores = bootstrap_scores(frame, _copies, group_col="lab", n_resamples=20)
+    assert scores.tolist() == [306.0] * 20
+    # a paired comparison resampling labs of frames without a doc_id column works on labs alone
+    bare = _scored(frame).drop(columns="doc_id")
+    result = paired_comparison(bare, bare, ColumnMean("correct"), group_col="lab",
+                               n_resamples=50)
+    assert result.n_documents == 3 and result.p_value == pytest.approx(1.0)

@@ -210,3 +210,68 @@ def test_tag_chunks_name_what_is_missing():
         tag_chunks(frame, "bio", group_col="layout")
     with pytest.raises(MetricInputError, match="^no words to score$"):
         tag_chunks(frame.iloc[:0], "bio")
+
+
+# --- the edges of the counting: word-id ties, absent labels, empty documents, other columns ---
+
+def test_words_in_one_box_are_read_in_word_id_order():
+    # two words with the same box: dochar's reading order breaks the tie by word_id
+    # (dochar.data.word_table.reading_order), whatever the row order. Truth B-key I-key is one
+    # chunk; the prediction B-key B-key is two, none right: F1 = 0 (by hand). Read in row order
+    # (word 1 first) both would be two one-word chunks and F1 would be 1.
+    box = dict(doc_id="coa-0", page=1, x0=10.0, y0=10.0, x1=60.0, y1=22.0)
+    frame = pd.DataFrame([{**box, "word_id": 1, "label": "I-key", "predicted": "B-key"},
+                          {**box, "word_id": 0, "label": "B-key", "predicted": "B-key"}])
+    scores = tag_entity_scores(frame, tag_classes(LABELS, ["other"], "bio"), "bio")
+    assert (scores.n_true, scores.n_pred, scores.n_correct) == (1, 2, 0)
+
+
+def test_labels_without_chunks_get_zero_counts_in_the_per_label_table():
+    # 'value' is never true and predicted once (wrong); 'date' appears nowhere. By hand:
+    # key: 1 true, 1 predicted, 1 correct; value: 0, 1, 0; date: 0, 0, 0
+    frame = frame_of([["B-key", "O"]], [["B-key", "B-value"]])
+    scores = tag_entity_scores(frame, tag_classes(["key", "value", "date"], [], "bio"), "bio")
+    table = scores.per_class
+    assert table.index.name == "label" and table.index.tolist() == ["key", "value", "date"]
+    assert list(table.columns) == ["precision", "recall", "f1", "support", "n_pred", "n_correct"]
+    assert table[["support", "n_pred", "n_correct"]].to_numpy().tolist() == [
+        [1, 1, 1], [0, 1, 0], [0, 0, 0]]
+    assert table["precision"].tolist() == pytest.approx([1.0, 0.0, 0.0])
+
+
+def test_other_truth_and_prediction_columns_are_read_when_named():
+    # the default columns hold a perfect page; the named ones the hand-made page of the first
+    # test (P = 3/5, R = 3/4, F1 = 2/3): only the named ones may count
+    true = ["B-key", "I-key", "B-value", "O", "B-key", "B-value", "I-value"]
+    pred = ["B-key", "I-key", "B-value", "B-value", "I-key", "B-value", "O"]
+    frame = frame_of([true], [true], width=4)
+    frame["gold"] = frame_of([true], [pred], width=4)["label"]
+    frame["guess"] = frame_of([true], [pred], width=4)["predicted"]
+    scores = tag_entity_scores(frame, tag_classes(LABELS, ["other"], "bio"), "bio",
+                               true_col="gold", pred_col="guess")
+    assert (scores.n_true, scores.n_pred, scores.n_correct) == (4, 5, 3)
+    assert TagEntityF1("bio", true_col="gold", pred_col="guess")(frame) == pytest.approx(2 / 3)
+
+
+def test_per_document_counts_keep_documents_without_chunks():
+    # by hand, per document (correct, predicted, true): coa-0 B-key I-key predicted right
+    # (1, 1, 1); coa-1 a true key predicted O (0, 0, 1); coa-2 nothing true, nothing
+    # predicted (0, 0, 0); coa-3 one word, predicted right (1, 1, 1)
+    rows = []
+    for doc, words in {"coa-0": [("B-key", "B-key"), ("I-key", "I-key")],
+                       "coa-1": [("B-key", "O"), ("O", "O")],
+                       "coa-2": [("O", "O"), ("O", "O")],
+                       "coa-3": [("B-value", "B-value")]}.items():
+        rows += [dict(doc_id=doc, page=1, word_id=k, x0=80.0 * k, x1=80.0 * k + 60, y0=0.0,
+                      y1=12.0, label=t, predicted=p) for k, (t, p) in enumerate(words)]
+    frame = pd.DataFrame(rows)
+    groups, counts = TagEntityF1("bio").group_counts(frame, "doc_id")
+    assert groups.tolist() == ["coa-0", "coa-1", "coa-2", "coa-3"]
+    assert counts.tolist() == [[1, 1, 1], [0, 0, 1], [0, 0, 0], [1, 1, 1]]
+    # all words of the run: 2 correct of 2 predicted and 3 true, F1 = 2·2 / (2 + 3) = 0.8
+    assert TagEntityF1("bio")(frame) == pytest.approx(0.8)
+    # document ids as a category with one more, unused, category (a filtered frame): the
+    # unused category is no document of the frame and scores nothing
+    frame["doc_id"] = pd.Categorical(frame["doc_id"], categories=[*groups, "coa-9"])
+    assert TagEntityF1("bio")(frame) == pytest.approx(0.8)
+    assert TagEntityF1("bio").group_counts(frame, "doc_id")[1].tolist() == counts.tolist()

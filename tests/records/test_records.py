@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+from dataclasses import replace
 
 import pandas as pd
 import pytest
@@ -121,3 +122,41 @@ def test_synthetic_round_trip_recovers_the_generators_records_from_true_labels()
     truth = parses(true_records(words, shape, links), shape)
     assert all(len(tree["items"]) >= 3 for tree in truth.values())
     assert parses(assemble_records(words, shape, label_col="label"), shape) == truth
+
+
+# A drawn receipt (10-point lines, 14-point pitch): an item whose count stands before its name,
+# a sub-item line under it, an item of a name and a price, and an item whose count, unit price
+# and price are on the line under its name. A note line above the first name belongs to it.
+RECEIPT_SHAPE = RecordShape(("total",), ("nm", "cnt", "unitprice", "price", "sub_nm"),
+                            items_name="menu", row_anchor="nm")
+RECEIPT = _words([
+    ("TAKEAWAY", 40, 86, 90, 96, "sub_nm", "l0"),
+    ("2", 20, 100, 26, 110, "cnt", "l1"), ("Green", 40, 100, 70, 110, "nm", "l2"),
+    ("Tea", 72, 101, 90, 111, "nm", "l2"), ("20.00", 150, 100, 180, 110, "price", "l3"),
+    ("less", 50, 114, 70, 124, "sub_nm", "l4"), ("ice", 72, 114, 86, 124, "sub_nm", "l4"),
+    ("Cake", 40, 128, 64, 138, "nm", "l5"), ("5.00", 150, 129, 174, 139, "price", "l6"),
+    ("Soup", 40, 142, 64, 152, "nm", "l7"),
+    ("3", 20, 156, 26, 166, "cnt", "l8"), ("x4.00", 40, 156, 70, 166, "unitprice", "l9"),
+    ("12.00", 150, 156, 180, 166, "price", "l10"),
+    ("Total", 20, 180, 50, 190, "key", "k11"), ("37.00", 150, 180, 180, 190, "total", "l12"),
+])
+
+
+def test_an_anchor_column_opens_each_line_item():
+    # worked by hand from the drawing above: three items, each opened by its name's line
+    expected = {"total": "37.00", "menu": [
+        {"nm": "Green Tea", "cnt": "2", "price": "20.00", "sub_nm": "TAKEAWAY less ice"},
+        {"nm": "Cake", "price": "5.00"},
+        {"nm": "Soup", "cnt": "3", "unitprice": "x4.00", "price": "12.00"}]}
+    (record,) = assemble_records(RECEIPT, RECEIPT_SHAPE, label_col="label",
+                                 group_col="entity_id")
+    assert record.parse(RECEIPT_SHAPE) == expected
+    # the layout rule on the same receipt cuts the first and last items at their line breaks
+    (by_layout,) = assemble_records(RECEIPT, replace(RECEIPT_SHAPE, row_anchor=""),
+                                    label_col="label", group_col="entity_id")
+    assert len(by_layout.items) > 3
+    with pytest.raises(RecordShapeError, match="row_anchor: label 'total' is not one of "
+                                               "data.record.item_columns"):
+        RecordShape.from_mapping({"header_fields": ["total"], "item_columns": ["nm"],
+                                  "row_anchor": "total"})
+    assert RecordShape.from_mapping({"item_columns": ["nm"], "row_anchor": "nm"}).row_anchor == "nm"
