@@ -102,7 +102,7 @@ def _finish(cfg, bundle, model, started: float | None = None) -> float:
     if has_sides([bundle]):
         console.print(seen_unseen_table([bundle]))
     if cfg.tracking.enabled and not in_sweep():
-        console.print(ui_hint(uri, str(cfg.tracking.experiment)))
+        console.print(ui_hint(uri, str(cfg.tracking.experiment)), soft_wrap=True)
     console.print(f"run folder: {folder.resolve()}", soft_wrap=True)
     return validation_score(bundle)   # what sweepers optimise: never a test score
 

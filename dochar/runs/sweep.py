@@ -21,6 +21,7 @@ import math
 import os
 import shutil
 import sys
+import time
 import traceback
 from collections.abc import Callable
 from pathlib import Path
@@ -78,17 +79,20 @@ def guard_job(task: Callable[[DictConfig], Any]) -> Callable[[DictConfig], Any]:
     def job(cfg: DictConfig) -> Any:
         if not in_sweep():
             return task(cfg)
+        started = time.time()
         try:
             return task(cfg)
         except Exception as error:  # noqa: BLE001 - every failure is recorded, none stops a sweep
-            record_failure(cfg, error)
+            record_failure(cfg, error, started)
             return math.nan
 
     job.__name__, job.__module__ = task.__name__, task.__module__
     return job
 
 
-def record_failure(cfg: DictConfig, error: BaseException) -> None:
+def record_failure(cfg: DictConfig, error: BaseException, started: float | None = None) -> None:
+    """The failure's record in the job folder and, as a FAILED run from ``started`` (when the
+    job began) to now, in the store."""
     hydra_cfg = HydraConfig.get()
     overrides = " ".join(hydra_cfg.overrides.task)
     reason = mask_passwords(f"{type(error).__name__}: {error}")
@@ -102,7 +106,7 @@ def record_failure(cfg: DictConfig, error: BaseException) -> None:
     if cfg.tracking.enabled:
         try:
             log_failed_run(resolve_uri(cfg.tracking.uri), str(cfg.tracking.experiment),
-                           f"failed: {overrides}", reason, {"kind": "failed_job"})
+                           f"failed: {overrides}", reason, {"kind": "failed_job"}, started)
         except Exception as store_error:  # noqa: BLE001 - the store may be what failed
             print(f"job {hydra_cfg.job.num}: could not log the failure: {store_error}",
                   file=sys.stderr)
@@ -334,4 +338,4 @@ class SweepTable(Callback):
             client.set_tag(run_id, "jobs_failed", str(len(failures)))
             client.set_tag(run_id, "jobs_skipped", str(len(skipped)))
             client.set_terminated(run_id, status="FAILED" if failures else "FINISHED")
-        console.print(ui_hint(uri, experiment))
+        console.print(ui_hint(uri, experiment), soft_wrap=True)
