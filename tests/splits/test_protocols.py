@@ -252,3 +252,19 @@ def test_random_split_of_three_documents_gives_one_to_each_part():
                            val_size=0.15)
     assert (len(split.train), len(split.val), len(split.test)) == (1, 1, 1)
     assert sorted(split.train + split.val + split.test) == ["coa-0", "coa-1", "coa-2"]
+
+
+def test_fixed_split_refusals_name_the_documents_and_values():
+    blanks = ["train", *[""] * 6, "test"]
+    with pytest.raises(SplitError, match=r"^protocol 'fixed' needs a split value for every "
+                                         r"document; 6 of 8 have none \(e\.g\. \['coa-1', "
+                                         r"'coa-2', 'coa-3', 'coa-4', 'coa-5'\]\)$"):
+        make_splits(_listed(blanks), "fixed", seed=0)
+    with pytest.raises(SplitError, match=r"^unknown split value\(s\) \['holdout'\]; use "
+                                         r"\['train', 'val', 'test'\]$"):
+        make_splits(_listed(["train", "holdout", "test"]), "fixed", seed=0)
+    with pytest.raises(SplitError, match=r"^protocol 'fixed' found no 'test' documents in the "
+                                         r"split column$"):
+        make_splits(_listed(["train", "train", "val"]), "fixed", seed=0)
+    (split,) = make_splits(_listed(["train", "val", "test"]), "fixed", seed=0)
+    assert split.protocol == "fixed"
