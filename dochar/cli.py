@@ -102,7 +102,7 @@ def _finish(cfg, bundle, model, started: float | None = None) -> float:
     if has_sides([bundle]):
         console.print(seen_unseen_table([bundle]))
     if cfg.tracking.enabled and not in_sweep():
-        console.print(ui_hint(uri, str(cfg.tracking.experiment)))
+        console.print(ui_hint(uri, str(cfg.tracking.experiment)), soft_wrap=True)
     console.print(f"run folder: {folder.resolve()}", soft_wrap=True)
     return validation_score(bundle)   # what sweepers optimise: never a test score
 
@@ -111,17 +111,18 @@ def _run_job(cfg) -> float:
     from dochar.data.sources import load_data
     from dochar.data.word_table import table_fingerprint
     from dochar.experiment import run_experiment
-    from dochar.runs.sweep import end_killed_jobs, skip_if_finished
+    from dochar.runs.sweep import end_killed_jobs, job_claim, skip_if_finished
 
     started = time.time()
     _check_tracking(cfg)
-    end_killed_jobs(cfg)
-    done = skip_if_finished(cfg, lambda: table_fingerprint(
-        load_data(cfg.data, strict=bool(cfg.strict)).table))
-    if done is not None:
-        return done
-    bundle, model = run_experiment(cfg)
-    return _finish(cfg, bundle, model, started)
+    with job_claim(cfg):
+        end_killed_jobs(cfg)
+        done = skip_if_finished(cfg, lambda: table_fingerprint(
+            load_data(cfg.data, strict=bool(cfg.strict)).table))
+        if done is not None:
+            return done
+        bundle, model = run_experiment(cfg)
+        return _finish(cfg, bundle, model, started)
 
 
 def _curve_job(cfg) -> float:
@@ -231,7 +232,7 @@ def _hydra_command(task, argv: list[str]) -> int:
     from hydra.errors import HydraException
     from omegaconf.errors import OmegaConfBaseException
 
-    from dochar.runs.sweep import exit_code, guard_job
+    from dochar.runs.sweep import exit_code, guard_job, lost_job_message
 
     _SUBCOMMAND[0] = argv[0]
     sys.argv = [f"dochar {argv[0]}", *argv[1:]]
@@ -243,6 +244,10 @@ def _hydra_command(task, argv: list[str]) -> int:
         return int(stop.code or 0)
     except (HydraException, OmegaConfBaseException) as error:
         return _report_error(argv[0], DocharError(config_error_message(error)))
+    except Exception as error:
+        if (message := lost_job_message(error)) is None:
+            raise
+        return _report_error(argv[0], DocharError(message))
     finally:
         if previous is None:
             os.environ.pop("HYDRA_FULL_ERROR", None)

@@ -27,6 +27,7 @@ from dochar.models.pairs import PageCandidates, page_candidates
 from dochar.models.training import seed_everything
 from dochar.runs.bundle import RunBundle
 from dochar.runs.frames import edge_frame, pages_to_draw, pair_frame, prediction_frame
+from dochar.runs.page_pictures import page_pictures
 from dochar.splits import PARTS, split_run
 
 log = logging.getLogger(__name__)
@@ -180,10 +181,12 @@ def run_experiment(cfg: DictConfig) -> tuple[RunBundle, FittedModel]:
             "model": system_name(cfg.model), "model_kind": str(cfg.model.kind),
             "seed": str(cfg.seed), "data_fingerprint": table_fingerprint(data.table),
             "data_source": str(cfg.data.get("path") or cfg.data.get("source") or "")}
+    drawn = pages_to_draw(predictions, int(cfg.overlay_pages))   # kept for the report
     bundle = RunBundle(name=run_name(cfg), labels=labels, metrics=metrics,
                        predictions=predictions,
                        config=OmegaConf.to_container(cfg, resolve=True), cost=fitted.cost,
-                       tags=tags, edges=edge_frame(sets["test"],
-                                        pages_to_draw(predictions, int(cfg.overlay_pages))),
+                       tags=tags, edges=edge_frame(sets["test"], drawn),
+                       page_images=page_pictures(split.table, drawn,
+                                                 synthetic=cfg.data.get("source") == "synth"),
                        tables=scores.tables)
     return bundle, fitted

@@ -10,7 +10,8 @@ every other survivor is listed in the report with its diff, as a test to write.
 Kill rate = killed / (mutants - equivalent - not run). Mutants that no selected test reaches
 count as not killed; mutants of an interrupted run that were never tried count as not run
 (``--again`` goes on with a run folder after tests were added: it refreshes the folder's
-tests and unmutated code from the checkout and runs every mutant not yet killed again;
+tests and unmutated code from the checkout and runs every mutant not yet killed again,
+but those marked equivalent;
 ``--report-only`` writes the report of run folders as they stand, e.g. after an
 interruption; given several ``--workdir`` folders, each of one module's separate run, it merges
 them into one report). ``--min-rate`` makes the exit status 1 when a module falls below it.
@@ -37,6 +38,7 @@ from pathlib import Path
 from mutation.targets import DESELECTED, FULL, SMOKE
 
 ROOT = Path(__file__).resolve().parents[1]
+EQUIVALENTS = ROOT / "mutation" / "equivalent.toml"
 COPIED = ("dochar", "tests", "configs", "data_synth", "benchmarks", "pyproject.toml", "setup.py")
 STATUSES = ("killed", "survived", "no tests", "timeout", "suspicious", "skipped", "segfault")
 
@@ -148,11 +150,22 @@ def mutmut(workdir: Path, *args: str, log: Path | None = None) -> str:
     return done.stdout
 
 
-def not_killed(workdir: Path) -> list[str]:
-    """The mutants of a run folder that no test has killed yet (survived, untried, ...)."""
+def not_killed(workdir: Path, targets: dict[str, list[str]],
+               equivalents: list[Equivalent]) -> list[str]:
+    """The mutants of a run folder that no test has killed yet (survived, untried, ...),
+    without the survivors marked equivalent: no test can kill those."""
     found = (re.match(r"\s*(\S+): (.+)$", line)
              for line in mutmut(workdir, "results", "--all", "true").splitlines())
-    return [match[1] for match in found if match and match[2] != "killed"]
+    return [mutant for mutant, status in (match.groups() for match in found if match)
+            if status != "killed" and not (status == "survived" and equivalent_reason(
+                module_of(mutant, list(targets)), mutmut(workdir, "show", mutant), equivalents))]
+
+
+def equivalent_reason(module: str, diff: str, equivalents: list[Equivalent]) -> str | None:
+    """Why the mutant of this diff is equivalent, or None when no entry matches it."""
+    removed, added = changed_lines(diff)
+    return next((e.reason for e in equivalents if e.module == module
+                 and e.original in removed and e.mutated in added), None)
 
 
 def module_of(mutant: str, modules: list[str]) -> str:
@@ -184,9 +197,7 @@ def collect(workdir: Path, targets: dict[str, list[str]],
         if status != "survived":
             continue
         diff = mutmut(workdir, "show", mutant)
-        removed, added = changed_lines(diff)
-        reason = next((e.reason for e in equivalents if e.module == module_of(mutant, modules)
-                       and e.original in removed and e.mutated in added), None)
+        reason = equivalent_reason(module_of(mutant, modules), diff, equivalents)
         if reason is None:
             result.survivors.append((mutant, diff))
         else:
@@ -273,7 +284,8 @@ def main(argv: list[str] | None = None) -> int:
         # torch is not fork-safe, so the full run forks them from a server that never ran it
         workdir = workdirs[0]
         isolation = "fork" if args.smoke else "forkserver"
-        again = not_killed(workdir) if args.again else []
+        again = (not_killed(workdir, targets, load_equivalents(EQUIVALENTS)) if args.again
+                 else [])
         (refresh if args.again else prepare)(workdir, targets, isolation)
         log = workdir / "mutmut-run.log"
         print(f"mutmut over {len(targets)} module(s) in {workdir}"
@@ -281,8 +293,7 @@ def main(argv: list[str] | None = None) -> int:
               flush=True)
         if not args.again or again:
             mutmut(workdir, "run", "--max-children", str(args.workers), *again, log=log)
-    results = merged([collect(workdir, targets, load_equivalents(ROOT / "mutation" /
-                                                                 "equivalent.toml"))
+    results = merged([collect(workdir, targets, load_equivalents(EQUIVALENTS))
                       for workdir in workdirs], targets)
     command = "python -m mutation.run " + " ".join(argv if argv is not None else sys.argv[1:])
     out.parent.mkdir(parents=True, exist_ok=True)

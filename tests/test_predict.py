@@ -1,7 +1,7 @@
 """``dochar predict`` and the MLflow model against a real run: the run's own test words come
 out with the probabilities the run recorded, through a run folder, a run id prefix and MLflow's
 own pyfunc loader; rendered PDFs the model never saw are labelled and scored against the
-generator's truth; unknown labels are located and left out of the scores.
+generator's truth, and their records written; unknown labels are located and left out of the scores.
 
 References: the run's ``predictions.parquet`` (written while training, by the live model);
 scikit-learn's ``accuracy_score`` and ``f1_score`` for the printed scores; the grouped fields
@@ -148,6 +148,26 @@ def test_rendered_pdfs_the_model_never_saw_are_labelled_and_scored(trained, tmp_
     # most common true label (the majority-class baseline, common practice)
     majority = truth["label"].value_counts(normalize=True).iloc[0]
     assert printed > majority
+    # records of the PDFs: one per rendered certificate, each value made of words the model
+    # gave its label, their texts as read from the PDF, each labelled word in one value only
+    records = json.loads((tmp_path / "out" / "records.json").read_text())
+    assert sorted(r["doc_id"] for r in records) == sorted(set(words["doc_id"]))
+    by_word = words.set_index(["doc_id", "word_id"])
+    for record in records:
+        doc = record["doc_id"]
+        values = [(label, v) for label, found in record["fields"].items()
+                  for v in (found if isinstance(found, list) else [found])]
+        values += [(column, v) for item in record["results"] for column, v in item.items()]
+        for label, value in values:
+            assert {by_word.loc[(doc, w), "predicted"] for w in value["word_ids"]} == {label}
+            assert value["text"] == " ".join(str(by_word.loc[(doc, w), "text"])
+                                             for w in value["word_ids"])
+        mine = words[(words["doc_id"] == doc) & words["predicted"].isin(
+            ["lab_name", "client", "cert_no", "sample_id", "date", "analyte", "method",
+             "result", "unit", "limit", "verdict"])]
+        assert sorted(w for _, v in values for w in v["word_ids"]) == sorted(mine["word_id"])
+    table = pd.read_csv(tmp_path / "out" / "records.csv", keep_default_na=False)
+    assert len(table) == sum(max(1, len(r["results"])) for r in records)
 
 
 def test_fields_are_runs_of_one_label_in_reading_order():

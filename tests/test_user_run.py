@@ -73,3 +73,42 @@ def test_mlflow_times_enclose_the_work_of_the_run(user_run):
     assert user_run["before"] - slack <= start
     assert start + train_seconds <= figures + slack   # the training lies inside the run
     assert figures <= end + slack <= user_run["after"] + 2 * slack
+
+
+def test_mlflow_duration_is_the_run_s_own(user_run):
+    """What MLflow's runs table shows as Duration (end - start) holds the training and no more
+    than the process took (the duration the UI showed was the logging's 1.6 s for 184 s of
+    training before the start time was passed)."""
+    client = user_run["client"]
+    (experiment,) = [e for e in client.search_experiments() if e.name != "Default"]
+    (run,) = client.search_runs([experiment.experiment_id])
+    duration = (run.info.end_time - run.info.start_time) / 1000
+    train_seconds = run.data.metrics["cost/train_seconds"]
+    assert train_seconds <= duration <= user_run["after"] - user_run["before"]
+
+
+def test_the_runs_view_opens_on_the_headline_scores(user_run):
+    """The experiment holds a saved view of MLflow's UI (tag mlflow.sharedViewState.<id>, an
+    envelope whose state names the columns; format read from MLflow 3's UI code and its pull
+    requests 24359/24360) showing word macro-F1 (the word-labels task's headline, README) and the
+    training time, best first; the printed address opens it."""
+    import json
+
+    client = user_run["client"]
+    (experiment,) = [e for e in client.search_experiments() if e.name != "Default"]
+    views = {key: value for key, value in experiment.tags.items()
+             if key.startswith("mlflow.sharedViewState.")}
+    assert len(views) == 1
+    (key, value), = views.items()
+    envelope = json.loads(value)
+    assert isinstance(envelope["name"], str) and isinstance(envelope["createdAt"], int)
+    state = json.loads(envelope["state"])
+    assert state["orderByKey"] == "metrics.`macro_f1`" and state["orderByAsc"] is False
+    metric_columns = [c for c in state["selectedColumns"] if c.startswith("metrics.")]
+    assert metric_columns[0] == "metrics.`macro_f1`"
+    assert "metrics.`cost/train_seconds`" in metric_columns
+    (run,) = client.search_runs([experiment.experiment_id])
+    # every score column the view shows is filled for the run (no empty column)
+    assert all(c[len("metrics.`"):-1] in run.data.metrics for c in metric_columns)
+    share_key = key.removeprefix("mlflow.sharedViewState.")
+    assert f"/runs?viewStateShareKey={share_key}" in user_run["stdout"]

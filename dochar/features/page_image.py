@@ -197,6 +197,14 @@ def _grey_image(path: str, stamp: tuple[int, int], page_no: int) -> np.ndarray:
     return np.asarray(image.convert("L"), dtype=np.uint8)
 
 
+def read_grey(path: str | Path, page_no: int) -> np.ndarray:
+    """One page of an image file or PDF as uint8 grey (a PDF page rendered at RENDER_DPI),
+    through the same small cache the features read from."""
+    path = Path(path)
+    stat = path.stat()          # FileNotFoundError names the path
+    return _grey_image(str(path.resolve()), (stat.st_mtime_ns, stat.st_size), int(page_no))
+
+
 class PageImageReader:
     """Features and crops of pages, each page read at most once per process and cache."""
 

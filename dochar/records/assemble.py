@@ -84,7 +84,7 @@ def assemble_records(words: pd.DataFrame, shape: RecordShape, *, label_col: str 
             if row_links is not None:
                 record.items = rows_from_links(items, links.get(str(doc_id), []))
             elif shape.row_anchor:
-                record.items = rows_by_anchor(items, shape.row_anchor)
+                record.items = rows_by_anchor(items, shape.row_anchor, shape.amount_fields)
             else:
                 record.items = rows_by_layout(items)
         records.append(record)

@@ -18,9 +18,11 @@ Three ways to find a document's line items:
   Cells of one column within one row are joined in reading order.
 * **by an anchor column** (the shape's ``row_anchor``, e.g. a receipt's item name), page by
   page: the same line bands; a band holding an anchor piece starts a new item when the current
-  item has its anchor already, and every other band joins the current item (a receipt's count,
-  unit price, price and sub-item lines under their item's name). Bands before the first anchor
-  belong to the first item. Cells of one column within one item are joined in reading order.
+  item has its anchor already, and so does a band holding an amount (the shape's
+  ``amount_fields``) of a column the current item has a value of already (an item has one
+  price); every other band joins the current item (a receipt's count, unit price, price and
+  sub-item lines under their item's name). Bands before the first anchor belong to the first
+  item. Cells of one column within one item are joined in reading order.
 
 Header values over several lines (:func:`join_header_lines`): a piece joins the value above it
 when it has the same label, starts within one height of that value's left edge, lies less than
@@ -34,7 +36,7 @@ two pieces.
 
 from __future__ import annotations
 
-from collections.abc import Iterable, Sequence
+from collections.abc import Collection, Iterable, Sequence
 
 import numpy as np
 
@@ -113,15 +115,19 @@ def rows_by_layout(pieces: Sequence[Value]) -> list[Row]:
     return rows
 
 
-def rows_by_anchor(pieces: Sequence[Value], anchor: str) -> list[Row]:
-    """Rows of item pieces opened by ``anchor`` pieces (module docstring), page by page."""
+def rows_by_anchor(pieces: Sequence[Value], anchor: str,
+                   amounts: Collection[str] = ()) -> list[Row]:
+    """Rows of item pieces opened by ``anchor`` pieces, or by a second value of one of the
+    ``amounts`` columns (module docstring), page by page."""
     rows: list[Row] = []
     for page in sorted({p.page for p in pieces}):
         on_page = [p for p in pieces if p.page == page]
         height = float(np.median([p.height for p in on_page]))
         current: Row | None = None
         for band in _bands(on_page, height):
-            if current is None or (anchor in current and any(p.label == anchor for p in band)):
+            labels = {p.label for p in band}
+            if (current is None or (anchor in current and anchor in labels)
+                    or any(label in current for label in labels & set(amounts))):
                 current = {}
                 rows.append(current)
             for piece in band:

@@ -34,9 +34,8 @@ def write_run_files(folder: Path, bundle: RunBundle, fitted: FittedModel) -> Pat
     _png(confusion_panels([(bundle.name, labels, row_normalise(confusion.to_numpy()))]),
          folder / "confusion_normalised.png")
     _png(calibration_plot([(bundle.name, reliability(bundle))]), folder / "calibration.png")
-    # the run on its own page: page overlays with edges, per-layout scores, config
+    # the run on its own page: the pages it kept drawn over their pictures, with edges, per-layout scores, config
     write_report([bundle], folder / "run_report.html", title=f"dochar run {bundle.name}",
-                 overlay_pages=len(bundle.edges[["doc_id", "page"]].drop_duplicates())
-                 if bundle.edges is not None else 0)
+                 overlay_pages=int(bundle.config.get("overlay_pages", 3)))
     save_model(folder / "model", fitted, bundle.config, name=bundle.name, labels=bundle.labels)
     return folder

@@ -8,7 +8,9 @@ Folder layout::
     summary.json         name, system, labels, flat metrics, cost, tags, command
     config.yaml          the resolved config
     predictions.parquet  one row per test word (see PREDICTION_COLUMNS) + prob:<label> columns
-    edges.parquet        typed edges of the test pages (doc_id, page, source, target, relation)
+    edges.parquet        typed edges of the pages the report draws (doc_id, page, source,
+                         target, relation)
+    page_images.parquet  pictures of those pages (doc_id, page, origin, JPEG bytes)
     <table>.csv          per_class, per_layout, confusion, ... (listed in summary.json)
     *.png, model/        figures and the fitted model (not read back)
 """
@@ -47,6 +49,7 @@ class RunBundle:
     tags: dict[str, str] = field(default_factory=dict)
     command: str = ""
     edges: pd.DataFrame | None = None
+    page_images: pd.DataFrame | None = None
     run_id: str | None = None
     tables: dict[str, pd.DataFrame] = field(default_factory=dict)
 
@@ -72,6 +75,9 @@ class RunBundle:
         if self.edges is not None:
             with atomic_write(folder / "edges.parquet") as scratch:
                 self.edges.to_parquet(scratch, index=False)
+        if self.page_images is not None:
+            with atomic_write(folder / "page_images.parquet") as scratch:
+                self.page_images.to_parquet(scratch, index=False)
         for name, table in self.tables.items():
             with atomic_write(folder / f"{name}.csv") as scratch:
                 table.to_csv(scratch)
@@ -91,6 +97,7 @@ class RunBundle:
         summary = json.loads(summary_path.read_text())
         config_path = folder / "config.yaml"
         edges_path = folder / "edges.parquet"
+        pictures_path = folder / "page_images.parquet"
         return cls(
             name=summary["name"], labels=list(summary["labels"]),
             metrics={k: float(v) for k, v in summary["metrics"].items()},
@@ -99,6 +106,7 @@ class RunBundle:
             cost=summary.get("cost", {}), tags=summary.get("tags", {}),
             command=summary.get("command", ""),
             edges=pd.read_parquet(edges_path) if edges_path.exists() else None,
+            page_images=pd.read_parquet(pictures_path) if pictures_path.exists() else None,
             run_id=summary.get("run_id"),
             tables={name: pd.read_csv(folder / f"{name}.csv", index_col=0)
                     for name in summary.get("tables", []) if (folder / f"{name}.csv").exists()},

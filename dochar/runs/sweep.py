@@ -14,6 +14,7 @@ trial. The sweep ends with its table listing the failures, the parent run closed
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import json
 import logging
@@ -21,13 +22,15 @@ import math
 import os
 import shutil
 import sys
+import time
 import traceback
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from pathlib import Path
 from typing import Any
 
 import mlflow
 import pandas as pd
+from filelock import FileLock, Timeout
 from hydra.core.hydra_config import HydraConfig
 from hydra.experimental.callback import Callback
 from hydra.types import RunMode
@@ -45,7 +48,7 @@ from dochar.tasks import VALIDATION_SCORE
 from dochar.runs.tracking import (CONFIG_HASH_TAG, SWEEP_HASH_ENV, SWEEP_ID_ENV,
                                   SWEEP_PARENT_ENV, config_hash, ensure_experiment,
                                   finished_run, log_failed_run, mask_passwords, resolve_uri,
-                                  store_writes, ui_hint)
+                                  sqlite_path, store_writes, ui_hint)
 
 RUN_FOLDER = "run"
 FAILURE_FILE = "failure.json"
@@ -78,17 +81,20 @@ def guard_job(task: Callable[[DictConfig], Any]) -> Callable[[DictConfig], Any]:
     def job(cfg: DictConfig) -> Any:
         if not in_sweep():
             return task(cfg)
+        started = time.time()
         try:
             return task(cfg)
         except Exception as error:  # noqa: BLE001 - every failure is recorded, none stops a sweep
-            record_failure(cfg, error)
+            record_failure(cfg, error, started)
             return math.nan
 
     job.__name__, job.__module__ = task.__name__, task.__module__
     return job
 
 
-def record_failure(cfg: DictConfig, error: BaseException) -> None:
+def record_failure(cfg: DictConfig, error: BaseException, started: float | None = None) -> None:
+    """The failure's record in the job folder and, as a FAILED run from ``started`` (when the
+    job began) to now, in the store."""
     hydra_cfg = HydraConfig.get()
     overrides = " ".join(hydra_cfg.overrides.task)
     reason = mask_passwords(f"{type(error).__name__}: {error}")
@@ -102,7 +108,7 @@ def record_failure(cfg: DictConfig, error: BaseException) -> None:
     if cfg.tracking.enabled:
         try:
             log_failed_run(resolve_uri(cfg.tracking.uri), str(cfg.tracking.experiment),
-                           f"failed: {overrides}", reason, {"kind": "failed_job"})
+                           f"failed: {overrides}", reason, {"kind": "failed_job"}, started)
         except Exception as store_error:  # noqa: BLE001 - the store may be what failed
             print(f"job {hydra_cfg.job.num}: could not log the failure: {store_error}",
                   file=sys.stderr)
@@ -117,6 +123,49 @@ def end_killed_jobs(cfg: DictConfig) -> list[str]:
     with store_writes(uri):
         return end_killed_runs(mlflow.MlflowClient(tracking_uri=uri),
                                str(cfg.tracking.experiment), CONFIG_HASH_TAG, wanted)
+
+
+@contextlib.contextmanager
+def job_claim(cfg: DictConfig) -> Iterator[None]:
+    """In a sweep on an SQLite store, one process at a time runs a given config.
+
+    Two sweeps started at once, or a sweep queued again while a job of its killed start still
+    runs, would each find a job unfinished, run it (sharing its checkpoint file) and log it
+    FINISHED twice. The job holds a file lock named by its config hash beside the store from its
+    look for a finished run to the end of its logging; a second process waits, then finds the
+    run FINISHED and skips it. The system releases the lock when its holder ends, even by
+    SIGKILL, so a killed job never blocks the next. A tracking server is not covered: its jobs
+    may run on machines that share no folder."""
+    path = sqlite_path(resolve_uri(cfg.tracking.uri)) if cfg.tracking.enabled else None
+    if path is None or not in_sweep():
+        yield
+        return
+    wanted = config_hash(OmegaConf.to_container(cfg, resolve=True))
+    claims = make_folder(path.parent / f"{path.name}.claims")
+    lock = FileLock(claims / f"{wanted}.lock")
+    try:
+        lock.acquire(timeout=0)
+    except Timeout:
+        print(f"job {HydraConfig.get().job.num} waits: another process runs the same config "
+              f"(config hash {wanted}) on this store; once it ends, this job is skipped if "
+              f"it finished", flush=True)
+        lock.acquire()     # no time limit: the lock ends with its holder's process
+    try:
+        yield
+    finally:
+        lock.release()
+
+
+def lost_job_message(error: BaseException) -> str | None:
+    """One line for a job whose process ended without a result (submitit: killed by a signal,
+    the out-of-memory killer or a cluster past its grace time), or None for other errors."""
+    if type(error).__module__.split(".")[0] != "submitit" or \
+            type(error).__name__ not in {"UncompletedJobError", "FailedJobError"}:
+        return None
+    first = str(error).strip().splitlines()[0] if str(error).strip() else type(error).__name__
+    return (f"a job of the sweep ended without a result, its process killed ({first}); the "
+            "sweep stopped waiting, its other jobs may still be running. Run the same command "
+            "again: finished jobs are skipped, a killed GNN resumes from its checkpoint")
 
 
 def skip_if_finished(cfg: DictConfig, data_fingerprint: Callable[[], str]) -> float | None:
@@ -334,4 +383,4 @@ class SweepTable(Callback):
             client.set_tag(run_id, "jobs_failed", str(len(failures)))
             client.set_tag(run_id, "jobs_skipped", str(len(skipped)))
             client.set_terminated(run_id, status="FAILED" if failures else "FINISHED")
-        console.print(ui_hint(uri, experiment))
+        console.print(ui_hint(uri, experiment), soft_wrap=True)

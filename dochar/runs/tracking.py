@@ -33,6 +33,7 @@ from mlflow.tracking import MlflowClient
 
 from dochar.runs.bundle import RunBundle
 from dochar.runs.killed_runs import SWEEP_HASH_TAG, WRITTEN_BY_TAG, writer
+from dochar.runs.score_view import add_run_to_view, stored_view, view_address
 
 # MLflow's and its migration tool's notes on every run ("Updating database tables", SQLite
 # context): nothing a user can act on, so only their warnings and errors are shown.
@@ -156,8 +157,12 @@ def runs_view(uri: str, experiment_id: str, ui: str = LOCAL_UI) -> str:
 
 
 def ui_hint(uri: str, experiment: str) -> str:
-    """What to run and open to see the experiment's runs, printed after every run and sweep."""
-    address = runs_view(uri, ensure_experiment(uri, experiment))
+    """What to run and open to see the experiment's runs, printed after every run and sweep:
+    the runs view opened on the headline scores once a run has stored that view."""
+    experiment_id = ensure_experiment(uri, experiment)
+    address = runs_view(uri, experiment_id)
+    if stored_view(MlflowClient(tracking_uri=uri), experiment_id) is not None:
+        address = view_address(address)
     if uri.startswith(("http://", "https://")):
         return f"runs of '{experiment}': {address}"
     return (f"runs of '{experiment}': start `mlflow ui --backend-store-uri {uri} --port "
@@ -306,9 +311,10 @@ def _log(bundle: RunBundle, folder: Path, uri: str, experiment_id: str,
     if os.environ.get(SWEEP_PARENT_ENV):
         tags["mlflow.parentRunId"] = os.environ[SWEEP_PARENT_ENV]
     with store_writes(uri):
-        created = MlflowClient(tracking_uri=uri).create_run(
-            experiment_id, run_name=bundle.name, tags=tags,
-            start_time=None if started is None else int(started * 1000))
+        client = MlflowClient(tracking_uri=uri)
+        created = client.create_run(experiment_id, run_name=bundle.name, tags=tags,
+                                    start_time=None if started is None else int(started * 1000))
+        add_run_to_view(client, experiment_id, bundle.headline, bundle.metrics)
     with store_writes(uri), mlflow.start_run(run_id=created.info.run_id) as run:
         mlflow.log_params(params(bundle.config))
         mlflow.log_metrics({k: v for k, v in {**bundle.metrics, **{f"cost/{k}": v for k, v in
@@ -331,15 +337,17 @@ def sweep_tags() -> dict[str, str]:
 
 
 def log_failed_run(uri: str, experiment: str, name: str, reason: str,
-                   tags: Mapping[str, str]) -> str:
-    """A run with status FAILED and the reason as a tag, so a shared store shows what broke."""
+                   tags: Mapping[str, str], started: float | None = None) -> str:
+    """A run with status FAILED and the reason as a tag, so a shared store shows what broke;
+    ``started`` (seconds since the epoch) is when the failed job began, its MLflow start."""
     experiment_id = ensure_experiment(uri, experiment)
     all_tags = {**tags, "failure": mask_passwords(reason)[:5000], **sweep_tags()}
     if os.environ.get(SWEEP_PARENT_ENV):
         all_tags["mlflow.parentRunId"] = os.environ[SWEEP_PARENT_ENV]
     with store_writes(uri):
         client = MlflowClient(tracking_uri=uri)
-        run = client.create_run(experiment_id, run_name=name, tags=masked(all_tags))
+        run = client.create_run(experiment_id, run_name=name, tags=masked(all_tags),
+                                start_time=None if started is None else int(started * 1000))
         client.set_terminated(run.info.run_id, status="FAILED")
     return run.info.run_id
 

@@ -126,9 +126,10 @@ def test_synthetic_round_trip_recovers_the_generators_records_from_true_labels()
 
 # A drawn receipt (10-point lines, 14-point pitch): an item whose count stands before its name,
 # a sub-item line under it, an item of a name and a price, and an item whose count, unit price
-# and price are on the line under its name. A note line above the first name belongs to it.
+# and price are on the line under its name, then a count and price of no name. A note line
+# above the first name belongs to the first item.
 RECEIPT_SHAPE = RecordShape(("total",), ("nm", "cnt", "unitprice", "price", "sub_nm"),
-                            items_name="menu", row_anchor="nm")
+                            items_name="menu", row_anchor="nm", amount_fields=("price", "total"))
 RECEIPT = _words([
     ("TAKEAWAY", 40, 86, 90, 96, "sub_nm", "l0"),
     ("2", 20, 100, 26, 110, "cnt", "l1"), ("Green", 40, 100, 70, 110, "nm", "l2"),
@@ -138,16 +139,19 @@ RECEIPT = _words([
     ("Soup", 40, 142, 64, 152, "nm", "l7"),
     ("3", 20, 156, 26, 166, "cnt", "l8"), ("x4.00", 40, 156, 70, 166, "unitprice", "l9"),
     ("12.00", 150, 156, 180, 166, "price", "l10"),
-    ("Total", 20, 180, 50, 190, "key", "k11"), ("37.00", 150, 180, 180, 190, "total", "l12"),
+    ("1", 20, 170, 26, 180, "cnt", "l13"), ("2.00", 150, 170, 174, 180, "price", "l14"),
+    ("Total", 20, 194, 50, 204, "key", "k11"), ("39.00", 150, 194, 180, 204, "total", "l12"),
 ])
 
 
 def test_an_anchor_column_opens_each_line_item():
-    # worked by hand from the drawing above: three items, each opened by its name's line
-    expected = {"total": "37.00", "menu": [
+    # worked by hand from the drawing above: three items, each opened by its name's line, and
+    # a fourth opened by a second price under the third (an item has one price)
+    expected = {"total": "39.00", "menu": [
         {"nm": "Green Tea", "cnt": "2", "price": "20.00", "sub_nm": "TAKEAWAY less ice"},
         {"nm": "Cake", "price": "5.00"},
-        {"nm": "Soup", "cnt": "3", "unitprice": "x4.00", "price": "12.00"}]}
+        {"nm": "Soup", "cnt": "3", "unitprice": "x4.00", "price": "12.00"},
+        {"cnt": "1", "price": "2.00"}]}
     (record,) = assemble_records(RECEIPT, RECEIPT_SHAPE, label_col="label",
                                  group_col="entity_id")
     assert record.parse(RECEIPT_SHAPE) == expected

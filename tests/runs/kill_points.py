@@ -18,8 +18,15 @@ job would) at one chosen instant, so a test can reach instants that timing alone
     saved:E        right after the checkpoint of epoch E is in place
     trained        training over, its checkpoint not yet removed
 
+    pause:DOTTED:N before the N-th call of DOTTED, write the file ``paused`` in the working
+                   folder and wait until a file ``release`` appears there (no signal)
+
 The hooks wrap the functions the run calls; the run itself is the ordinary one. A point the run
 never reaches lets it finish (exit code 0), which the caller can tell from -9.
+
+`arm(point, signal, once)` installs a point for another signal (SIGUSR2: the pre-emption
+signal submitit turns into a re-queue) and, with ``once`` (a file path), fires in only the
+first process of several to reach it: the one that creates the file.
 """
 
 from __future__ import annotations
@@ -28,6 +35,8 @@ import importlib
 import os
 import signal
 import sys
+import time
+from pathlib import Path
 from typing import Any
 
 import torch
@@ -37,10 +46,29 @@ from dochar.data import files
 from dochar.models import checkpoints, objectives
 
 COMMANDS = {"run", "predict", "import"}
+PAUSED, RELEASE = "paused", "release"
+_ARMED = {"signal": signal.SIGKILL, "once": None}
+
+
+def due() -> bool:
+    """Whether the point fires in this process: always, or (``once``) in the first to get here."""
+    if _ARMED["once"] is None:
+        return True
+    try:
+        os.close(os.open(_ARMED["once"], os.O_CREAT | os.O_EXCL | os.O_WRONLY))
+    except FileExistsError:
+        return False
+    return True
 
 
 def kill() -> None:
-    os.kill(os.getpid(), signal.SIGKILL)
+    os.kill(os.getpid(), _ARMED["signal"])
+
+
+def pause() -> None:
+    Path(PAUSED).write_text(str(os.getpid()))
+    while not Path(RELEASE).exists():
+        time.sleep(0.2)
 
 
 class KillingWriter:
@@ -63,6 +91,11 @@ class KillingWriter:
         self.handle.flush()
 
 
+def arm(point: str, signum: int = signal.SIGKILL, once: str | None = None) -> None:
+    _ARMED.update(signal=signum, once=once)
+    install(point)
+
+
 def install(point: str) -> None:
     kind, *numbers = point.split(":")
     values = [int(n) for n in numbers if n.isdigit()]
@@ -73,7 +106,7 @@ def install(point: str) -> None:
 
         def loss(self, model, batch):
             calls[0] += 1
-            if calls[0] == values[0]:
+            if calls[0] == values[0] and due():
                 kill()
             return real_loss(self, model, batch)
 
@@ -82,11 +115,11 @@ def install(point: str) -> None:
         real_save, real_torch_save = checkpoints.EpochCheckpoint.save, torch.save
 
         def save(self, epoch, *args):
-            armed[:] = [epoch] if epoch == values[0] else []
+            armed[:] = [epoch] if epoch == values[0] and due() else []
             real_save(self, epoch, *args)
-            armed.clear()
-            if kind == "saved" and epoch == values[0]:
+            if kind == "saved" and armed:
                 kill()
+            armed.clear()
 
         def torch_save(obj, handle, *args, **kwargs):
             if not armed or kind == "saved":
@@ -100,13 +133,17 @@ def install(point: str) -> None:
         checkpoints.EpochCheckpoint.save = save
         torch.save = torch_save
     elif kind == "trained":
+        real_remove = checkpoints.EpochCheckpoint.remove
+
         def remove(self):
-            kill()
+            if due():
+                kill()
+            real_remove(self)
 
         checkpoints.EpochCheckpoint.remove = remove
-    elif kind in {"call", "after"}:
+    elif kind in {"call", "after", "pause"}:
         dotted, count = point.split(":")[1], int(point.split(":")[2])
-        wrap_call(dotted, count, before=kind == "call")
+        wrap_call(dotted, count, before=kind != "after", act=pause if kind == "pause" else kill)
     elif kind == "rename":
         name, count = point.split(":")[1], int(point.split(":")[2])
         files.os = RenameKiller(name, count)
@@ -128,17 +165,18 @@ def resolve(dotted: str) -> tuple[Any, str]:
     raise SystemExit(f"kill point: cannot find {dotted!r}")
 
 
-def wrap_call(dotted: str, count: int, before: bool) -> None:
+def wrap_call(dotted: str, count: int, before: bool, act=kill) -> None:
     owner, name = resolve(dotted)
     real, calls = getattr(owner, name), [0]
 
     def wrapper(*args, **kwargs):
         calls[0] += 1
-        if before and calls[0] == count:
-            kill()
+        fire = calls[0] == count and due()
+        if before and fire:
+            act()
         result = real(*args, **kwargs)
-        if not before and calls[0] == count:
-            kill()
+        if not before and fire:
+            act()
         return result
 
     if isinstance(owner, type) and isinstance(owner.__dict__.get(name), (staticmethod,
@@ -164,7 +202,7 @@ class RenameKiller:
         if os.path.basename(destination) == self.name and \
                 str(source).endswith(".partial"):
             self.seen += 1
-            if self.seen == self.count:
+            if self.seen == self.count and due():
                 kill()
         os.replace(source, destination)
 

@@ -8,7 +8,9 @@
   error and leave no partial;
 - runs a killed process left RUNNING end as KILLED, with when and by what, and only those;
 - a sweep job started again forgets an earlier start's outcome; jobs with no outcome are listed
-  as unfinished.
+  as unfinished;
+- two sweeps started at once on one SQLite store run each config once: the second waits for
+  the first's claim on it, then skips it.
 """
 
 from __future__ import annotations
@@ -19,6 +21,7 @@ import resource
 import socket
 import subprocess
 import sys
+import time
 from pathlib import Path
 
 import mlflow
@@ -31,6 +34,7 @@ from dochar.runs.killed_runs import (FOUND_AT_TAG, FOUND_BY_TAG, WRITTEN_BY_TAG,
                                      end_killed_runs, writer)
 from dochar.runs.sweep import FAILURE_FILE, clear_job_outcome, sweep_frame, unfinished_jobs
 from tests.helpers import REPO
+from tests.helpers.cli import runs_frame
 
 
 @pytest.fixture(scope="module")
@@ -201,3 +205,53 @@ def test_jobs_without_an_outcome_are_listed_unfinished(tmp_path):
     frame = sweep_frame([], unfinished=["2", "10"])
     assert list(frame["run"]) == ["job 2", "job 10"]
     assert set(frame["status"]) == {"unfinished"}
+
+
+TWO_SWEEPS = ["run", "-m", "model=random_forest", "data.documents=16", "features=geometry_text",
+              "train.progress=false", "evaluation.bootstrap_resamples=50",
+              "tracking.experiment=two"]
+
+
+def test_two_sweeps_at_once_on_one_sqlite_store_finish_each_job_once(tmp_path):
+    """Sweep a is held (kill_points `pause`) after it found the job unfinished, before it
+    trains; sweep b, started then, must wait for a's claim on the config and skip the job once
+    a finished it. Before the fix b trained too: two FINISHED runs of one config."""
+    env = {**os.environ, "PYTHONPATH": str(REPO), "OMP_NUM_THREADS": "1"}
+
+    def start(name: str, *entry: str) -> subprocess.Popen:
+        log = (tmp_path / f"{name}.log").open("w")
+        return subprocess.Popen([sys.executable, *entry, *TWO_SWEEPS, f"hydra.sweep.dir={name}"],
+                                cwd=tmp_path, env=env, stdout=log, stderr=subprocess.STDOUT,
+                                text=True)
+
+    held = start("a", "-m", "tests.runs.kill_points", "pause:dochar.experiment.run_experiment:1")
+    try:
+        wait_for(lambda: (tmp_path / "paused").exists() or held.poll() is not None)
+        assert held.poll() is None, (tmp_path / "a.log").read_text()[-3000:]
+        second = start("b", "-m", "dochar.cli")
+        wait_for(lambda: "waits: another process runs the same config" in
+                 (tmp_path / "b.log").read_text() or second.poll() is not None)
+        (tmp_path / "release").touch()
+        assert held.wait(timeout=900) == 0, (tmp_path / "a.log").read_text()[-3000:]
+        assert second.wait(timeout=900) == 0, (tmp_path / "b.log").read_text()[-3000:]
+    finally:
+        for process in (held, locals().get("second")):
+            if process is not None and process.poll() is None:
+                process.kill()
+                process.wait()
+    frame = runs_frame(f"sqlite:///{tmp_path / 'mlflow.db'}", "two")
+    jobs = frame[frame["tags.kind"].isna()]
+    assert list(jobs["status"]) == ["FINISHED"], jobs[["status", "tags.sweep_id"]]
+    assert set(frame["status"]) == {"FINISHED"}
+    tables = {name: pd.read_csv(tmp_path / name / "sweep_table.csv") for name in "ab"}
+    assert list(tables["a"]["status"]) == ["finished"]
+    assert list(tables["b"]["status"]) == ["skipped (done before)"]
+    assert tables["a"]["macro_f1"].item() == tables["b"]["macro_f1"].item()
+    assert not list(tmp_path.rglob("*.partial"))
+
+
+def wait_for(condition, seconds: float = 900) -> None:
+    deadline = time.monotonic() + seconds
+    while not condition():
+        assert time.monotonic() < deadline, "timed out"
+        time.sleep(0.5)

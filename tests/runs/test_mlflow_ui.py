@@ -63,6 +63,24 @@ def test_runs_carry_their_dataset_and_open_as_training_runs(swept):
     assert runs_view("sqlite:///x", experiment.experiment_id) in printed
 
 
+def test_the_sweep_run_encloses_its_jobs_and_each_job_its_training(swept):
+    """MLflow's durations are the work's: the sweep's run spans its jobs' runs, each job's run
+    spans its training (cost/train_seconds), so no run shows the few ms its logging took."""
+    folder, _ = swept
+    client = MlflowClient(tracking_uri=f"sqlite:///{folder / 'mlflow.db'}")
+    experiment = client.get_experiment_by_name(EXPERIMENT)
+    runs = client.search_runs([experiment.experiment_id])
+    (parent,) = [r for r in runs if r.data.tags.get("kind") == "sweep"]
+    children = [r for r in runs if r is not parent]
+    assert len(children) == len(SYSTEMS)
+    for child in children:
+        assert child.data.tags["mlflow.parentRunId"] == parent.info.run_id
+        assert parent.info.start_time <= child.info.start_time
+        assert child.info.end_time <= parent.info.end_time
+        duration = (child.info.end_time - child.info.start_time) / 1000
+        assert duration >= child.data.metrics["cost/train_seconds"]
+
+
 def _free_port() -> int:
     with socket.socket() as s:
         s.bind(("127.0.0.1", 0))
@@ -74,7 +92,7 @@ def test_the_printed_address_lists_the_sweep_in_the_mlflow_ui(swept):
     chromium = require_chromium()
     from playwright.sync_api import sync_playwright
 
-    folder, _ = swept
+    folder, printed_text = swept
     port = _free_port()
     server = subprocess.Popen([sys.executable, "-m", "mlflow", "ui", "--backend-store-uri",
                                f"sqlite:///{folder / 'mlflow.db'}", "--host", "127.0.0.1",
@@ -91,7 +109,13 @@ def test_the_printed_address_lists_the_sweep_in_the_mlflow_ui(swept):
                 time.sleep(1)
         client = MlflowClient(tracking_uri=f"sqlite:///{folder / 'mlflow.db'}")
         experiment_id = client.get_experiment_by_name(EXPERIMENT).experiment_id
-        address = runs_view("sqlite:///x", experiment_id, ui=f"http://127.0.0.1:{port}")
+        # the address dochar printed, on this test's port: the runs view opened on dochar's
+        # saved view of the headline scores
+        (printed,) = [word for word in printed_text.split() if "/runs" in word]
+        address = printed.replace(runs_view("sqlite:///x", experiment_id),
+                                  runs_view("sqlite:///x", experiment_id,
+                                            ui=f"http://127.0.0.1:{port}"))
+        assert "viewStateShareKey=" in address
         with sync_playwright() as p:
             browser = p.chromium.launch(executable_path=str(chromium), args=LAUNCH_ARGS)
             try:
@@ -101,6 +125,8 @@ def test_the_printed_address_lists_the_sweep_in_the_mlflow_ui(swept):
                 # the heading renders after the runs table on a loaded machine: wait for it
                 page.locator("h2, h1", has_text="Training runs").first.wait_for(timeout=60_000)
                 title = page.locator("h2, h1").all_inner_texts()
+                # the view's score columns are shown without the user choosing them
+                score_headers = page.locator('[col-id="metrics.`macro_f1`"]').count()
                 # the sweep is one parent row; its expander shows the runs it launched
                 page.locator('[col-id="attributes.`Run Name`"] button').first.click()
                 page.wait_for_selector(f"text={SYSTEMS[0]}/", timeout=30_000)
@@ -114,6 +140,7 @@ def test_the_printed_address_lists_the_sweep_in_the_mlflow_ui(swept):
         server.terminate()
         server.wait(timeout=30)
     assert any("Training runs" in t for t in title)
+    assert score_headers > 0
     assert all(f"{system}/" in rows for system in SYSTEMS)
     fingerprint = client.search_runs([experiment_id])[0].data.tags.get("data_fingerprint")
     assert "sweep " in rows and (fingerprint is None or fingerprint in rows)

@@ -17,7 +17,7 @@ from dochar.data.importers.form_json import import_form_json
 from dochar.runs.aggregate import AggregateError, aggregate_runs
 from dochar.runs.numbers import mean_std
 from dochar.splits.layout_families import LayoutFamilyError, assign_inferred_layouts
-from dochar.splits.protocols import documents_of, make_splits
+from dochar.splits.protocols import SplitError, documents_of, make_splits
 from tests.helpers import CONFIGS, split_documents
 
 
@@ -207,3 +207,64 @@ def test_funsd_presets_use_the_official_split(preset):
     assert (cfg.data.name, cfg.split.protocol) == ("funsd", "fixed")
     assert cfg.split.train_documents is None
     assert cfg.tracking.experiment == "funsd-benchmark"
+
+
+# --------------------------------------------- fixed and random cuts of small lists, by hand
+# A `split` column names each document's part (validation, valid and dev, in any case, all
+# mean val); a missing validation part is cut from training at round(val_size * n) documents,
+# at least 1, leaving at least 1, and needs 2 documents to cut from; val_size 0 cuts nothing
+# (rules of dochar/splits/protocols.py).
+
+def _listed(splits: list[str]) -> pd.DataFrame:
+    return pd.DataFrame({"doc_id": [f"coa-{i}" for i in range(len(splits))],
+                         "layout_id": [f"L{i % 2}" for i in range(len(splits))],
+                         "split": splits})
+
+
+def test_every_spelling_of_validation_names_the_val_part():
+    (split,) = make_splits(_listed(["train", "train", "Validation", "valid", "DEV", "test"]),
+                           "fixed", seed=0)
+    assert (split.train, split.val, split.test) == (["coa-0", "coa-1"],
+                                                    ["coa-2", "coa-3", "coa-4"], ["coa-5"])
+
+
+def test_without_a_val_part_validation_is_cut_from_training():
+    # 2 training documents, val_size 0.15: min(max(1, round(0.3)), 2 - 1) = 1 cut, 1 kept
+    (split,) = make_splits(_listed(["train", "train", "test"]), "fixed", seed=0, val_size=0.15)
+    assert (len(split.train), len(split.val), split.test) == (1, 1, ["coa-2"])
+    assert sorted(split.train + split.val) == ["coa-0", "coa-1"]
+    # val_size 0: no validation, every training document stays
+    (none,) = make_splits(_listed(["train", "train", "train", "test"]), "fixed", seed=0,
+                          val_size=0.0)
+    assert (none.train, none.val) == (["coa-0", "coa-1", "coa-2"], [])
+
+
+def test_one_training_document_cannot_give_a_validation_part():
+    with pytest.raises(SplitError, match=r"^cannot carve a validation set from 1 document\(s\); "
+                                         r"need at least 2$"):
+        make_splits(_listed(["train", "test"]), "fixed", seed=0, val_size=0.15)
+
+
+def test_random_split_of_three_documents_gives_one_to_each_part():
+    # test: min(max(1, round(0.75)), 3 - 2) = 1; validation of the 2 left:
+    # min(max(1, round(0.3)), 2 - 1) = 1
+    (split,) = make_splits(_listed(["", "", ""]), "random", seed=0, test_size=0.25,
+                           val_size=0.15)
+    assert (len(split.train), len(split.val), len(split.test)) == (1, 1, 1)
+    assert sorted(split.train + split.val + split.test) == ["coa-0", "coa-1", "coa-2"]
+
+
+def test_fixed_split_refusals_name_the_documents_and_values():
+    blanks = ["train", *[""] * 6, "test"]
+    with pytest.raises(SplitError, match=r"^protocol 'fixed' needs a split value for every "
+                                         r"document; 6 of 8 have none \(e\.g\. \['coa-1', "
+                                         r"'coa-2', 'coa-3', 'coa-4', 'coa-5'\]\)$"):
+        make_splits(_listed(blanks), "fixed", seed=0)
+    with pytest.raises(SplitError, match=r"^unknown split value\(s\) \['holdout'\]; use "
+                                         r"\['train', 'val', 'test'\]$"):
+        make_splits(_listed(["train", "holdout", "test"]), "fixed", seed=0)
+    with pytest.raises(SplitError, match=r"^protocol 'fixed' found no 'test' documents in the "
+                                         r"split column$"):
+        make_splits(_listed(["train", "train", "val"]), "fixed", seed=0)
+    (split,) = make_splits(_listed(["train", "val", "test"]), "fixed", seed=0)
+    assert split.protocol == "fixed"

@@ -60,3 +60,16 @@ def test_without_validation_one_training_layout_is_enough(protocol):
     assert split.val == []
     assert len({doc.split("-")[1] for doc in split.train}) == 1
     assert "unseen" in split.test_sides.values()
+
+
+def test_the_seen_test_documents_are_drawn_layout_by_layout():
+    """4 layouts of 2 documents, test_size 0.25, no validation: min(max(1, round(1.0)), 4 - 1)
+    = 1 layout goes unseen (2 documents); each of the 3 others moves min(max(1, round(0.5)),
+    2 - 1) = 1 document to test, so every training layout keeps exactly one document and has
+    exactly one on the seen side (drawn from all 6 at once it would be round(0.25 · 6) = 2)."""
+    (split,) = make_splits(_docs(4, 2), "seen_and_unseen_layouts", seed=0, test_size=0.25,
+                           val_size=0.0, seen_test_fraction=0.25)
+    trained = sorted(doc.split("-")[1] for doc in split.train)
+    seen = sorted(doc.split("-")[1] for doc, side in split.test_sides.items() if side == "seen")
+    assert len(trained) == 3 and trained == seen
+    assert sorted(split.test_sides.values()) == ["seen"] * 3 + ["unseen"] * 2
