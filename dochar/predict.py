@@ -225,6 +225,13 @@ def score(words: pd.DataFrame, saved: SavedModel) -> list[str]:
     return lines
 
 
+def label_table(saved: SavedModel, table: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """A validated word table to per-word predictions and the grouped fields: graphs,
+    features, one forward pass over all pages, labels, fields (what ``make bench`` times)."""
+    words = saved.label_words(table)
+    return words, fields(words, saved.manifest["entity_ignore"])
+
+
 def run(args: argparse.Namespace) -> int:
     with tempfile.TemporaryDirectory(prefix="dochar-predict-") as workdir:
         saved = load_model(resolve_model(args.model, args.tracking_uri, Path(workdir)))
@@ -239,8 +246,7 @@ def run(args: argparse.Namespace) -> int:
     table = read_inputs(args)
     if saved.task.target == PAIRS:
         return write_links(saved, table, args.out)
-    words = saved.label_words(table)
-    found = fields(words, saved.manifest["entity_ignore"])
+    words, found = label_table(saved, table)
     words_path = write_word_table(words, args.out / f"words.{args.words_format}")
     write_text_atomic(args.out / "fields.csv", found.to_csv(index=False))
     documents = list(dict.fromkeys(words["doc_id"]))
