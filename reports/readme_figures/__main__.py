@@ -18,7 +18,7 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
-from reports.readme_figures import cheap, gate_spread, tables
+from reports.readme_figures import cheap, gate_spread, record_tables, tables
 from reports.readme_figures.cheap import FigureUnavailable
 from reports.readme_figures.markers import (FigureBlockError, documents, find_blocks,
                                             replace_block, same_figures, wrap_prose)
@@ -44,6 +44,8 @@ FIGURES: dict[str, Figure] = {
     "demo": Figure(tables.demo, cheap=False, takes_keep=True),
     "template-curve": Figure(tables.template_curve, cheap=False),
     "full-sweep": Figure(tables.full_sweep, cheap=False, takes_keep=True),
+    "records-demo": Figure(record_tables.records_demo, cheap=False, takes_keep=True),
+    "receipts-records": Figure(record_tables.receipts_records, cheap=False, takes_keep=True),
 }
 CHEAP = [name for name, figure in FIGURES.items() if figure.cheap]
 
