@@ -5,9 +5,11 @@ number, its dates); ``item_columns`` are the labels of table cells, one column e
 up a line item; ``items_name`` is the key the list of line items goes under. ``date_fields`` and
 ``amount_fields`` name the labels (of either kind) whose values normalisation reads as dates or
 amounts. ``single_fields`` are header fields a document has one value of: of several pieces
-predicted, the one whose least word probability is highest is kept. ``row_anchor`` (optional) is the item column that opens a line item: every line
-holding it starts a new item, and the lines under it join that item until the next one (a
-receipt's item name; :func:`dochar.records.rows.rows_by_anchor`). A label may be in one role only, and every label named must be one of the data's labels:
+predicted, the one whose least word probability is highest is kept. ``row_anchor`` (optional)
+is the item column that opens a line item: every line holding it starts a new item, and the
+lines under it join that item until the next one (a receipt's item name;
+:func:`dochar.records.rows.rows_by_anchor`). A label may be in one role only, and every label
+named must be one of the data's labels:
 :func:`check_shape` says which key names what, before any data loads.
 """
 
