@@ -39,6 +39,7 @@ from mutation.targets import DESELECTED, FULL, SMOKE
 
 ROOT = Path(__file__).resolve().parents[1]
 EQUIVALENTS = ROOT / "mutation" / "equivalent.toml"
+PLUGIN = ROOT / "mutation" / "fastest_first.py"   # copied beside the mutants, where tests run
 COPIED = ("dochar", "tests", "configs", "data_synth", "benchmarks", "pyproject.toml", "setup.py")
 STATUSES = ("killed", "survived", "no tests", "timeout", "suspicious", "skipped", "segfault")
 
@@ -77,6 +78,14 @@ def prepare(workdir: Path, targets: dict[str, list[str]], isolation: str) -> Non
     workdir.mkdir(parents=True)
     _copy_tracked(workdir, skip=set())
     _write_settings(workdir, targets, isolation)
+    _add_plugin(workdir)
+
+
+def _add_plugin(workdir: Path) -> None:
+    """The test-ordering plugin in mutmut's ``mutants`` folder (the tests' working folder and
+    first import path) under a name no project module has."""
+    (workdir / "mutants").mkdir(exist_ok=True)
+    shutil.copy2(PLUGIN, workdir / "mutants" / PLUGIN.name)
 
 
 def refresh(workdir: Path, targets: dict[str, list[str]], isolation: str) -> None:
@@ -92,6 +101,7 @@ def refresh(workdir: Path, targets: dict[str, list[str]], isolation: str) -> Non
                          "run afresh (without --again)")
     _copy_tracked(workdir, skip=set(targets))
     _write_settings(workdir, targets, isolation)
+    _add_plugin(workdir)
 
 
 def _copy_tracked(workdir: Path, skip: set[str]) -> None:
@@ -133,7 +143,8 @@ def mutmut(workdir: Path, *args: str, log: Path | None = None) -> str:
     # checkout) is passed on explicitly: a FUNSD test that skipped would leave its mutants
     # reached by no test
     datasets = os.environ.get("DOCHAR_DATASETS", str(ROOT.parent / "shared" / "datasets"))
-    env = {**os.environ, "OMP_NUM_THREADS": "1", "PYTHONPATH": "", "DOCHAR_DATASETS": datasets}
+    env = {**os.environ, "OMP_NUM_THREADS": "1", "PYTHONPATH": "", "DOCHAR_DATASETS": datasets,
+           "PYTEST_ADDOPTS": f"-p {PLUGIN.stem}"}
     command = [sys.executable, "-m", "mutmut", *args]
     if log is not None:
         with open(log, "w", encoding="utf-8") as handle:
