@@ -170,3 +170,30 @@ def test_the_fallback_needs_a_distance_strictly_below_the_threshold() -> None:
     matches = loose.match_pages(twins)
     assert (matches["outcome"] == "fallback").all()
     assert matches["template"].tolist() == [page.layout_id for page in train]
+
+
+def test_a_model_rebuilt_from_its_saved_state_matches_and_labels_as_the_fitted_one() -> None:
+    import json
+
+    # the saved state goes through JSON (what dochar's saved models write): the rebuilt model
+    # must pick the same template at the same distance and give the same vote shares on seen
+    # families, a look-alike under a new id (fallback) and an unlike family (no template)
+    model = _fitted(neighbours=3, fallback_threshold=0.3, shape_weight=0.02)
+    state = json.loads(json.dumps(model.fitted_state()))
+    rebuilt = LayoutTemplateClassifier(classes=CLASSES, neighbours=3, fallback_threshold=0.3,
+                                       shape_weight=0.02).load_state(state)
+    # by hand: 3 families × 3 training pages of 15 words, one template per family and page
+    assert rebuilt.families_ == sorted(FAMILIES) and rebuilt.n_template_words_ == 135
+    assert list(rebuilt.classes_) == list(model.classes_)
+    test = (_pages(2, seed=6) + _pages(1, seed=7, families=("north_east",),
+                                       layout_id="north_east_v2")
+            + _pages(1, seed=8, families=("south_east",)))
+    assert rebuilt.match_pages(test).equals(model.match_pages(test))
+    assert set(model.match_pages(test)["outcome"]) == {"template", "fallback", "no_template"}
+    np.testing.assert_array_equal(rebuilt.predict_proba(test), model.predict_proba(test))
+    for saved, loaded in zip(model.templates_, rebuilt.templates_):
+        assert (loaded.family, loaded.page) == (saved.family, saved.page)
+        np.testing.assert_array_equal(loaded.points, saved.points)
+        np.testing.assert_array_equal(loaded.signature, saved.signature)
+        assert list(loaded.shapes) == list(saved.shapes) and loaded.labels.dtype == np.int64
+        assert loaded.search.n_neighbors == min(len(saved.points), 3 + 8)  # k + 8 candidates
