@@ -197,3 +197,66 @@ def test_a_model_rebuilt_from_its_saved_state_matches_and_labels_as_the_fitted_o
         np.testing.assert_array_equal(loaded.signature, saved.signature)
         assert list(loaded.shapes) == list(saved.shapes) and loaded.labels.dtype == np.int64
         assert loaded.search.n_neighbors == min(len(saved.points), 3 + 8)  # k + 8 candidates
+
+
+def test_word_positions_are_centres_and_sizes_as_fractions_of_the_page() -> None:
+    from dochar.models.template import _positions
+
+    # by hand: box (100, 100)-(140, 110) on a 600 x 800 page has centre (120/600, 105/800)
+    # and size (40/600, 10/800); weights scale the distance, so the points take their roots
+    page = Page("coa-1", 1, np.array([0]), ["Lot:"], np.array([[100.0, 100.0, 140.0, 110.0]]),
+                600.0, 800.0, ["key"], layout_id="one")
+    np.testing.assert_allclose(_positions(page), [[0.2, 0.13125, 40 / 600, 10 / 800]])
+    weighted = LayoutTemplateClassifier(centre_weight=4.0, size_weight=0.25)._weighted(
+        np.ones((1, 4)))
+    np.testing.assert_allclose(weighted, [[2.0, 2.0, 0.5, 0.5]])
+
+
+def test_signature_options_reach_the_page_signatures_and_family_inference() -> None:
+    from dochar.splits.layout_families import infer_layout_families, page_signature
+
+    # a YAML config gives the grid as a list; the signatures are page_signature's with it
+    options = {"grid": [2, 3], "n_keywords": 4, "text_weight": 0.25}
+    train = _pages(1, seed=1)
+    model = LayoutTemplateClassifier(classes=CLASSES, signature=options).fit(train)
+    expected = page_signature(train[0], grid=(2, 3), n_keywords=4, text_weight=0.25)
+    assert len(expected) == 2 * 3 + 4
+    (own,) = [t for t in model.templates_ if t.family == train[0].layout_id]
+    np.testing.assert_allclose(own.signature, expected)
+    # pages without a layout id are grouped by infer_layout_families with the same options
+    unnamed = _pages(2, seed=1, layout_id="")
+    inferred = LayoutTemplateClassifier(classes=CLASSES, signature=options).fit(unnamed)
+    groups = infer_layout_families(unnamed, 0.3, grid=(2, 3), n_keywords=4, text_weight=0.25)
+    assert inferred.families_ == sorted({f"inferred-{family}" for family in groups.values()})
+
+
+def test_a_page_is_matched_to_its_family_template_of_the_same_page_number() -> None:
+    import dataclasses
+
+    # family "coa" has a north-west first page and a north-east second page; a first page
+    # that looks like a north-east page still gets the family's first-page template, at the
+    # distance of an unlike signature (the north-east one would be at distance ~0)
+    rng = np.random.default_rng(11)
+    first = _page("coa-a", "north_west", rng, layout_id="coa")
+    second = dataclasses.replace(_page("coa-a", "north_east", rng, layout_id="coa"), page=2)
+    model = LayoutTemplateClassifier(classes=CLASSES).fit([first, second])
+    look_alike = _page("coa-b", "north_east", rng, layout_id="coa")
+    match = model.match_pages([look_alike]).iloc[0]
+    assert (match["outcome"], match["template"]) == ("template", "coa")
+    assert match["distance"] > 0.3
+
+
+def test_match_pages_reads_unlabelled_pages_and_reports_one_row_each() -> None:
+    import dataclasses
+
+    model = _fitted()
+    page = dataclasses.replace(_pages(1, seed=9, families=("north_west",))[0], labels=None,
+                               layout_id=None, doc_id="coa-9", page=1)
+    table = model.match_pages([page])
+    assert list(table.columns) == ["doc_id", "page", "layout_id", "template", "distance",
+                                   "outcome"]
+    assert table[["doc_id", "page", "layout_id", "outcome"]].values.tolist() == [
+        ["coa-9", 1, "", "fallback"]]
+    with pytest.raises(TemplateInputError, match=r"^LayoutTemplateClassifier\.match_pages: "
+                                                 r"item 0 is a dict, not a Page$"):
+        model.match_pages([{"doc_id": "x"}])
