@@ -260,3 +260,68 @@ def test_match_pages_reads_unlabelled_pages_and_reports_one_row_each() -> None:
     with pytest.raises(TemplateInputError, match=r"^LayoutTemplateClassifier\.match_pages: "
                                                  r"item 0 is a dict, not a Page$"):
         model.match_pages([{"doc_id": "x"}])
+
+
+def test_the_class_defaults_are_those_of_the_model_config() -> None:
+    import yaml
+
+    from tests.helpers import CONFIGS
+
+    options = yaml.safe_load((CONFIGS / "model" / "layout_template.yaml").read_text())["options"]
+    defaults = LayoutTemplateClassifier().get_params()
+    assert {name: defaults[name] for name in options} == options
+    assert defaults["signature"] is None and defaults["classes"] is None
+
+
+@pytest.mark.parametrize("options, message", [
+    (dict(neighbours=True), r"neighbours must be a positive int, got True"),
+    (dict(neighbours=2.0), r"neighbours must be a positive int, got 2\.0"),
+    (dict(size_weight=-0.1), r"size_weight must be a number >= 0, got -0\.1"),
+    (dict(shape_weight=float("nan")), r"shape_weight must be a number >= 0, got nan"),
+    (dict(centre_weight="1"), r"centre_weight must be a number >= 0, got '1'"),
+    (dict(centre_weight=0, size_weight=0), r"centre_weight and size_weight are both 0; "
+                                           r"positions would not count at all"),
+    (dict(fallback_threshold=2.5), r"fallback_threshold is a cosine distance in \[0, 2\], "
+                                   r"got 2\.5"),
+    (dict(family_threshold="0.3"), r"family_threshold is a cosine distance in \[0, 2\], "
+                                   r"got '0\.3'"),
+    (dict(signature={"grid": [2, 2], "cells": 4}), r"unknown signature option\(s\) "
+                                                   r"\['cells'\]; valid: \['grid', "
+                                                   r"'n_keywords', 'text_weight'\]"),
+])
+def test_options_out_of_range_are_refused_by_name(options, message) -> None:
+    with pytest.raises(TemplateInputError, match=rf"^model=layout_template: {message}$"):
+        LayoutTemplateClassifier(classes=CLASSES, **options).check_options()
+
+
+def test_options_at_the_edges_of_their_ranges_are_accepted() -> None:
+    for options in (dict(centre_weight=0), dict(size_weight=0), dict(shape_weight=0),
+                    dict(fallback_threshold=0, family_threshold=2),
+                    dict(fallback_threshold=2, family_threshold=0),
+                    dict(signature={"grid": [2, 2], "n_keywords": 8, "text_weight": 0.5})):
+        LayoutTemplateClassifier(classes=CLASSES, **options).check_options()
+
+
+def test_pages_are_refused_with_where_and_what() -> None:
+    page = _pages(1, seed=1)[0]
+    where = "LayoutTemplateClassifier.fit"
+    with pytest.raises(TemplateInputError, match=rf"^{where}: expected a sequence of Page "
+                                                 r"objects, got str$"):
+        LayoutTemplateClassifier(classes=CLASSES).fit("pages")
+    with pytest.raises(TemplateInputError, match=rf"^{where}: no pages given$"):
+        LayoutTemplateClassifier(classes=CLASSES).fit([])
+    import dataclasses
+
+    for bad, what in ((dataclasses.replace(page, boxes=page.boxes[:, :3]),
+                       r"boxes must be a finite \(15, 4\) array, got shape \(15, 3\)"),
+                      (dataclasses.replace(page, boxes=np.full((15, 4), np.inf)),
+                       r"boxes must be a finite \(15, 4\) array, got shape \(15, 4\)"),
+                      (dataclasses.replace(page, width=0.0),
+                       r"page size must be positive, got 0\.0 x "),
+                      (dataclasses.replace(page, height=0.0),
+                       r"page size must be positive, got \S+ x 0\.0")):
+        with pytest.raises(TemplateInputError, match=rf"^{where}: page {page.key}: {what}"):
+            LayoutTemplateClassifier(classes=CLASSES).fit([bad])
+    # a page under one point wide is still a page
+    LayoutTemplateClassifier(classes=CLASSES).fit([dataclasses.replace(
+        page, width=0.5, height=0.5, boxes=page.boxes / 2000)])
