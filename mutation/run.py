@@ -229,7 +229,16 @@ def merged(parts: list[dict[str, ModuleResult]], targets: dict[str, list[str]]
     return {module: found[module] for module in targets if module in found}
 
 
-def report(results: dict[str, ModuleResult], command: str, mode: str) -> str:
+def stale_modules(workdirs: list[Path], targets: dict[str, list[str]]) -> list[str]:
+    """Modules whose run folder holds another version than the checkout: their verdicts are of
+    that older code, and the report says so beside their row."""
+    return [module for workdir in workdirs for module in targets
+            if (workdir / module).is_file()
+            and (workdir / module).read_bytes() != (ROOT / module).read_bytes()]
+
+
+def report(results: dict[str, ModuleResult], command: str, mode: str,
+           stale: list[str] = ()) -> str:
     lines = [f"# Mutation testing ({mode})", "",
              f"Generated {datetime.datetime.now(datetime.UTC):%Y-%m-%d %H:%M} UTC by `{command}` "
              f"(mutmut). Kill rate = killed / (mutants - equivalent - not run).", "",
@@ -237,7 +246,8 @@ def report(results: dict[str, ModuleResult], command: str, mode: str) -> str:
              "kill rate |", "| --- | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: |"]
     total = ModuleResult()
     for module, result in results.items():
-        lines.append(_row(module, result))
+        lines.append(_row(module + (" (run on an older version of the module)"
+                                    if module in stale else ""), result))
         total.counts.update(result.counts)
         total.survivors += result.survivors
         total.equivalent += result.equivalent
@@ -308,7 +318,8 @@ def main(argv: list[str] | None = None) -> int:
                       for workdir in workdirs], targets)
     command = "python -m mutation.run " + " ".join(argv if argv is not None else sys.argv[1:])
     out.parent.mkdir(parents=True, exist_ok=True)
-    out.write_text(report(results, command.strip(), mode), encoding="utf-8")
+    out.write_text(report(results, command.strip(), mode, stale_modules(workdirs, targets)),
+                   encoding="utf-8")
     survivors = sum(len(r.survivors) for r in results.values())
     print(f"{survivors} surviving mutant(s); report: {out}")
     low = [m for m, result in results.items() if args.min_rate is not None
