@@ -229,12 +229,11 @@ def merged(parts: list[dict[str, ModuleResult]], targets: dict[str, list[str]]
     return {module: found[module] for module in targets if module in found}
 
 
-def stale_modules(workdirs: list[Path], targets: dict[str, list[str]]) -> list[str]:
-    """Modules whose run folder holds another version than the checkout: their verdicts are of
-    that older code, and the report says so beside their row."""
-    return [module for workdir in workdirs for module in targets
-            if (workdir / module).is_file()
-            and (workdir / module).read_bytes() != (ROOT / module).read_bytes()]
+def stale_modules(parts: dict[Path, list[str]]) -> list[str]:
+    """Modules whose run folder (folder -> the modules run there) holds another version than
+    the checkout: their verdicts are of that older code, and the report says so."""
+    return [module for workdir, modules in parts.items() for module in modules
+            if (workdir / module).read_bytes() != (ROOT / module).read_bytes()]
 
 
 def report(results: dict[str, ModuleResult], command: str, mode: str,
@@ -314,12 +313,13 @@ def main(argv: list[str] | None = None) -> int:
               flush=True)
         if not args.again or again:
             mutmut(workdir, "run", "--max-children", str(args.workers), *again, log=log)
-    results = merged([collect(workdir, targets, load_equivalents(EQUIVALENTS))
-                      for workdir in workdirs], targets)
+    parts = {workdir: collect(workdir, targets, load_equivalents(EQUIVALENTS))
+             for workdir in workdirs}
+    results = merged(list(parts.values()), targets)
+    stale = stale_modules({workdir: list(part) for workdir, part in parts.items()})
     command = "python -m mutation.run " + " ".join(argv if argv is not None else sys.argv[1:])
     out.parent.mkdir(parents=True, exist_ok=True)
-    out.write_text(report(results, command.strip(), mode, stale_modules(workdirs, targets)),
-                   encoding="utf-8")
+    out.write_text(report(results, command.strip(), mode, stale), encoding="utf-8")
     survivors = sum(len(r.survivors) for r in results.values())
     print(f"{survivors} surviving mutant(s); report: {out}")
     low = [m for m, result in results.items() if args.min_rate is not None

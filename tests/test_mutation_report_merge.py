@@ -42,9 +42,8 @@ def test_a_module_run_on_an_older_version_is_marked_in_its_row(tmp_path):
                          (current, (ROOT / module).read_text(encoding="utf-8"))):
         (folder / module).parent.mkdir(parents=True)
         (folder / module).write_text(text, encoding="utf-8")
-    targets = {module: []}
-    assert stale_modules([old, current], targets) == [module]
-    assert stale_modules([current], targets) == []
+    assert stale_modules({old: [module], current: [module]}) == [module]
+    assert stale_modules({current: [module], old: []}) == []   # old's run is of other modules
     text = report({module: _result(1, 0)}, "python -m mutation.run --report-only", "full",
                   [module])
     assert f"| {module} (run on an older version of the module) | 1 | 1 |" in text
