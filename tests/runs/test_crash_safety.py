@@ -325,3 +325,43 @@ def test_a_run_onto_a_full_disk_exits_2_and_runs_whole_once_space_is_freed(tmp_p
     manifest = json.loads((small_disk / "run" / "run" / "model" / "manifest.json").read_text())
     assert manifest["files"] and (small_disk / "run" / "run" / "summary.json").exists()
     assert not list(small_disk.rglob("*.partial"))
+
+
+@pytest.mark.parametrize("stop", [SystemExit(144), KeyboardInterrupt()])
+def test_a_run_stopped_while_logging_ends_killed_not_failed(tmp_path, monkeypatch, stop):
+    """SystemExit(144): what submitit's re-queue handler raises in the frame it interrupts
+    (its local executor's requeue code); KeyboardInterrupt: Ctrl-C. Before the fix MLflow's
+    run context ended the run FAILED, as if the run itself had failed."""
+    from tests.runs.test_tracking import tiny_bundle
+    from dochar.runs.tracking import log_run
+
+    def stopped(*args, **kwargs):
+        raise stop
+
+    monkeypatch.setattr(mlflow, "log_artifacts", stopped)
+    uri = f"sqlite:///{tmp_path / 'mlflow.db'}"
+    with pytest.raises(type(stop)):
+        log_run(tiny_bundle({"seed": 0}, "dochar run"), tmp_path / "run", uri=uri,
+                experiment="stopped")
+    (run,) = mlflow.MlflowClient(tracking_uri=uri).search_runs(
+        [mlflow.MlflowClient(tracking_uri=uri).get_experiment_by_name("stopped").experiment_id])
+    assert run.info.status == "KILLED"
+    assert run.data.tags[FOUND_BY_TAG] == writer()
+    assert pd.Timestamp(run.data.tags[FOUND_AT_TAG]).tzname() == "UTC"
+
+
+def test_a_job_lost_under_submitit_is_told_in_one_line():
+    """submitit raises UncompletedJobError for a job that left no result (its process killed);
+    before the fix it reached the user as a traceback through Hydra and submitit."""
+    from submitit.core.utils import FailedJobError, UncompletedJobError
+
+    from dochar.runs.sweep import lost_job_message
+
+    lost = UncompletedJobError("Job 6594 (task: 0) with path /s/6594_0_result.pkl\n"
+                               "has not produced any output (state: FINISHED)")
+    message = lost_job_message(lost)
+    assert message is not None and "\n" not in message
+    assert "Job 6594 (task: 0) with path /s/6594_0_result.pkl" in message
+    assert "Run the same command again" in message
+    assert lost_job_message(FailedJobError("x")) is not None
+    assert lost_job_message(RuntimeError("Job 1 has not produced any output")) is None
