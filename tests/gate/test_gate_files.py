@@ -99,3 +99,15 @@ def test_a_rerun_on_another_machine_is_told_what_differs():
         elsewhere, baseline())
     assert [line for line in describe_update(unrecorded, elsewhere)
             if line.startswith("machine recorded: ") and "cpu Example CPU 9000" in line]
+
+
+def test_the_committed_baseline_records_what_judges_a_rerun_elsewhere():
+    """Bit-identical reruns need the same libraries, machine and thread count
+    (docs/crash-safety.md): the committed baseline names all three."""
+    from tests.helpers import REPO
+
+    committed = Baseline.read(REPO / "reports" / "baseline" / "reference.yaml")
+    assert set(committed.libraries) == {"torch", "torch-geometric", "scikit-learn", "numpy"}
+    assert {"cpu", "cpu_instructions", "architecture"} <= set(committed.machine)
+    assert all(committed.machine[key] for key in ("cpu", "cpu_instructions"))
+    assert committed.experiment_config["train.threads"] == 1
