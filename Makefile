@@ -9,7 +9,7 @@ TORCH_SPEC ?= torch==2.13.0
 TORCH_INDEX ?= https://download.pytorch.org/whl/cpu
 DEMO_EXPERIMENT ?= dochar-demo
 
-.PHONY: install demo test test-all bench bench-smoke mutate mutate-smoke gate readme-figures clean
+.PHONY: install demo test test-all bench bench-smoke funsd-table funsd-table-smoke mutate mutate-smoke gate readme-figures clean
 
 install: $(STAMP)
 
@@ -44,6 +44,15 @@ bench: $(STAMP)
 
 bench-smoke: $(STAMP)
 	$(BIN)/python -m benchmarks.run --smoke --out reports/benchmarks-smoke.md
+
+# The FUNSD results table: every configs/experiment/funsd_*.yaml preset on seeds 0-2, two jobs at
+# once with one thread each, into reports/funsd-table.md with its wall time (reports/funsd_table.py;
+# long: `make bench` reads its wall time back from that file). The smoke run is a default-suite test.
+funsd-table: $(STAMP)
+	$(BIN)/python -m reports.funsd_table
+
+funsd-table-smoke: $(STAMP)
+	$(BIN)/python -m reports.funsd_table --smoke
 
 # Mutation testing (mutation/run.py): every mutant of the scoring, decoding, splitting, resume and
 # loading modules against their tests; the survivors go to reports/mutation.md. Slow (an hour and

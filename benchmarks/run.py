@@ -25,6 +25,7 @@ from benchmarks.inputs import FUNSD_PRESET, SYNTH_PRESET, run_inputs
 from benchmarks.prediction import prediction_figures
 from benchmarks.records import record_figures
 from benchmarks.report import markdown
+from benchmarks.results_table import results_table_figures
 from benchmarks.scale import scale_figures
 from benchmarks.training import training_figures
 
@@ -60,6 +61,7 @@ def main(argv: list[str] | None = None) -> int:
         figures += prediction_figures(inputs, repeats, judged, trees=trees)
         figures += scale_figures(scale, judged)
         figures += record_figures(20, 4 if args.smoke else 10, repeats, judged)
+        figures += results_table_figures(judged)
     command = "python -m benchmarks.run " + " ".join(argv if argv is not None else sys.argv[1:])
     header = (f"# dochar benchmarks\n\n{datetime.date.today().isoformat()}, `{command.strip()}`, "
               f"{platform.processor() or platform.machine()}, {os.cpu_count()} CPUs, "

@@ -49,6 +49,7 @@ class RecordSchema:
     items_name: str = "items"
     date_fields: List[str] = field(default_factory=list)
     amount_fields: List[str] = field(default_factory=list)
+    single_fields: List[str] = field(default_factory=list)  # one value each: the likeliest
     row_anchor: str = ""                  # the item column that opens a line item ("": layout)
 
 

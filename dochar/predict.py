@@ -35,6 +35,7 @@ import tempfile
 from collections.abc import Sequence
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
 from dochar.data.files import write_text_atomic
@@ -48,7 +49,7 @@ from dochar.data.word_table import (
     write_word_table,
 )
 from dochar.errors import DocharError, SuggestingParser
-from dochar.metrics.entities import entity_tables, reading_order
+from dochar.metrics.entities import reading_order
 from dochar.metrics.words import score_words
 from dochar.models.saved import SavedModel, SavedModelError, load_model
 from dochar.records.assemble import assemble_records
@@ -155,31 +156,42 @@ FIELD_COLUMNS = ["doc_id", "page", "label", "text", "x0", "y0", "x1", "y1", "pro
                  "word_ids"]
 
 
-def _field(part: pd.DataFrame, label: str) -> dict:
-    return {"doc_id": part["doc_id"].iloc[0], "page": int(part["page"].iloc[0]), "label": label,
-            "text": " ".join(part["text"]),
-            "x0": round(part["x0"].min(), 2), "y0": round(part["y0"].min(), 2),
-            "x1": round(part["x1"].max(), 2), "y1": round(part["y1"].max(), 2),
-            "probability": round(float(part["probability"].min()), 4),
-            "word_ids": " ".join(map(str, part["word_id"]))}
-
-
 def fields(words: pd.DataFrame, ignore: Sequence[str]) -> pd.DataFrame:
     """One row per field: the task's groups (``entity``) where it has them, else runs of
-    consecutive same-label words in reading order; labels in ``ignore`` are no field."""
+    consecutive same-label words in reading order (the entity rule of
+    :mod:`dochar.metrics.entities`: a new page or a new label starts a run); labels in
+    ``ignore`` are no field. Computed on whole columns: one sort, then one reduction per
+    column over the fields' member rows."""
     ordered = words.iloc[reading_order(words)].reset_index(drop=True)
+    predicted = ordered["predicted"].astype(str).to_numpy(dtype=object)
+    kept = ~np.isin(predicted, list(ignore))
     if "entity" in ordered:
-        grouped = ordered[(ordered["entity"].fillna("") != "")
-                          & ~ordered["predicted"].isin(list(ignore))]
-        rows = [_field(part, str(part["predicted"].iloc[0]))
-                for _, part in grouped.groupby(["doc_id", "page", "entity"], sort=False)]
-        return pd.DataFrame(rows, columns=FIELD_COLUMNS)
-    frame = ordered.assign(entity_id="")   # no true grouping: every word stands alone
-    _, runs = entity_tables(frame, sorted(set(frame["predicted"])), ignore=ignore,
-                            true_col="predicted", pred_col="predicted", entity_col="entity_id",
-                            doc_cols=("doc_id", "page"))
-    rows = [_field(ordered.iloc[run.start:run.end + 1], run.label) for run in runs.itertuples()]
-    return pd.DataFrame(rows, columns=FIELD_COLUMNS)
+        kept &= (ordered["entity"].fillna("") != "").to_numpy()
+        group = ordered[kept].groupby(["doc_id", "page", "entity"], sort=False).ngroup()
+        members = np.flatnonzero(kept)[np.argsort(group.to_numpy(), kind="stable")]
+        starts = np.flatnonzero(np.diff(np.sort(group.to_numpy()), prepend=-1))
+    else:
+        page = ordered.groupby(["doc_id", "page"], sort=False).ngroup().to_numpy()
+        new_run = np.ones(len(ordered), dtype=bool)
+        new_run[1:] = (page[1:] != page[:-1]) | (predicted[1:] != predicted[:-1])
+        members = np.flatnonzero(kept)
+        starts = np.flatnonzero(new_run[members])
+    if len(members) == 0:
+        return pd.DataFrame(columns=FIELD_COLUMNS)
+    ends = np.append(starts[1:], len(members))
+    part = ordered.iloc[members]
+    texts, ids = part["text"].tolist(), list(map(str, part["word_id"].tolist()))
+    first = part.iloc[starts]
+    lowest = np.minimum.reduceat(part["probability"].to_numpy(), starts)
+    return pd.DataFrame({
+        "doc_id": first["doc_id"].to_numpy(), "page": first["page"].astype(int).to_numpy(),
+        "label": predicted[members[starts]].tolist(),
+        "text": [" ".join(texts[a:b]) for a, b in zip(starts, ends)],
+        **{name: np.round(reduce.reduceat(part[name].to_numpy(), starts), 2)
+           for name, reduce in (("x0", np.minimum), ("y0", np.minimum), ("x1", np.maximum),
+                                ("y1", np.maximum))},
+        "probability": [round(float(value), 4) for value in lowest],
+        "word_ids": [" ".join(ids[a:b]) for a, b in zip(starts, ends)]}, columns=FIELD_COLUMNS)
 
 
 def fields_json(table: pd.DataFrame, documents: Sequence[str]) -> list[dict]:
@@ -213,6 +225,13 @@ def score(words: pd.DataFrame, saved: SavedModel) -> list[str]:
     return lines
 
 
+def label_table(saved: SavedModel, table: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """A validated word table to per-word predictions and the grouped fields: graphs,
+    features, one forward pass over all pages, labels, fields (what ``make bench`` times)."""
+    words = saved.label_words(table)
+    return words, fields(words, saved.manifest["entity_ignore"])
+
+
 def run(args: argparse.Namespace) -> int:
     with tempfile.TemporaryDirectory(prefix="dochar-predict-") as workdir:
         saved = load_model(resolve_model(args.model, args.tracking_uri, Path(workdir)))
@@ -227,8 +246,7 @@ def run(args: argparse.Namespace) -> int:
     table = read_inputs(args)
     if saved.task.target == PAIRS:
         return write_links(saved, table, args.out)
-    words = saved.label_words(table)
-    found = fields(words, saved.manifest["entity_ignore"])
+    words, found = label_table(saved, table)
     words_path = write_word_table(words, args.out / f"words.{args.words_format}")
     write_text_atomic(args.out / "fields.csv", found.to_csv(index=False))
     documents = list(dict.fromkeys(words["doc_id"]))

@@ -39,6 +39,7 @@ from mutation.targets import DESELECTED, FULL, SMOKE
 
 ROOT = Path(__file__).resolve().parents[1]
 EQUIVALENTS = ROOT / "mutation" / "equivalent.toml"
+PLUGIN = ROOT / "mutation" / "fastest_first.py"   # copied beside the mutants, where tests run
 COPIED = ("dochar", "tests", "configs", "data_synth", "benchmarks", "pyproject.toml", "setup.py")
 STATUSES = ("killed", "survived", "no tests", "timeout", "suspicious", "skipped", "segfault")
 
@@ -77,6 +78,14 @@ def prepare(workdir: Path, targets: dict[str, list[str]], isolation: str) -> Non
     workdir.mkdir(parents=True)
     _copy_tracked(workdir, skip=set())
     _write_settings(workdir, targets, isolation)
+    _add_plugin(workdir)
+
+
+def _add_plugin(workdir: Path) -> None:
+    """The test-ordering plugin in mutmut's ``mutants`` folder (the tests' working folder and
+    first import path) under a name no project module has."""
+    (workdir / "mutants").mkdir(exist_ok=True)
+    shutil.copy2(PLUGIN, workdir / "mutants" / PLUGIN.name)
 
 
 def refresh(workdir: Path, targets: dict[str, list[str]], isolation: str) -> None:
@@ -92,6 +101,7 @@ def refresh(workdir: Path, targets: dict[str, list[str]], isolation: str) -> Non
                          "run afresh (without --again)")
     _copy_tracked(workdir, skip=set(targets))
     _write_settings(workdir, targets, isolation)
+    _add_plugin(workdir)
 
 
 def _copy_tracked(workdir: Path, skip: set[str]) -> None:
@@ -133,7 +143,8 @@ def mutmut(workdir: Path, *args: str, log: Path | None = None) -> str:
     # checkout) is passed on explicitly: a FUNSD test that skipped would leave its mutants
     # reached by no test
     datasets = os.environ.get("DOCHAR_DATASETS", str(ROOT.parent / "shared" / "datasets"))
-    env = {**os.environ, "OMP_NUM_THREADS": "1", "PYTHONPATH": "", "DOCHAR_DATASETS": datasets}
+    env = {**os.environ, "OMP_NUM_THREADS": "1", "PYTHONPATH": "", "DOCHAR_DATASETS": datasets,
+           "PYTEST_ADDOPTS": f"-p {PLUGIN.stem}"}
     command = [sys.executable, "-m", "mutmut", *args]
     if log is not None:
         with open(log, "w", encoding="utf-8") as handle:
@@ -218,7 +229,15 @@ def merged(parts: list[dict[str, ModuleResult]], targets: dict[str, list[str]]
     return {module: found[module] for module in targets if module in found}
 
 
-def report(results: dict[str, ModuleResult], command: str, mode: str) -> str:
+def stale_modules(parts: dict[Path, list[str]]) -> list[str]:
+    """Modules whose run folder (folder -> the modules run there) holds another version than
+    the checkout: their verdicts are of that older code, and the report says so."""
+    return [module for workdir, modules in parts.items() for module in modules
+            if (workdir / module).read_bytes() != (ROOT / module).read_bytes()]
+
+
+def report(results: dict[str, ModuleResult], command: str, mode: str,
+           stale: list[str] = ()) -> str:
     lines = [f"# Mutation testing ({mode})", "",
              f"Generated {datetime.datetime.now(datetime.UTC):%Y-%m-%d %H:%M} UTC by `{command}` "
              f"(mutmut). Kill rate = killed / (mutants - equivalent - not run).", "",
@@ -226,7 +245,8 @@ def report(results: dict[str, ModuleResult], command: str, mode: str) -> str:
              "kill rate |", "| --- | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: |"]
     total = ModuleResult()
     for module, result in results.items():
-        lines.append(_row(module, result))
+        lines.append(_row(module + (" (run on an older version of the module)"
+                                    if module in stale else ""), result))
         total.counts.update(result.counts)
         total.survivors += result.survivors
         total.equivalent += result.equivalent
@@ -293,11 +313,13 @@ def main(argv: list[str] | None = None) -> int:
               flush=True)
         if not args.again or again:
             mutmut(workdir, "run", "--max-children", str(args.workers), *again, log=log)
-    results = merged([collect(workdir, targets, load_equivalents(EQUIVALENTS))
-                      for workdir in workdirs], targets)
+    parts = {workdir: collect(workdir, targets, load_equivalents(EQUIVALENTS))
+             for workdir in workdirs}
+    results = merged(list(parts.values()), targets)
+    stale = stale_modules({workdir: list(part) for workdir, part in parts.items()})
     command = "python -m mutation.run " + " ".join(argv if argv is not None else sys.argv[1:])
     out.parent.mkdir(parents=True, exist_ok=True)
-    out.write_text(report(results, command.strip(), mode), encoding="utf-8")
+    out.write_text(report(results, command.strip(), mode, stale), encoding="utf-8")
     survivors = sum(len(r.survivors) for r in results.values())
     print(f"{survivors} surviving mutant(s); report: {out}")
     low = [m for m, result in results.items() if args.min_rate is not None

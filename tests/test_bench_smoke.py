@@ -15,7 +15,7 @@ def test_smoke_bench_writes_every_figure(tmp_path):
     assert main(["--smoke", "--out", str(out)]) == 0
     rows = [line for line in out.read_text(encoding="utf-8").splitlines()
             if line.startswith("| ") and not line.startswith("| figure")]
-    assert len(rows) == 27
+    assert len(rows) == 28
     ted = [r for r in rows if r.startswith("| record TED")]
     assert len(ted) == 1   # computed only when the distance equals zss's (the bench raises otherwise)
     identical = [r for r in rows if "edges identical" in r]

@@ -31,3 +31,19 @@ def test_runs_of_separate_modules_merge_in_the_order_of_the_targets():
 def test_a_module_in_two_run_folders_is_refused():
     with pytest.raises(SystemExit, match="dochar/a.py"):
         merged([{"dochar/a.py": _result(1, 0)}, {"dochar/a.py": _result(0, 1)}], TARGETS)
+
+
+def test_a_module_run_on_an_older_version_is_marked_in_its_row(tmp_path):
+    from mutation.run import ROOT, stale_modules
+
+    module = "dochar/metrics/seen_unseen.py"
+    old, current = tmp_path / "old", tmp_path / "current"
+    for folder, text in ((old, "# an older version\n"),
+                         (current, (ROOT / module).read_text(encoding="utf-8"))):
+        (folder / module).parent.mkdir(parents=True)
+        (folder / module).write_text(text, encoding="utf-8")
+    assert stale_modules({old: [module], current: [module]}) == [module]
+    assert stale_modules({current: [module], old: []}) == []   # old's run is of other modules
+    text = report({module: _result(1, 0)}, "python -m mutation.run --report-only", "full",
+                  [module])
+    assert f"| {module} (run on an older version of the module) | 1 | 1 |" in text

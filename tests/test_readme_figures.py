@@ -139,3 +139,16 @@ def test_funsd_entity_ceiling_agrees_with_a_brute_force_count():
     scores = entity_scores(test, list(cfg.data.labels), ignore=sorted(ignore))
     assert (scores.n_correct, scores.n_pred, scores.n_true) == (correct, n_pred, n_true)
     assert scores.f1 == pytest.approx(2 * correct / (n_pred + n_true))
+
+
+def test_thread_spread_table_differences_worked_by_hand():
+    from reports.readme_figures.gate_spread import thread_spread_text
+
+    one = {"macro_f1": 0.9, "entity_f1": 0.8, "accuracy": 0.95, "f1/a": 0.5, "f1/b": 0.7}
+    two = {"macro_f1": 0.89, "entity_f1": 0.81, "accuracy": 0.94, "f1/a": 0.52, "f1/b": 0.6}
+    text = thread_spread_text(one, two, {"macro_f1": 0.02, "entity_f1": 0.02, "class": 0.05})
+    assert "| macro-F1 | 0.90000 | 0.89000 | -0.0100 | 0.02 |" in text
+    assert "| entity F1 | 0.80000 | 0.81000 | +0.0100 | 0.02 |" in text
+    assert "| word accuracy | 0.95000 | 0.94000 | -0.0100 | - |" in text
+    # |0.6 - 0.7| = 0.1 beats |0.52 - 0.5| = 0.02
+    assert "| largest class F1 difference (b) | | | 0.1000 | 0.05 |" in text

@@ -105,7 +105,7 @@ def test_the_runs_view_opens_on_the_headline_scores(user_run):
     state = json.loads(envelope["state"])
     assert state["orderByKey"] == "metrics.`macro_f1`" and state["orderByAsc"] is False
     metric_columns = [c for c in state["selectedColumns"] if c.startswith("metrics.")]
-    assert metric_columns[0] == "metrics.`macro_f1`"
+    assert metric_columns[0] == "metrics.`macro_f1`" == state["columnOrder"][0]
     assert "metrics.`cost/train_seconds`" in metric_columns
     (run,) = client.search_runs([experiment.experiment_id])
     # every score column the view shows is filled for the run (no empty column)

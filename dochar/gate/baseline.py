@@ -2,12 +2,15 @@
 
 One YAML file per gate (``reports/baseline/<name>.yaml``) with sorted keys and one metric per
 block, so a baseline update reads as a small diff in review. Values are written at full float
-precision: a rerun on the same machine reproduces them bit for bit.
+precision: a rerun on the same machine, libraries and thread count reproduces them bit for bit;
+so the file also records the libraries and the machine (CPU model, the vector instructions
+torch's kernels use), and the config its thread count (``train.threads``).
 """
 
 from __future__ import annotations
 
 import datetime as dt
+import platform
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -73,6 +76,32 @@ def library_versions() -> dict[str, str]:
     return tracking.library_versions(LIBRARIES)
 
 
+def cpu_model() -> str:
+    """The CPU's model name (Linux /proc/cpuinfo, else what the platform says)."""
+    try:
+        for line in Path("/proc/cpuinfo").read_text().splitlines():
+            if line.startswith("model name"):
+                return line.split(":", 1)[1].strip()
+    except OSError:
+        pass
+    return platform.processor() or "unknown"
+
+
+def machine_info() -> dict[str, str]:
+    """What besides code, data, libraries and thread count decides a GNN's last bits: the CPU
+    and the vector instructions torch picked for it (another CPU sums in another order)."""
+    import torch
+
+    return {"cpu": cpu_model(), "architecture": platform.machine(),
+            "cpu_instructions": str(torch.backends.cpu.get_cpu_capability()),
+            "python": platform.python_version()}
+
+
+def machine_differences(old: Mapping[str, str], new: Mapping[str, str]) -> list[str]:
+    """``cpu A -> B`` for each machine property that differs (none if unrecorded)."""
+    return version_differences(old, new)
+
+
 def version_differences(old: Mapping[str, str], new: Mapping[str, str]) -> list[str]:
     """``torch 2.13.0 -> 2.14.0`` for each library whose version moved (none if unrecorded)."""
     if not old:
@@ -100,6 +129,7 @@ class Baseline:
     git_dirty: bool | None = None      # True: uncommitted changes when the baseline was written
     dochar_version: str = __version__
     libraries: dict[str, str] = field(default_factory=dict)
+    machine: dict[str, str] = field(default_factory=dict)
     created: str = ""
 
     @classmethod
@@ -111,13 +141,14 @@ class Baseline:
                    experiment_config=tracking.computed_config(bundle.config),
                    overrides=list(overrides),
                    source=source, git_commit=git_commit, git_dirty=git_dirty,
-                   libraries=library_versions(),
+                   libraries=library_versions(), machine=machine_info(),
                    created=dt.datetime.now(dt.timezone.utc).replace(microsecond=0).isoformat())
 
     def to_dict(self) -> dict[str, Any]:
         return {"format": FORMAT, "name": self.name, "created": self.created,
                 "git_commit": self.git_commit, "git_dirty": self.git_dirty,
                 "dochar_version": self.dochar_version, "libraries": dict(self.libraries),
+                "machine": dict(self.machine),
                 "source": self.source, "data_fingerprint": self.data_fingerprint,
                 "overrides": list(self.overrides),
                 "metrics": {m: s.to_dict() for m, s in self.scores.items()},
@@ -159,6 +190,7 @@ class Baseline:
                    git_dirty=data.get("git_dirty"),
                    dochar_version=str(data.get("dochar_version", "")),
                    libraries={str(k): str(v) for k, v in (data.get("libraries") or {}).items()},
+                   machine={str(k): str(v) for k, v in (data.get("machine") or {}).items()},
                    created=str(data.get("created", "")))
 
 
@@ -189,4 +221,8 @@ def describe_update(old: Baseline | None, new: Baseline) -> list[str]:
     if new.git_dirty:
         lines.append("warning: the working tree has uncommitted changes (git_dirty: true)")
     lines += [f"library {line}" for line in version_differences(old.libraries, new.libraries)]
+    lines += [f"machine {line}" for line in machine_differences(old.machine, new.machine)]
+    if new.machine and not old.machine:
+        lines.append("machine recorded: " + "; ".join(f"{key} {value}" for key, value in
+                                                      sorted(new.machine.items())))
     return lines

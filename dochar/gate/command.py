@@ -45,6 +45,8 @@ from dochar.gate.baseline import (
     config_differences,
     describe_update,
     library_versions,
+    machine_differences,
+    machine_info,
     run_scores,
     version_differences,
 )
@@ -212,6 +214,13 @@ def notes_for(outcome: GateOutcome, baseline: Baseline, bundle: RunBundle) -> li
     if moved:
         notes.append("library versions differ from the baseline's (scores may move by more than "
                      "noise): " + "; ".join(moved))
+    if not baseline.machine:
+        notes.append("the baseline records no machine; `dochar gate --update` adds it")
+    elif other := machine_differences(baseline.machine, machine_info()):
+        notes.append("this machine is not the baseline's (" + "; ".join(other) + "): scores "
+                     "are bit-identical only on the same CPU, libraries and thread count; the "
+                     "tolerances cover the difference measured between thread counts "
+                     "(docs/crash-safety.md)")
     differences = config_differences(baseline.experiment_config, computed_config(bundle.config))
     if differences:
         shown = differences[:_MAX_CONFIG_NOTES]

@@ -5,9 +5,9 @@ The words of the test documents carry the task's decoded word labels (``predicte
 table's labels, entity ids and the links table's ``row`` links
 (:func:`dochar.records.assemble.true_records`). Predicted records use the same rules as
 ``dochar predict``: the task's groups where it has them, runs of words otherwise, rows by the
-layout rule. Scores are logged raw as ``records/<score>`` and on normalised values as
-``records/normalised/<score>``, each with a bootstrap interval over documents
-(``..._low``/``..._high``), and the per-field accuracy as ``records/field/<label>``. On a split
+layout rule or the shape's anchor column (:mod:`dochar.records.rows`). Scores are logged raw as
+``records/<score>`` and on normalised values as ``records/normalised/<score>``, each with a
+bootstrap interval over documents (``..._low``/``..._high``), and the per-field accuracy as ``records/field/<label>``. On a split
 with seen and unseen layouts the raw scores are also given per side,
 ``records/<side>/<score>``, each side resampling its own documents
 (:func:`dochar.metrics.seen_unseen.side_metrics`).

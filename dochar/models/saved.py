@@ -63,6 +63,7 @@ TRUSTED_ESTIMATOR_TYPES: tuple[str, ...] = (
     "sklearn.ensemble._hist_gradient_boosting.predictor.TreePredictor",
 )
 TOP = 3   # labels kept per word in predictions
+BOX_COLUMNS = ("x0", "y0", "x1", "y1")
 LIBRARIES = ("torch", "torch-geometric", "scikit-learn", "numpy", "skops", "dochar")
 
 
@@ -278,17 +279,14 @@ class SavedModel:
         probabilities = self.predict_proba(nodes)
         node_frame = node_predictions(nodes, probabilities, self.labels)
         decoded = task.word_predictions(nodes, node_frame).drop(columns=["label"])
-        frames = []
-        for page in words:
-            frame = pd.DataFrame({
-                "doc_id": page.doc_id, "page": page.page, "word_id": page.word_ids,
-                "text": page.texts, "x0": page.boxes[:, 0], "y0": page.boxes[:, 1],
-                "x1": page.boxes[:, 2], "y1": page.boxes[:, 3]})
-            if page.labels is not None:
-                frame["label"] = page.labels
-            frames.append(frame)
-        found = pd.concat(frames, ignore_index=True).merge(
-            decoded, on=["doc_id", "page", "word_id"], how="left", validate="one_to_one")
+        columns = page_columns(words)
+        found = pd.DataFrame({**{k: columns[k] for k in ("doc_id", "page", "word_id")},
+                              "text": [text for page in words for text in page.texts],
+                              **{k: columns[k] for k in BOX_COLUMNS}})
+        if all(page.labels is not None for page in words):
+            found["label"] = [label for page in words for label in page.labels]
+        found = found.merge(decoded, on=["doc_id", "page", "word_id"], how="left",
+                            validate="one_to_one")
         if task.nodes_are_word_labels:   # the runners-up are word labels too
             runners_up = node_frame.drop(columns=["label", "predicted", "confidence", "x0", "y0",
                                                   "x1", "y1"])
@@ -297,24 +295,31 @@ class SavedModel:
         return found.rename(columns={"confidence": "probability"})
 
 
+def page_columns(pages: Sequence[Page]) -> dict[str, np.ndarray]:
+    """``doc_id``, ``page``, ``word_id`` and the box columns of pages laid end to end, one row
+    per node, built from whole arrays (not a frame per page)."""
+    sizes = [len(page) for page in pages]
+    boxes = np.concatenate([page.boxes for page in pages]).reshape(-1, 4)
+    return {"doc_id": np.repeat(np.array([page.doc_id for page in pages], dtype=object), sizes),
+            "page": np.repeat(np.array([page.page for page in pages], dtype=np.int64), sizes),
+            "word_id": np.concatenate([page.word_ids for page in pages]),
+            **{name: boxes[:, i] for i, name in enumerate(BOX_COLUMNS)}}
+
+
 def node_predictions(pages: Sequence[Page], probabilities: Sequence[np.ndarray],
                      labels: Sequence[str]) -> pd.DataFrame:
     """One row per node with its box: the best class (``predicted``, ``confidence``) and the
     next two."""
-    frames = []
-    for page, proba in zip(pages, probabilities):
-        best = np.argsort(-proba, axis=1, kind="stable")[:, :TOP]
-        frame = pd.DataFrame({"doc_id": page.doc_id, "page": page.page,
-                              "word_id": page.word_ids, "x0": page.boxes[:, 0],
-                              "y0": page.boxes[:, 1], "x1": page.boxes[:, 2],
-                              "y1": page.boxes[:, 3], "label": ""})
-        for rank in range(best.shape[1]):
-            name, chance = (("predicted", "confidence") if rank == 0 else
-                            (f"top{rank + 1}", f"top{rank + 1}_probability"))
-            frame[name] = [labels[i] for i in best[:, rank]]
-            frame[chance] = np.take_along_axis(proba, best[:, rank:rank + 1], axis=1)[:, 0]
-        frames.append(frame)
-    return pd.concat(frames, ignore_index=True)
+    frame = pd.DataFrame({**page_columns(pages), "label": ""})
+    proba = np.concatenate(list(probabilities))
+    best = np.argsort(-proba, axis=1, kind="stable")[:, :TOP]
+    names = np.asarray(labels, dtype=object)
+    for rank in range(best.shape[1]):
+        name, chance = (("predicted", "confidence") if rank == 0 else
+                        (f"top{rank + 1}", f"top{rank + 1}_probability"))
+        frame[name] = names[best[:, rank]].tolist()
+        frame[chance] = np.take_along_axis(proba, best[:, rank:rank + 1], axis=1)[:, 0]
+    return frame
 
 
 def find_unit(path: str | Path) -> Path:

@@ -13,7 +13,7 @@ a list of column -> text.
 from __future__ import annotations
 
 from collections.abc import Iterable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import pandas as pd
 
@@ -64,6 +64,8 @@ def assemble_records(words: pd.DataFrame, shape: RecordShape, *, label_col: str 
     ``group_col`` names the words' groups (the task's entities), else values are runs of
     words; ``row_links`` (``doc_id, page, source, target`` between groups) gives the rows,
     else the shape's ``row_anchor`` does (an item per line holding it), else the layout rule.
+    A ``single_fields`` label found in several pieces keeps the one whose least word
+    probability is highest (the first of equals).
     """
     links = _links_by_document(row_links)
     records = []
@@ -80,6 +82,9 @@ def assemble_records(words: pd.DataFrame, shape: RecordShape, *, label_col: str 
             for value in header:
                 record.fields.setdefault(value.label, []).append(value)
             items.extend(p for p in pieces if p.label in shape.item_columns)
+        for label in shape.single_fields:
+            if len(record.fields.get(label, ())) > 1:
+                record.fields[label] = [max(record.fields[label], key=lambda v: v.probability)]
         if items:
             if row_links is not None:
                 record.items = rows_from_links(items, links.get(str(doc_id), []))
@@ -110,9 +115,10 @@ def row_links_of(links: pd.DataFrame | None) -> pd.DataFrame:
 
 def true_records(words: pd.DataFrame, shape: RecordShape,
                  links: pd.DataFrame | None = None) -> list[Record]:
-    """Records from the truth: true labels, ``entity_id`` groups, rows from ``row`` links."""
-    return assemble_records(words, shape, label_col="label", group_col="entity_id",
-                            row_links=row_links_of(links))
+    """Records from the truth: true labels, ``entity_id`` groups, rows from ``row`` links; a
+    repeated single field stays repeated (the truth is what it is)."""
+    return assemble_records(words, replace(shape, single_fields=()), label_col="label",
+                            group_col="entity_id", row_links=row_links_of(links))
 
 
 def parses(records: Iterable[Record], shape: RecordShape, how: str = RAW) -> dict[str, dict]:

@@ -4,9 +4,12 @@
 number, its dates); ``item_columns`` are the labels of table cells, one column each, that make
 up a line item; ``items_name`` is the key the list of line items goes under. ``date_fields`` and
 ``amount_fields`` name the labels (of either kind) whose values normalisation reads as dates or
-amounts. ``row_anchor`` (optional) is the item column that opens a line item: every line
-holding it starts a new item, and the lines under it join that item until the next one (a
-receipt's item name; :func:`dochar.records.rows.rows_by_anchor`). A label may be in one role only, and every label named must be one of the data's labels:
+amounts. ``single_fields`` are header fields a document has one value of: of several pieces
+predicted, the one whose least word probability is highest is kept. ``row_anchor`` (optional)
+is the item column that opens a line item: every line holding it starts a new item, and the
+lines under it join that item until the next one (a receipt's item name;
+:func:`dochar.records.rows.rows_by_anchor`). A label may be in one role only, and every label
+named must be one of the data's labels:
 :func:`check_shape` says which key names what, before any data loads.
 """
 
@@ -19,7 +22,7 @@ from typing import Any
 from dochar.errors import DocharError, did_you_mean
 
 SHAPE_KEYS: tuple[str, ...] = ("header_fields", "item_columns", "items_name", "date_fields",
-                               "amount_fields", "row_anchor")
+                               "amount_fields", "single_fields", "row_anchor")
 
 
 class RecordShapeError(DocharError):
@@ -35,6 +38,7 @@ class RecordShape:
     items_name: str = "items"
     date_fields: tuple[str, ...] = ()
     amount_fields: tuple[str, ...] = ()
+    single_fields: tuple[str, ...] = ()   # header fields with one value: the likeliest piece
     row_anchor: str = ""             # "": rows by the layout rule
 
     @property
@@ -98,6 +102,10 @@ def check_shape(shape: RecordShape, labels: Sequence[str] | None, *,
             if label not in seen:
                 raise RecordShapeError(f"config key {where}.{key}: label {label!r} is neither "
                                        "a header field nor an item column")
+    for label in shape.single_fields:
+        if seen.get(label) != "header_fields":
+            raise RecordShapeError(f"config key {where}.single_fields: label {label!r} is not "
+                                   f"one of {where}.header_fields")
     if shape.row_anchor and shape.row_anchor not in shape.item_columns:
         raise RecordShapeError(f"config key {where}.row_anchor: label {shape.row_anchor!r} is "
                                f"not one of {where}.item_columns")

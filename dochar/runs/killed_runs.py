@@ -7,7 +7,8 @@ end-run, so the store shows the run RUNNING for ever. Every run dochar creates c
 tags saying when they were found (``killed_found_at``, ISO 8601 UTC) and by which process
 (``killed_found_by``). Runs written on another host are left alone: their writer cannot be asked.
 A pid taken by a process started after the run is not taken for its writer (start time from
-/proc).
+/proc). A run stopped while logging by Ctrl-C or by a pre-emption signal whose handler exits
+(submitit's re-queue) is ended KILLED by its own process, the same tags naming it.
 """
 
 from __future__ import annotations
@@ -42,6 +43,14 @@ def writer_is_dead(written_by: str | None, started: float) -> bool:
     return not writer_alive(int(pid), started)
 
 
+def end_as_killed(client: MlflowClient, run_id: str) -> None:
+    """Status KILLED, with when and by which process that was found."""
+    now = dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds")
+    client.set_tag(run_id, FOUND_AT_TAG, now)
+    client.set_tag(run_id, FOUND_BY_TAG, writer())
+    client.set_terminated(run_id, status="KILLED")
+
+
 def end_killed_runs(client: MlflowClient, experiment: str, tag: str, value: str) -> list[str]:
     """End as KILLED the RUNNING runs of ``experiment`` with ``tags.<tag> = value`` whose writer
     is dead; return their ids. The caller holds the store's write lock."""
@@ -55,10 +64,7 @@ def end_killed_runs(client: MlflowClient, experiment: str, tag: str, value: str)
     for run in runs:
         if not writer_is_dead(run.data.tags.get(WRITTEN_BY_TAG), run.info.start_time / 1000):
             continue
-        now = dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds")
-        client.set_tag(run.info.run_id, FOUND_AT_TAG, now)
-        client.set_tag(run.info.run_id, FOUND_BY_TAG, writer())
-        client.set_terminated(run.info.run_id, status="KILLED")
+        end_as_killed(client, run.info.run_id)
         ended.append(run.info.run_id)
         print(f"ended run {run.info.run_id[:12]} as KILLED: left RUNNING by "
               f"{run.data.tags[WRITTEN_BY_TAG]}, which no longer runs")

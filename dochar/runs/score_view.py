@@ -5,8 +5,8 @@ columns, and a fresh browser shows MLflow's own choice (source, models, dataset)
 the UI does keep on the server is a *saved view* (MLflow 3.x, mlflow/mlflow pull requests 24359
 and 24360): an experiment tag ``mlflow.sharedViewState.<id>`` whose value is the JSON envelope
 ``{"name", "createdAt", "updatedAt", "state"}`` (times in ms), ``state`` being the view itself
-as JSON text: ``selectedColumns`` (keys like ``metrics.`macro_f1```), ``orderByKey`` and
-``orderByAsc``; fields left out keep the UI's defaults. The UI lists saved views in the runs
+as JSON text: ``selectedColumns`` and ``columnOrder`` (keys like ``metrics.`macro_f1```),
+``orderByKey`` and ``orderByAsc``; fields left out keep the UI's defaults. The UI lists saved views in the runs
 tab's views menu and opens one from ``#/experiments/<id>/runs?viewStateShareKey=<id>``.
 
 dochar keeps one such view per experiment (:data:`VIEW_ID`): every logged run adds its headline
@@ -27,7 +27,7 @@ VIEW_TAG_PREFIX = "mlflow.sharedViewState."   # MLflow UI's saved views (experim
 VIEW_ID = "dochar-scores"
 VIEW_NAME = "dochar: headline scores"
 SHARE_KEY = "viewStateShareKey"                # the UI's query parameter naming a saved view
-LEADING_COLUMNS = ("attributes.`Dataset`",)
+OTHER_COLUMNS = ("attributes.`Dataset`",)
 TRAINING_TIME = "cost/train_seconds"
 
 
@@ -45,8 +45,14 @@ def run_columns(headline: str, metrics: Mapping[str, float]) -> list[str]:
 
 
 def view_state(columns: Sequence[str], order_by: str) -> dict[str, Any]:
-    return {"selectedColumns": list(dict.fromkeys([*LEADING_COLUMNS, *columns])),
-            "orderByKey": order_by, "orderByAsc": False}
+    """Scores first in the order they came, then the training time, then the dataset
+    (``columnOrder``: the UI otherwise sorts metric columns by name, after the dataset)."""
+    def place(key: str) -> int:
+        return 2 if key in OTHER_COLUMNS else 1 if key == column(TRAINING_TIME) else 0
+
+    shown = sorted(dict.fromkeys([*columns, *OTHER_COLUMNS]), key=place)   # a stable sort
+    return {"selectedColumns": shown, "columnOrder": shown, "orderByKey": order_by,
+            "orderByAsc": False}
 
 
 def stored_view(client: MlflowClient, experiment_id: str) -> dict[str, Any] | None:
@@ -72,7 +78,8 @@ def add_run_to_view(client: MlflowClient, experiment_id: str, headline: str,
     now = int(time.time() * 1000)
     found = stored_view(client, experiment_id)
     state = found["state"] if found else {}
-    columns = [*state.get("selectedColumns", []), *run_columns(headline, metrics)]
+    columns = [*state.get("columnOrder", []), *state.get("selectedColumns", []),
+               *run_columns(headline, metrics)]
     order_by = state.get("orderByKey") or column(headline)
     state = {**state, **view_state(columns, order_by)}
     envelope = {"name": VIEW_NAME, "createdAt": found["createdAt"] if found else now,

@@ -32,7 +32,7 @@ from filelock import FileLock
 from mlflow.tracking import MlflowClient
 
 from dochar.runs.bundle import RunBundle
-from dochar.runs.killed_runs import SWEEP_HASH_TAG, WRITTEN_BY_TAG, writer
+from dochar.runs.killed_runs import SWEEP_HASH_TAG, WRITTEN_BY_TAG, end_as_killed, writer
 from dochar.runs.score_view import add_run_to_view, stored_view, view_address
 
 # MLflow's and its migration tool's notes on every run ("Updating database tables", SQLite
@@ -315,17 +315,24 @@ def _log(bundle: RunBundle, folder: Path, uri: str, experiment_id: str,
         created = client.create_run(experiment_id, run_name=bundle.name, tags=tags,
                                     start_time=None if started is None else int(started * 1000))
         add_run_to_view(client, experiment_id, bundle.headline, bundle.metrics)
-    with store_writes(uri), mlflow.start_run(run_id=created.info.run_id) as run:
-        mlflow.log_params(params(bundle.config))
-        mlflow.log_metrics({k: v for k, v in {**bundle.metrics, **{f"cost/{k}": v for k, v in
-                                                                  bundle.cost.items()}}.items()})
-        bundle.run_id = run.info.run_id
-        log_dataset(bundle)
-        log_curve(run.info.run_id, bundle.tables.get("training_curve"))
-        bundle.save(folder)
-        mlflow.log_artifacts(str(folder))
-        if (folder / MODEL_DIR).is_dir():
-            log_model(folder / MODEL_DIR)
+    try:
+        with store_writes(uri), mlflow.start_run(run_id=created.info.run_id) as run:
+            mlflow.log_params(params(bundle.config))
+            mlflow.log_metrics({k: v for k, v in {**bundle.metrics, **{
+                f"cost/{k}": v for k, v in bundle.cost.items()}}.items()})
+            bundle.run_id = run.info.run_id
+            log_dataset(bundle)
+            log_curve(run.info.run_id, bundle.tables.get("training_curve"))
+            bundle.save(folder)
+            mlflow.log_artifacts(str(folder))
+            if (folder / MODEL_DIR).is_dir():
+                log_model(folder / MODEL_DIR)
+    except (KeyboardInterrupt, SystemExit):
+        # Ctrl-C, or a pre-emption signal whose handler exits (submitit's re-queue): MLflow
+        # has just ended the run FAILED, which it did not; it was stopped, like a killed run.
+        with store_writes(uri):
+            end_as_killed(MlflowClient(tracking_uri=uri), created.info.run_id)
+        raise
     return bundle.run_id
 
 

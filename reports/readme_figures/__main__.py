@@ -18,7 +18,7 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
-from reports.readme_figures import cheap, gate_spread, tables
+from reports.readme_figures import cheap, gate_spread, record_tables, tables
 from reports.readme_figures.cheap import FigureUnavailable
 from reports.readme_figures.markers import (FigureBlockError, documents, find_blocks,
                                             replace_block, same_figures, wrap_prose)
@@ -40,10 +40,13 @@ FIGURES: dict[str, Figure] = {
     "funsd-blank-links": Figure(cheap.funsd_blank_links, cheap=True),
     "benchmarks": Figure(cheap.benchmarks, cheap=True),
     "gate-tolerances": Figure(gate_spread.gate_tolerances, cheap=False, takes_keep=True),
+    "thread-spread": Figure(gate_spread.thread_spread, cheap=False, takes_keep=True),
     "layout-held-out": Figure(tables.layout_held_out, cheap=False, takes_keep=True),
     "demo": Figure(tables.demo, cheap=False, takes_keep=True),
     "template-curve": Figure(tables.template_curve, cheap=False),
     "full-sweep": Figure(tables.full_sweep, cheap=False, takes_keep=True),
+    "records-demo": Figure(record_tables.records_demo, cheap=False, takes_keep=True),
+    "receipts-records": Figure(record_tables.receipts_records, cheap=False, takes_keep=True),
 }
 CHEAP = [name for name, figure in FIGURES.items() if figure.cheap]
 

@@ -81,3 +81,45 @@ def gate_tolerances(keep: Path | None = None) -> str:
         f"(`tests/gate/test_gate.py` runs it). Measured {dt.date.today().isoformat()} on "
         f"{machine()} with "
         f"`python -m reports.readme_figures --only gate-tolerances`.\n")
+
+
+THREADS = (1, 2)
+SPREAD_SCORES = (("macro_f1", "macro-F1"), ("entity_f1", "entity F1"),
+                 ("accuracy", "word accuracy"))
+
+
+def thread_spread_text(one: dict[str, float], two: dict[str, float],
+                       tolerances: dict[str, float]) -> str:
+    """The table of scores at one and two threads, their difference and the gate's tolerance;
+    the largest per-class difference set against the class tolerance."""
+    lines = ["| score | `train.threads=1` | `train.threads=2` | difference | gate tolerance |",
+             "| --- | --- | --- | --- | --- |"]
+    for key, label in SPREAD_SCORES:
+        if key in one and key in two:
+            tolerance = tolerances.get(key)
+            lines.append(f"| {label} | {one[key]:.5f} | {two[key]:.5f} | "
+                         f"{two[key] - one[key]:+.4f} | "
+                         f"{'-' if tolerance is None else f'{tolerance:g}'} |")
+    classes = {k: abs(two[k] - one[k]) for k in set(one) & set(two) if k.startswith(CLASS_PREFIX)}
+    if classes:
+        worst = max(classes, key=classes.get)
+        lines.append(f"| largest class F1 difference ({worst[len(CLASS_PREFIX):]}) | | | "
+                     f"{classes[worst]:.4f} | {tolerances['class']:g} |")
+    return "\n".join(lines) + "\n"
+
+
+def thread_spread(keep: Path | None = None) -> str:
+    """The gate's reference at one and at two threads, same code, libraries and machine: the
+    order of floating-point sums is all that changes, the stand-in for another machine."""
+    settings = load_settings("reference")
+    runs = {threads: run(with_overrides(settings.overrides, [f"train.threads={threads}"]), keep)
+            for threads in THREADS}
+    rules = settings.tolerances
+    tolerances = {"macro_f1": rules.for_metric("macro_f1"),
+                  "entity_f1": rules.for_metric("entity_f1"), "class": rules.class_f1}
+    one, two = (runs[threads].metrics for threads in THREADS)
+    epochs = ", ".join(f"{runs[t].cost.get('best_epoch', '?'):g} at {t} thread{'s' * (t > 1)}"
+                       for t in THREADS)
+    return (thread_spread_text(one, two, tolerances) +
+            f"\n(best epoch {epochs}.) Measured {dt.date.today().isoformat()} on {machine()} "
+            f"with `python -m reports.readme_figures --only thread-spread`.\n")

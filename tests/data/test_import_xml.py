@@ -153,3 +153,25 @@ def test_malformed_xml_a_non_image_and_a_truncated_image_are_located(tmp_path) -
     assert "not ALTO v2-v4" in reported["other.xml"]
     assert "not an image" in reported["photo.png"]
     assert "unreadable" in reported["half.png"] and "page 1" in reported["half.png"]
+
+
+def test_the_page_image_a_file_names_is_recorded_only_when_it_is_there(tmp_path) -> None:
+    """hOCR's ``image`` and ALTO's ``fileName`` become ``page_image`` (absolute) when the file
+    exists inside the file's folder: the picture a report draws the predictions over. A missing
+    or escaping image is recorded as none (the hOCR specification and ALTO v4 schema cited
+    above)."""
+    Image.new("L", (1000, 800), 255).save(tmp_path / "scan.png")
+    Image.new("L", (640, 480), 255).save(tmp_path / "scan.tif")
+    word = '<String CONTENT="Lot" HPOS="10" VPOS="20" WIDTH="30" HEIGHT="15"/>'
+    table, _ = import_sources([write(tmp_path, "form.hocr", HOCR), write(
+        tmp_path, "cert.xml", alto("http://www.loc.gov/standards/alto/ns-v4#", "pixel", "",
+                                   word))])
+    images = table.groupby(["doc_id", "page"])["page_image"].first()
+    assert sorted(images.tolist()) == sorted(["", str((tmp_path / "scan.png").resolve()),
+                                              str((tmp_path / "scan.tif").resolve())])
+    # the hOCR's second page names no image
+    assert images[images == ""].index.get_level_values("page").tolist() == [2]
+
+    (tmp_path / "scan.png").unlink()
+    table, _ = import_sources([write(tmp_path, "form.hocr", HOCR)])
+    assert set(table["page_image"]) == {""}

@@ -1,11 +1,17 @@
 """The baseline file: written whole (scratch file, then rename), cut short never read as good,
-and stamped with the library versions and commit state the scores depend on."""
+and stamped with the library versions, machine and commit state the scores depend on."""
 
 from __future__ import annotations
 
+import shutil
+import subprocess
+from types import SimpleNamespace
+
 import pytest
 
-from dochar.gate.baseline import Baseline, describe_update, library_versions, version_differences
+from dochar.gate.baseline import (Baseline, describe_update, library_versions, machine_info,
+                                  version_differences)
+from dochar.gate.command import notes_for
 from dochar.gate.rules import GateConfigError, Score
 
 
@@ -13,7 +19,8 @@ def baseline(**extra) -> Baseline:
     scores = {f"f1/class{i}": Score(0.5 + i / 100, 0.4, 0.6, 10.0) for i in range(30)}
     scores["macro_f1"] = Score(0.9, 0.85, 0.95)
     return Baseline(name="t", scores=scores, data_fingerprint="abc", git_commit="0" * 40,
-                    git_dirty=False, libraries=library_versions(), **extra)
+                    git_dirty=False, libraries=library_versions(), machine=machine_info(),
+                    **extra)
 
 
 def test_round_trip_keeps_versions_and_commit_state(tmp_path):
@@ -22,6 +29,7 @@ def test_round_trip_keeps_versions_and_commit_state(tmp_path):
     assert back.scores == baseline().scores
     assert back.git_dirty is False and back.libraries == library_versions()
     assert set(back.libraries) == {"torch", "torch-geometric", "scikit-learn", "numpy"}
+    assert back.machine == machine_info()
     assert [p.name for p in tmp_path.iterdir()] == ["b.yaml"]     # no scratch file left
 
 
@@ -61,3 +69,45 @@ def test_version_changes_are_named():
     lines = describe_update(first, second)
     assert any(line.startswith("library numpy ") and line.endswith("-> 0.0") for line in lines)
     assert any("uncommitted changes" in line for line in lines)
+
+
+def test_the_machine_names_the_cpu_lscpu_names():
+    """lscpu (util-linux) is the independent reader of the CPU's model name."""
+    if shutil.which("lscpu") is None:
+        pytest.skip("no lscpu here")
+    listing = subprocess.run(["lscpu"], capture_output=True, text=True, check=True).stdout
+    named = [line.split(":", 1)[1].strip() for line in listing.splitlines()
+             if line.startswith("Model name:")]
+    assert machine_info()["cpu"] == named[0]
+    assert machine_info()["cpu_instructions"] in {"DEFAULT", "VSX", "Z VECTOR", "NO AVX",
+                                                  "AVX", "AVX2", "AVX512", "SVE256"}
+
+
+def test_a_rerun_on_another_machine_is_told_what_differs():
+    elsewhere = baseline()
+    elsewhere.machine = {**elsewhere.machine, "cpu": "Example CPU 9000"}
+    notes = notes_for(SimpleNamespace(checks=[]), elsewhere, SimpleNamespace(config={}))
+    assert [n for n in notes if n.startswith("this machine is not the baseline's (cpu Example "
+                                             "CPU 9000 -> ")]
+    assert not [n for n in notes_for(SimpleNamespace(checks=[]), baseline(),
+                                     SimpleNamespace(config={})) if "machine" in n]
+    unrecorded = baseline()
+    unrecorded.machine = {}
+    assert "the baseline records no machine; `dochar gate --update` adds it" in notes_for(
+        SimpleNamespace(checks=[]), unrecorded, SimpleNamespace(config={}))
+    assert "machine cpu Example CPU 9000 -> " + machine_info()["cpu"] in describe_update(
+        elsewhere, baseline())
+    assert [line for line in describe_update(unrecorded, elsewhere)
+            if line.startswith("machine recorded: ") and "cpu Example CPU 9000" in line]
+
+
+def test_the_committed_baseline_records_what_judges_a_rerun_elsewhere():
+    """Bit-identical reruns need the same libraries, machine and thread count
+    (docs/crash-safety.md): the committed baseline names all three."""
+    from tests.helpers import REPO
+
+    committed = Baseline.read(REPO / "reports" / "baseline" / "reference.yaml")
+    assert set(committed.libraries) == {"torch", "torch-geometric", "scikit-learn", "numpy"}
+    assert {"cpu", "cpu_instructions", "architecture"} <= set(committed.machine)
+    assert all(committed.machine[key] for key in ("cpu", "cpu_instructions"))
+    assert committed.experiment_config["train.threads"] == 1

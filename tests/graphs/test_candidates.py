@@ -6,9 +6,11 @@ import itertools
 
 import numpy as np
 import pandas as pd
+import pytest
 
 from dochar import graphs
 from dochar.data.word_table import Page
+from dochar.graphs.base import GraphBuilderError
 from dochar.graphs.candidates import CandidateOptions, candidate_pairs, missed_links
 from dochar.graphs.diagnostics import candidate_recall
 from dochar.tasks.links import word_entities
@@ -138,3 +140,47 @@ def test_directed_candidates_hold_both_orientations_of_every_edge():
     assert sorted(map(tuple, directed.T.tolist())) == [(0, 1), (1, 0), (1, 2), (2, 1)]
     undirected = candidate_pairs(page, CandidateOptions("graph"), directed=False, edges=edges)
     assert undirected.T.tolist() == [[0, 1], [1, 2]]
+
+
+# ------------------------------------------------ pair keys, orientations, refusals (by hand)
+
+def test_pair_keys_by_hand():
+    from dochar.graphs.candidates import pair_keys
+
+    # key = source · n + target; undirected pairs put the lower index first: with n = 5 the
+    # pair (2, 1) is 1·5 + 2 = 7 undirected and 2·5 + 1 = 11 directed, (1, 2) is 7 either way
+    pairs = np.array([[2, 1], [1, 2]])
+    assert pair_keys(pairs, 5, directed=False).tolist() == [7, 7]
+    assert pair_keys(pairs, 5, directed=True).tolist() == [11, 7]
+
+
+def test_a_directed_link_is_supplied_only_by_its_own_orientation():
+    from dochar.graphs.candidates import candidate_hits
+
+    link, reversed_link = np.array([[2], [1]]), np.array([[1], [2]])
+    for true, candidates in ((link, reversed_link), (reversed_link, link)):
+        assert candidate_hits(true, candidates, 5, directed=True).tolist() == [False]
+        assert candidate_hits(true, candidates, 5, directed=False).tolist() == [True]
+    assert missed_links(link, reversed_link, 5, directed=True).tolist() == [[2], [1]]
+    assert missed_links(link, reversed_link, 5, directed=False).shape == (2, 0)
+
+
+def test_missed_links_of_split_entities_are_integer_node_pairs():
+    # entity "a" = nodes 0, 1, 2 with only the candidate pair (0, 1): pieces {0, 1} and {2},
+    # one missed link joining their first words, (0, 2)
+    missed = missed_links(np.array([[0, 1], [1, 2]]), np.array([[0], [1]]), 3,
+                          directed=False, entities=np.array(["a", "a", "a"]))
+    assert missed.tolist() == [[0], [2]] and missed.dtype == np.int64
+
+
+def test_candidate_settings_and_sources_are_refused_with_the_reason():
+    with pytest.raises(GraphBuilderError, match=r"^task\.candidates\.source='nearby': choose "
+                                                r"one of \['graph', 'distance'\]$"):
+        CandidateOptions(source="nearby")
+    with pytest.raises(GraphBuilderError, match=r"^task\.candidates\.max_distance must be >= 0, "
+                                                r"got -0\.5$"):
+        CandidateOptions(source="distance", max_distance=-0.5)
+    page = _page([[0, 0, 10, 10], [20, 0, 30, 10]], ["a", "b"])
+    with pytest.raises(GraphBuilderError, match=r"^graph candidates need the page's edges or a "
+                                                r"builder$"):
+        candidate_pairs(page, CandidateOptions(), directed=False)

@@ -407,6 +407,9 @@ def test_paired_comparison_refusals_name_the_problem():
         paired_comparison(more, frame, ColumnMean("correct"))
     named = [f"doc{d:03d}" for d in range(12, 22)]
     assert f"only in system A (11): {named}; only in system B (0): []" in str(refused.value)
+    with pytest.raises(MetricInputError) as refused:
+        paired_comparison(frame, more, ColumnMean("correct"))
+    assert f"only in system A (0): []; only in system B (11): {named}" in str(refused.value)
 
 
 class _OtherIds(ColumnMean):
@@ -442,3 +445,16 @@ def test_each_drawn_copy_is_its_own_group_and_its_own_document():
     result = paired_comparison(bare, bare, ColumnMean("correct"), group_col="lab",
                                n_resamples=50)
     assert result.n_documents == 3 and result.p_value == pytest.approx(1.0)
+
+
+def _fresh_index(frame: pd.DataFrame) -> float:
+    """1 when the frame has the plain 0..n-1 index of a frame read from a file, else 0."""
+    return float(frame.index.equals(pd.RangeIndex(len(frame))))
+
+
+def test_a_resample_reaches_a_plain_score_with_a_fresh_index():
+    # glued copies of documents would repeat row labels; a score function may rely on the
+    # labels being unique (loc, join, reindex), so every resample gets a fresh index
+    frame = _predictions(4, seed=8)
+    assert _fresh_index(frame) == 1.0
+    assert bootstrap_scores(frame, _fresh_index, n_resamples=10).tolist() == [1.0] * 10

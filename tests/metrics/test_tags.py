@@ -240,11 +240,11 @@ def test_labels_without_chunks_get_zero_counts_in_the_per_label_table():
 
 
 def test_other_truth_and_prediction_columns_are_read_when_named():
-    # the default columns hold a perfect page; the named ones the hand-made page of the first
+    # the default columns hold no chunk at all; the named ones the hand-made page of the first
     # test (P = 3/5, R = 3/4, F1 = 2/3): only the named ones may count
     true = ["B-key", "I-key", "B-value", "O", "B-key", "B-value", "I-value"]
     pred = ["B-key", "I-key", "B-value", "B-value", "I-key", "B-value", "O"]
-    frame = frame_of([true], [true], width=4)
+    frame = frame_of([["O"] * 7], [["O"] * 7], width=4)
     frame["gold"] = frame_of([true], [pred], width=4)["label"]
     frame["guess"] = frame_of([true], [pred], width=4)["predicted"]
     scores = tag_entity_scores(frame, tag_classes(LABELS, ["other"], "bio"), "bio",

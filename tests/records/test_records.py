@@ -164,3 +164,24 @@ def test_an_anchor_column_opens_each_line_item():
         RecordShape.from_mapping({"header_fields": ["total"], "item_columns": ["nm"],
                                   "row_anchor": "total"})
     assert RecordShape.from_mapping({"item_columns": ["nm"], "row_anchor": "nm"}).row_anchor == "nm"
+
+
+def test_a_single_field_keeps_its_likeliest_piece_and_the_truth_keeps_every_piece():
+    # two pieces labelled cert_no on two lines, least word probabilities 0.6 and 0.8 (worked by
+    # hand): the prediction keeps "C-17" (0.8); the truth, whatever the shape, keeps both
+    words = _words([
+        ("No.", 40, 40, 60, 49, "key", "k1"), ("C-17", 100, 40, 120, 49, "cert_no", "v1"),
+        ("Lot", 40, 80, 60, 89, "key", "k2"), ("L", 100, 80, 110, 89, "cert_no", "v2"),
+        ("9", 112, 80, 118, 89, "cert_no", "v2"),
+    ]).assign(probability=[0.9, 0.8, 0.9, 0.6, 0.95])
+    single = replace(SHAPE, single_fields=("cert_no",))
+    (record,) = assemble_records(words, single, label_col="label")
+    assert record.parse(single) == {"cert_no": "C-17"}
+    (plain,) = assemble_records(words, SHAPE, label_col="label")
+    assert plain.parse(SHAPE) == {"cert_no": ["C-17", "L 9"]}
+    (truth,) = true_records(words, single)
+    assert truth.parse(single) == {"cert_no": ["C-17", "L 9"]}
+    with pytest.raises(RecordShapeError, match="single_fields: label 'analyte' is not one of "
+                                               "data.record.header_fields"):
+        RecordShape.from_mapping({"header_fields": ["cert_no"], "item_columns": ["analyte"],
+                                  "single_fields": ["analyte"]})

@@ -88,6 +88,7 @@ def test_demo_report_fits_the_page_in_chromium(width, demo_report):
             page.goto(demo_report.as_uri(), wait_until="load")
             document, viewport, tables = _widths(page)
             edges = page.locator(".overlay svg path.edge").count()
+            pictures = page.locator(".overlay svg image").count()
             screenshot = REPO / "test-artifacts" / f"demo-report-{width}.png"
             screenshot.parent.mkdir(parents=True, exist_ok=True)
             page.screenshot(path=str(screenshot), full_page=True)
@@ -98,6 +99,7 @@ def test_demo_report_fits_the_page_in_chromium(width, demo_report):
     assert document <= viewport
     assert tables and [t for t in tables if t[1] > t[2]] == []
     assert edges > 0
+    assert pictures == 3   # every drawn page over its picture (the report's default 3 pages)
 
 
 @pytest.fixture(scope="module")

@@ -255,3 +255,113 @@ def wait_for(condition, seconds: float = 900) -> None:
     while not condition():
         assert time.monotonic() < deadline, "timed out"
         time.sleep(0.5)
+
+
+@pytest.fixture
+def small_disk(tmp_path) -> Path:
+    """A real 1 MiB file system (tmpfs, mount(8)): writes past it fail with ENOSPC, as on a full
+    disk. Mounting needs the right to (root in a container here); without it the test skips and
+    the RLIMIT_FSIZE tests above stand in."""
+    disk = tmp_path / "disk"
+    disk.mkdir()
+    mounted = subprocess.run(["mount", "-t", "tmpfs", "-o", "size=1m", "tmpfs", str(disk)],
+                             capture_output=True, text=True)
+    if mounted.returncode != 0:
+        pytest.skip(f"cannot mount a tmpfs here: {mounted.stderr.strip()}")
+    yield disk
+    subprocess.run(["umount", "--lazy", str(disk)], check=True)
+
+
+def remount(disk: Path, options: str) -> None:
+    subprocess.run(["mount", "-o", f"remount,{options}", str(disk)], check=True)
+
+
+def test_a_full_disk_fails_located_and_the_same_write_succeeds_once_space_is_freed(small_disk):
+    target = small_disk / "out" / "words.csv"
+    text = "certificate of analysis\n" * 100_000        # 2.4 MB: more than the disk holds
+    with pytest.raises(OutputWriteError, match=f"cannot write {target}: the disk is full"):
+        write_text_atomic(target, text)
+    assert list(target.parent.iterdir()) == []          # nothing half-written
+    remount(small_disk, "size=8m")                      # space freed
+    write_text_atomic(target, text)
+    assert target.read_text() == text
+
+
+def test_a_read_only_output_folder_is_named_with_its_reason(small_disk):
+    """A read-only file system refuses even root, for whom permission bits are no obstacle."""
+    remount(small_disk, "ro")
+    with pytest.raises(OutputWriteError, match=f"cannot write {small_disk / 'report.html'}: "
+                                               "the file system is read-only"):
+        write_text_atomic(small_disk / "report.html", "<html></html>")
+
+
+@pytest.mark.slow
+def test_a_run_onto_a_full_disk_exits_2_and_runs_whole_once_space_is_freed(tmp_path, small_disk):
+    """The run folder on the full disk, the store beside it: one located line, no partial, no
+    run left RUNNING or FINISHED; the same command after the disk grew writes the run whole."""
+    command = ["run", "model=random_forest", "data.documents=16", "features=geometry_text",
+               "train.progress=false", "evaluation.bootstrap_resamples=50",
+               "tracking.experiment=disk", f"hydra.run.dir={small_disk / 'run'}"]
+    env = {**os.environ, "PYTHONPATH": str(REPO), "OMP_NUM_THREADS": "1"}
+
+    def dochar() -> subprocess.CompletedProcess:
+        return subprocess.run([sys.executable, "-m", "dochar.cli", *command], cwd=tmp_path,
+                              env=env, capture_output=True, text=True, timeout=900)
+
+    full = dochar()
+    assert full.returncode == 2 and "Traceback" not in full.stderr, full.stderr[-3000:]
+    assert "the disk is full" in full.stderr, full.stderr[-3000:]
+    assert not list(small_disk.rglob("*.partial"))
+    assert not (small_disk / "run" / "run" / "summary.json").exists()
+    store = f"sqlite:///{tmp_path / 'mlflow.db'}"
+    if (tmp_path / "mlflow.db").exists():
+        experiment = mlflow.MlflowClient(tracking_uri=store).get_experiment_by_name("disk")
+        assert experiment is None or not mlflow.MlflowClient(tracking_uri=store).search_runs(
+            [experiment.experiment_id])
+    remount(small_disk, "size=64m")
+    freed = dochar()
+    assert freed.returncode == 0, freed.stderr[-3000:]
+    assert set(runs_frame(store, "disk")["status"]) == {"FINISHED"}
+    manifest = json.loads((small_disk / "run" / "run" / "model" / "manifest.json").read_text())
+    assert manifest["files"] and (small_disk / "run" / "run" / "summary.json").exists()
+    assert not list(small_disk.rglob("*.partial"))
+
+
+@pytest.mark.parametrize("stop", [SystemExit(144), KeyboardInterrupt()])
+def test_a_run_stopped_while_logging_ends_killed_not_failed(tmp_path, monkeypatch, stop):
+    """SystemExit(144): what submitit's re-queue handler raises in the frame it interrupts
+    (its local executor's requeue code); KeyboardInterrupt: Ctrl-C. Before the fix MLflow's
+    run context ended the run FAILED, as if the run itself had failed."""
+    from tests.runs.test_tracking import tiny_bundle
+    from dochar.runs.tracking import log_run
+
+    def stopped(*args, **kwargs):
+        raise stop
+
+    monkeypatch.setattr(mlflow, "log_artifacts", stopped)
+    uri = f"sqlite:///{tmp_path / 'mlflow.db'}"
+    with pytest.raises(type(stop)):
+        log_run(tiny_bundle({"seed": 0}, "dochar run"), tmp_path / "run", uri=uri,
+                experiment="stopped")
+    (run,) = mlflow.MlflowClient(tracking_uri=uri).search_runs(
+        [mlflow.MlflowClient(tracking_uri=uri).get_experiment_by_name("stopped").experiment_id])
+    assert run.info.status == "KILLED"
+    assert run.data.tags[FOUND_BY_TAG] == writer()
+    assert pd.Timestamp(run.data.tags[FOUND_AT_TAG]).tzname() == "UTC"
+
+
+def test_a_job_lost_under_submitit_is_told_in_one_line():
+    """submitit raises UncompletedJobError for a job that left no result (its process killed);
+    before the fix it reached the user as a traceback through Hydra and submitit."""
+    from submitit.core.utils import FailedJobError, UncompletedJobError
+
+    from dochar.runs.sweep import lost_job_message
+
+    lost = UncompletedJobError("Job 6594 (task: 0) with path /s/6594_0_result.pkl\n"
+                               "has not produced any output (state: FINISHED)")
+    message = lost_job_message(lost)
+    assert message is not None and "\n" not in message
+    assert "Job 6594 (task: 0) with path /s/6594_0_result.pkl" in message
+    assert "Run the same command again" in message
+    assert lost_job_message(FailedJobError("x")) is not None
+    assert lost_job_message(RuntimeError("Job 1 has not produced any output")) is None

@@ -19,6 +19,11 @@ crash-safety note, docs/crash-safety.md, promises):
 
 The default suite kills at two instants (inside a checkpoint write; inside MLflow's artifact
 logging, which leaves a RUNNING run); the slow suite at every instant of KILL_POINTS.
+
+The same sweep on Hydra's submitit_local launcher (one process per job, as on SLURM): a job
+pre-empted (SIGUSR2, which submitit turns into a re-queue of the job) at one instant in the
+default suite and at five in the slow one; a job killed outright (SIGKILL) and the sweep queued
+again at once, in the slow suite.
 """
 
 from __future__ import annotations
@@ -112,6 +117,7 @@ def whole_model(folder: Path) -> None:
 def check_invariants(cwd: Path, expected: dict[int, dict], point: str) -> None:
     frame = runs_frame(f"sqlite:///{cwd / 'mlflow.db'}", "kill")
     assert not (frame["status"] == "RUNNING").any(), f"{point}: a run left RUNNING"     # 2
+    assert not (frame["status"] == "FAILED").any(), f"{point}: a stopped run shown FAILED"
     killed = frame[frame["status"] == "KILLED"]
     for tag in ("tags.killed_found_at", "tags.killed_found_by"):
         assert killed.empty or (tag in killed and killed[tag].notna().all()), point

@@ -119,17 +119,23 @@ def test_the_printed_address_lists_the_sweep_in_the_mlflow_ui(swept):
         with sync_playwright() as p:
             browser = p.chromium.launch(executable_path=str(chromium), args=LAUNCH_ARGS)
             try:
-                page = browser.new_page(viewport={"width": 1400, "height": 900})
+                page = browser.new_page(viewport={"width": 1920, "height": 900})
                 page.goto(address, wait_until="load")   # the UI keeps polling: never idle
                 page.wait_for_selector("text=matching runs", timeout=90_000)
                 # the heading renders after the runs table on a loaded machine: wait for it
                 page.locator("h2, h1", has_text="Training runs").first.wait_for(timeout=60_000)
                 title = page.locator("h2, h1").all_inner_texts()
-                # the view's score columns are shown without the user choosing them
-                score_headers = page.locator('[col-id="metrics.`macro_f1`"]').count()
-                # the sweep is one parent row; its expander shows the runs it launched
-                page.locator('[col-id="attributes.`Run Name`"] button').first.click()
+                # the saved view is applied: its name in the views menu, its score columns
+                # shown without the user choosing them, rows ranked by the headline score
+                page.wait_for_selector("text=dochar: headline scores", timeout=30_000)
                 page.wait_for_selector(f"text={SYSTEMS[0]}/", timeout=30_000)
+                score_headers = page.locator('[col-id="metrics.`macro_f1`"]').count()
+                # scores come before the dataset column, not after it as MLflow's own default
+                lefts = [page.locator(f'[role=columnheader][col-id="{key}"]').first
+                         .bounding_box()["x"] for key in ("metrics.`macro_f1`",
+                                                          "attributes.`Dataset`")]
+                names = page.locator('[role=row] [col-id="attributes.`Run Name`"]'
+                                     ).all_inner_texts()
                 rows = " ".join(page.locator("[role=row]").all_inner_texts())
                 shot = REPO / "test-artifacts" / "mlflow-runs.png"
                 shot.parent.mkdir(parents=True, exist_ok=True)
@@ -140,7 +146,17 @@ def test_the_printed_address_lists_the_sweep_in_the_mlflow_ui(swept):
         server.terminate()
         server.wait(timeout=30)
     assert any("Training runs" in t for t in title)
-    assert score_headers > 0
+    assert score_headers > 0 and lefts[0] < lefts[1]
     assert all(f"{system}/" in rows for system in SYSTEMS)
+    # best first, as the store's own scores rank them; the sweep's row (no score) last
+    ranked = sorted((r for r in client.search_runs([experiment_id])
+                     if r.data.tags.get("kind") != "sweep"),
+                    key=lambda r: -r.data.metrics["macro_f1"])
+    # a name cell reads "<colour>\n<run name>" (the run's colour picker comes first)
+    shown = [n.strip().splitlines()[-1] for n in names if n.strip()]
+    shown = [n for n in shown if n != "Run Name"]
+    assert [n.split("/")[0] for n in shown[:len(SYSTEMS)]] == [r.data.tags["model"]
+                                                              for r in ranked]
+    assert shown[-1].startswith("sweep ")
     fingerprint = client.search_runs([experiment_id])[0].data.tags.get("data_fingerprint")
     assert "sweep " in rows and (fingerprint is None or fingerprint in rows)

@@ -75,6 +75,19 @@ def test_parallel_jobs_on_sqlite_lose_no_run_and_report_the_failure(parallel_sql
     assert "database is locked" not in first.stderr
 
 
+def test_the_failed_job_s_run_starts_when_the_job_did(parallel_sqlite):
+    """Its MLflow start is the job's start, before the failure was written to the job folder
+    (failure.json), not the moment the failure was logged afterwards."""
+    import mlflow
+
+    cwd, _, frame, _ = parallel_sqlite
+    (run_id,) = frame.loc[frame["tags.kind"] == "failed_job", "run_id"]
+    run = mlflow.MlflowClient(tracking_uri=f"sqlite:///{cwd / 'mlflow.db'}").get_run(run_id)
+    first_sweep = sorted((cwd / "outputs" / "sweeps").iterdir())[0]
+    (failure,) = first_sweep.glob("*/failure.json")
+    assert run.info.start_time / 1000 <= failure.stat().st_mtime <= run.info.end_time / 1000
+
+
 def test_a_second_run_of_the_sweep_skips_finished_jobs_and_says_so(parallel_sqlite):
     cwd, _, frame_before, second = parallel_sqlite
     assert second.stdout.count("already finished as run") == 3

@@ -268,3 +268,25 @@ def test_fixed_split_refusals_name_the_documents_and_values():
         make_splits(_listed(["train", "train", "val"]), "fixed", seed=0)
     (split,) = make_splits(_listed(["train", "val", "test"]), "fixed", seed=0)
     assert split.protocol == "fixed"
+
+
+def test_a_fold_whose_training_pool_has_one_layout_cannot_give_validation():
+    # 3 layouts of 2 documents in 2 folds: GroupKFold puts 2 layouts in one test fold, so that
+    # fold trains on 1 layout, and validation by layout needs 2
+    docs = pd.DataFrame({"doc_id": [f"coa-{i}" for i in range(6)],
+                         "layout_id": [f"L{i // 2}" for i in range(6)]})
+    with pytest.raises(SplitError, match=r"^cannot carve a validation set by layout from the "
+                                         r"training pool of fold \d with 1 layout\(s\); need at "
+                                         r"least 2 \(use more layouts, fewer folds, or "
+                                         r"val_size=0\)$"):
+        make_splits(docs, "layout_kfold", seed=0, n_folds=2, val_size=0.15)
+
+
+def test_layout_protocols_name_the_documents_without_a_layout():
+    docs = pd.DataFrame({"doc_id": [f"coa-{i}" for i in range(9)],
+                         "layout_id": ["L0", "", "", "L1", "", "", "", "L2", ""]})
+    with pytest.raises(SplitError, match=r"^protocol 'layout_held_out' needs a layout_id for "
+                                         r"every document; 6 of 9 have none \(e\.g\. \['coa-1', "
+                                         r"'coa-2', 'coa-4', 'coa-5', 'coa-6'\]\)\. Fill the "
+                                         r"column with inferred layout families"):
+        make_splits(docs, "layout_held_out", seed=0)

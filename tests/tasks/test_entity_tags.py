@@ -114,3 +114,57 @@ def test_word_predictions_give_every_word_of_a_decoded_chunk_its_label():
     words = EntityTags("bio").word_predictions([], frame).set_index("word_id").sort_index()
     assert words["predicted"].tolist() == ["key", "key", "other", "value", "value", "key"]
     assert words["label"].tolist() == ["key", "key", "value", "value", "value", "other"]
+
+
+def test_word_predictions_whole_table_by_hand():
+    # two pages given in the order coa-9 then coa-1 (kept); on coa-9 the words 1 and 0 share
+    # one box, so the smaller word id (0) is read first; coa-1 has one word, outside.
+    # coa-9 in reading order: word 0 B-total_mass, word 1 I-total_mass, word 2 O:
+    # one chunk starting at reading position 0, "chunk0"; word 2 gets the fallback label
+    import pandas as pd
+
+    box = {"x0": 0.0, "y0": 0.0, "x1": 20.0, "y1": 10.0}
+    frame = pd.DataFrame([
+        {"doc_id": "coa-9", "page": 2, "word_id": 1, **box, "label": "I-total_mass",
+         "predicted": "I-total_mass", "confidence": 0.8},
+        {"doc_id": "coa-9", "page": 2, "word_id": 2, "x0": 40.0, "y0": 0.0, "x1": 60.0,
+         "y1": 10.0, "label": "O", "predicted": "O", "confidence": 0.7},
+        {"doc_id": "coa-9", "page": 2, "word_id": 0, **box, "label": "B-total_mass",
+         "predicted": "B-total_mass", "confidence": 0.9},
+        {"doc_id": "coa-1", "page": 1, "word_id": 0, **box, "label": "O", "predicted": "O",
+         "confidence": 0.6}])
+    words = EntityTags("bio").word_predictions([], frame)
+    assert list(words.columns) == ["doc_id", "page", "word_id", "label", "predicted", "entity",
+                                   "confidence"]
+    assert words.index.equals(pd.RangeIndex(4))
+    assert words.drop(columns="confidence").values.tolist() == [
+        ["coa-9", 2, 1, "total_mass", "total_mass", "chunk0"],
+        ["coa-9", 2, 2, "other", "other", ""],
+        ["coa-9", 2, 0, "total_mass", "total_mass", "chunk0"],
+        ["coa-1", 1, 0, "other", "other", ""]]
+    assert words["confidence"].tolist() == [0.8, 0.7, 0.9, 0.6]
+    # with no outside label the words outside chunks get O
+    bare = EntityTags("bio", outside=()).word_predictions([], frame.drop(columns="confidence"))
+    assert bare["predicted"].tolist() == ["total_mass", "O", "total_mass", "O"]
+    assert "confidence" not in bare.columns
+
+
+def test_page_tags_without_entity_ids_tie_breaks_and_hyphenated_labels():
+    from dochar.tasks.entity_tags import split_tag
+
+    # no entity ids: every word stands alone, so two adjacent key words are two chunks; words
+    # 1 and 0 share a box and are read in word-id order (0 first)
+    boxes = np.array([[0, 0, 20, 10], [0, 0, 20, 10], [30, 0, 50, 10]], float)
+    page = Page("coa-4", 1, np.array([1, 0, 2]), ["No.", "Lot", "7"], boxes, 100.0, 100.0,
+                labels=["lot-key", "other", "lot-key"])
+    assert EntityTags("bio").tags(page) == ["B-lot-key", "O", "B-lot-key"]
+    assert EntityTags("bioes").tags(page) == ["S-lot-key", "O", "S-lot-key"]
+    tied = Page("coa-5", 1, np.array([1, 0]), ["mg", "12"], boxes[:2], 100.0, 100.0,
+                labels=["unit", "unit"], entity_ids=["u", "u"])
+    assert EntityTags("bioes").tags(tied) == ["E-unit", "B-unit"]   # word 0 read first
+    assert split_tag("B-lot-key") == ("B", "lot-key") and split_tag("O") == ("O", None)
+    with pytest.raises(TaskError, match=r"^page coa-4#p1: task 'entity_tags' needs"):
+        EntityTags("bio").tags(Page("coa-4", 1, np.array([0]), ["x"], boxes[:1], 100.0, 100.0))
+    # the outside labels are kept as a tuple, so the task stays hashable (a frozen dataclass)
+    assert EntityTags("bio", outside=["other"]).outside == ("other",)
+    assert hash(EntityTags("bio", outside=["other"])) == hash(EntityTags("bio"))

@@ -116,5 +116,15 @@ def read_alto(path: Path, doc_id: str, summary: ImportSummary) -> list[dict]:
             confidence = _number(string, "WC")
             page.add(string.get("CONTENT", ""), hpos, vpos, hpos + w, vpos + h,
                      confidence=confidence, element=element_name(string))
-        rows += page.rows
+        # the file names one image: the picture of its page when it has only one
+        image = _existing_image(path, root, ns) if len(pages) == 1 else ""
+        rows += [{**row, "page_image": image} for row in page.rows]
     return rows
+
+
+def _existing_image(path: Path, root, ns: str) -> str:
+    """The ``sourceImageInformation/fileName`` (absolute path) when it names a file inside the
+    ALTO file's folder, else ""."""
+    name = root.findtext(f"{{{ns}}}Description/{{{ns}}}sourceImageInformation/{{{ns}}}fileName")
+    image = inside_folder(path.parent, name.strip()) if name and name.strip() else None
+    return str(image.resolve()) if image is not None and image.is_file() else ""

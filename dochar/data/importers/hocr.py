@@ -108,5 +108,14 @@ def read_hocr(path: Path, doc_id: str, summary: ImportSummary) -> list[dict]:
                                           "confidence left empty", page_no, element_name(word))
             page.add("".join(word.itertext()), *box, confidence=confidence,
                      element=element_name(word))
-        rows += page.rows
+        image = _existing_image(path, page_el)
+        rows += [{**row, "page_image": image} for row in page.rows]
     return rows
+
+
+def _existing_image(path: Path, page_el) -> str:
+    """The page's ``image`` (absolute path) when it names a file inside the hOCR file's folder,
+    else "": the page picture a report draws the predictions over."""
+    name = title_properties(page_el.get("title", "")).get("image")
+    image = inside_folder(path.parent, name) if name else None
+    return str(image.resolve()) if image is not None and image.is_file() else ""
