@@ -84,9 +84,9 @@ class CharCNNEncoder(nn.Module):
 
 
 class _MaxOverRows(torch.autograd.Function):
-    """out[i, c] = max_t table[rows[t, i], c]. The gradient goes to the first row that attains
-    the max, once, as the max's own rule does; the forward never builds the (t, i, c) indices
-    (the gradient finds them), so prediction pays for the values alone."""
+    """out[i, c] = max_t table[rows[t, i], c]. The gradient goes once to the row at the first
+    position that attains the max (a max of one value read twice has slope 1, not 2); the
+    forward keeps no argmax (the backward finds it), so prediction pays for the values alone."""
 
     @staticmethod
     def forward(ctx, table: torch.Tensor, rows: torch.Tensor) -> torch.Tensor:
