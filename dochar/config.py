@@ -229,6 +229,8 @@ class SplitSchema:
 class TrainSchema:
     learning_rate: float = 0.003
     weight_decay: float = 0.0001
+    schedule: str = "constant"
+    warmup_epochs: int = 0
     max_epochs: int = 120
     patience: int = 20
     pages_per_batch: int = 8

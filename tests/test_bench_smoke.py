@@ -15,7 +15,7 @@ def test_smoke_bench_writes_every_figure(tmp_path):
     assert main(["--smoke", "--out", str(out)]) == 0
     rows = [line for line in out.read_text(encoding="utf-8").splitlines()
             if line.startswith("| ") and not line.startswith("| figure")]
-    assert len(rows) == 28
+    assert len(rows) == 29
     ted = [r for r in rows if r.startswith("| record TED")]
     assert len(ted) == 1   # computed only when the distance equals zss's (the bench raises otherwise)
     identical = [r for r in rows if "edges identical" in r]
@@ -24,5 +24,8 @@ def test_smoke_bench_writes_every_figure(tmp_path):
     assert len(same) == 1 and same[0].endswith("| met |")
     capped = [r for r in rows if "max_neighbours" in r and "edges against knn" in r]
     assert len(capped) == 1 and capped[0].endswith("| met |")   # the cap bounds the edges
-    timed = [r for r in rows if ("≤" in r or "≥" in r) and r not in identical + same + capped]
+    bitwise = [r for r in rows if "bit-identical" in r]
+    assert len(bitwise) == 1 and bitwise[0].endswith("| met |")   # two threads, same weights
+    timed = [r for r in rows if ("≤" in r or "≥" in r)
+             and r not in identical + same + capped + bitwise]
     assert timed and all(r.endswith("| not judged (smoke) |") for r in timed)

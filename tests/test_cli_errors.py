@@ -192,6 +192,8 @@ NO_DATA = ("data=word_table", "data.path=no/such/words.csv", "data.labels=[analy
     (["train.class_weighting=inverse"], "config key train.class_weighting='inverse'"),
     (["train.pages_per_batch=0"], "config key train.pages_per_batch=0"),
     (["train.learning_rate=0"], "config key train.learning_rate=0"),
+    (["train.schedule=linear"], "config key train.schedule='linear'"),
+    (["train.schedule=cosine", "train.warmup_epochs=120"], "config key train.warmup_epochs=120"),
     (["data.record.item_columns=[analyte,lot]"],
      "config key data.record.item_columns: label 'lot' is not one of data.labels"),
 ])

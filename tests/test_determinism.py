@@ -31,6 +31,10 @@ COMMON = ["data.documents=24", "split=random", "train.max_epochs=3", "train.pati
 SYSTEMS = {
     "relational": ["model=relational", "features=geometry_text"],
     "attention_char_cnn": ["model=attention", "features=all"],
+    # two threads: torch splits products and element-wise steps between them; the sums must
+    # still come out the same on every rerun with the same thread count
+    "relational_char_cnn_two_threads": ["model=relational", "features=all", "train.threads=2",
+                                        "train.schedule=cosine", "train.warmup_epochs=1"],
     "random_forest": ["model=random_forest", "features=geometry_text",
                       "model.options.n_estimators=30"],
 }

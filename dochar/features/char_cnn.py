@@ -9,8 +9,13 @@ For a word with character ids c_1..c_m (m real characters, then padding) and eac
 
 Windows start only on real characters and may run into the zero padding, so the output does not
 depend on how much padding follows the word. A word with no characters pools to zeros.
-Pages repeat their words ("Date", ":", "mg/kg"), so each distinct id row is encoded once and
-scattered back: the same output and gradients for less work.
+
+Computed by distinct windows: ``h_t^k`` depends only on the window (c_t..c_{t+k-1}), so each
+distinct window of a batch is convolved once, by one product with every kernel laid side by side
+(zero taps past a kernel's width); each word takes the max over its windows (a padding position
+reads a row of zeros) and the ReLU after it (ReLU is monotone: max_t ReLU(a_t) = ReLU(max_t a_t)).
+Pages repeat their words and words their windows ("Date", ":", "mg/kg", "0000"): the same output
+and gradients for a fraction of the work of a convolution over every padded position.
 """
 
 from __future__ import annotations
@@ -60,27 +65,68 @@ class CharCNNEncoder(nn.Module):
         if ids.numel() and (int(ids.min()) < 0 or int(ids.max()) >= self.vocab_size):
             raise ValueError(f"CharCNNEncoder: ids must lie in [0, {self.vocab_size}), "
                              f"got range [{int(ids.min())}, {int(ids.max())}]")
-        distinct, rows = _distinct_rows(ids)
-        pooled = self._pool(distinct).index_select(0, rows)   # dropout stays per occurrence
+        distinct, rows = _distinct_rows(ids.numpy())
+        pooled = self._pool(torch.from_numpy(distinct)).index_select(
+            0, torch.from_numpy(rows))                          # dropout stays per occurrence
         return self.project(self.dropout(pooled))
 
     def _pool(self, ids: torch.Tensor) -> torch.Tensor:
-        mask = (ids != PAD_ID).unsqueeze(1)                 # (n, 1, L): real start positions
-        embedded = self.embedding(ids).transpose(1, 2)      # (n, D, L)
-        pooled = []
-        for kernel, conv in zip(self.kernel_sizes, self.convs):
-            # right-pad by k-1 zeros so a window exists at every start position 0..L-1
-            activations = F.relu(conv(F.pad(embedded, (0, kernel - 1))))   # (n, C, L)
-            # after ReLU every value is >= 0, so zeroing masked positions leaves the max over
-            # real positions unchanged and gives 0 for a word with no characters
-            pooled.append((activations * mask).amax(dim=2))
-        return torch.cat(pooled, dim=1)
+        """(n, L) ids -> (n, kernels x channels) max-pooled ReLU activations."""
+        width = max(self.kernel_sizes)
+        windows, rows = _distinct_windows(ids, width)
+        taps = torch.cat([F.pad(conv.weight, (0, width - conv.weight.shape[2]))
+                          for conv in self.convs])                      # (K*C, D, width)
+        taps = taps.transpose(1, 2).reshape(taps.shape[0], -1)          # (K*C, width*D)
+        bias = torch.cat([conv.bias for conv in self.convs])
+        activations = torch.addmm(bias, self.embedding(windows).flatten(1), taps.t())
+        table = torch.cat([activations, activations.new_zeros(1, activations.shape[1])])
+        return torch.relu(_MaxOverRows.apply(table, rows))
 
 
-def _distinct_rows(ids: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor]:
-    """The distinct rows of ``ids`` and each row's index among them. NumPy compares a row as one
+class _MaxOverRows(torch.autograd.Function):
+    """out[i, c] = max_t table[rows[t, i], c]. The gradient goes once to the row at the first
+    position that attains the max (a max of one value read twice has slope 1, not 2); the
+    forward keeps no argmax (the backward finds it), so prediction pays for the values alone."""
+
+    @staticmethod
+    def forward(ctx, table: torch.Tensor, rows: torch.Tensor) -> torch.Tensor:
+        gathered = table.index_select(0, rows.flatten()).view(*rows.shape, table.shape[1])
+        values = gathered.amax(dim=0)
+        ctx.save_for_backward(gathered, values, rows)
+        ctx.table_rows = table.shape[0]
+        return values
+
+    @staticmethod
+    def backward(ctx, grad: torch.Tensor) -> tuple[torch.Tensor, None]:
+        gathered, values, rows = ctx.saved_tensors
+        # the first position t that attains the max: the largest of (L - t) over the hits
+        small = torch.uint8 if len(rows) < 256 else torch.int32
+        countdown = torch.arange(len(rows), 0, -1, dtype=small).view(-1, 1, 1)
+        first = len(rows) - ((gathered == values) * countdown).amax(dim=0).long()   # (n, C)
+        winner = rows.t().gather(1, first)                              # table row of each max
+        return grad.new_zeros(ctx.table_rows, grad.shape[1]).scatter_add_(0, winner, grad), None
+
+
+def _distinct_windows(ids: torch.Tensor, width: int) -> tuple[torch.Tensor, torch.Tensor]:
+    """The distinct ``width``-character windows that start on a real character (padding ids
+    past the word's end), and ``rows`` (L, n): the window of each position among them, or the
+    extra last row for a padding position."""
+    n, length = ids.shape
+    block = ids.numpy()
+    real = block != PAD_ID
+    small = np.int16 if block.max(initial=0) < 2**15 else np.int64    # shorter keys to sort
+    padded = np.pad(block.astype(small), ((0, 0), (0, width - 1)))
+    windows = np.lib.stride_tricks.sliding_window_view(padded, width, axis=1)[real]
+    distinct, inverse = _distinct_rows(windows)
+    rows = np.full((length, n), len(distinct), dtype=np.int64)
+    rows.T[real] = inverse
+    return torch.from_numpy(distinct.astype(np.int64)), torch.from_numpy(rows)
+
+
+def _distinct_rows(block: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The distinct rows of ``block`` and each row's index among them. NumPy compares a row as one
     block of bytes; ``torch.unique(dim=0)`` compares element by element and is ~10x slower here."""
-    block = np.ascontiguousarray(ids.numpy())
+    block = np.ascontiguousarray(block)
     keys = block.view(np.dtype((np.void, block.dtype.itemsize * block.shape[1]))).ravel()
-    _, first, rows = np.unique(keys, return_index=True, return_inverse=True)
-    return ids[torch.from_numpy(first)], torch.from_numpy(rows.ravel())
+    _, first, inverse = np.unique(keys, return_index=True, return_inverse=True)
+    return block[first], inverse.ravel()

@@ -5,6 +5,7 @@ from __future__ import annotations
 import torch
 from torch import Tensor
 
+from dochar.models.dropout import Dropout
 from dochar.models.layers import LayerOptionError, make_layer
 
 NORMS = ("batch", "layer", "none")
@@ -17,7 +18,7 @@ class _Block(torch.nn.Module):
                  residual: bool) -> None:
         super().__init__()
         self.layer, self.norm, self.residual = layer, norm, residual
-        self.dropout = torch.nn.Dropout(dropout)
+        self.dropout = Dropout(dropout)
 
     def forward(self, h: Tensor, edge_index: Tensor, edge_type: Tensor,
                 edge_attr: Tensor | None) -> Tensor:
@@ -62,7 +63,7 @@ class GNNStack(torch.nn.Module):
             for _ in range(depth)
         )
         self.head = torch.nn.Sequential(
-            torch.nn.Linear(hidden_dim, hidden_dim), torch.nn.ReLU(), torch.nn.Dropout(dropout),
+            torch.nn.Linear(hidden_dim, hidden_dim), torch.nn.ReLU(), Dropout(dropout),
             torch.nn.Linear(hidden_dim, num_classes),
         )
 

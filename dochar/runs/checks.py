@@ -33,7 +33,8 @@ from dochar.records.shape import RecordShape
 
 # train.* numbers and the least value each may take
 _TRAIN_MINIMA = {"max_epochs": 1, "patience": 1, "pages_per_batch": 1, "threads": 1,
-                 "weight_decay": 0.0}
+                 "weight_decay": 0.0, "warmup_epochs": 0}
+SCHEDULES = ("constant", "cosine")
 
 
 def check_config(cfg: DictConfig) -> None:
@@ -107,3 +108,9 @@ def _check_train(train: DictConfig) -> None:
         raise TrainOptionError(f"config key train.learning_rate={train.learning_rate!r}: "
                                f"expected a positive number")
     check_class_weighting(str(train.class_weighting))
+    if train.get("schedule", "constant") not in SCHEDULES:
+        raise TrainOptionError(f"config key train.schedule={train.schedule!r}: expected one of "
+                               f"{list(SCHEDULES)}")
+    if train.get("warmup_epochs", 0) >= train.max_epochs:
+        raise TrainOptionError(f"config key train.warmup_epochs={train.warmup_epochs!r}: "
+                               f"expected fewer than train.max_epochs={train.max_epochs}")

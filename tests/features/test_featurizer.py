@@ -334,6 +334,32 @@ def test_char_cnn_matches_conv1d_reference():
             torch.testing.assert_close(out[row:row + 1], expected, rtol=1e-5, atol=1e-6)
 
 
+def test_char_cnn_gradients_match_conv1d_reference():
+    # reference: the rule of the module docstring by torch.nn.functional.conv1d over each
+    # word's own characters (right-padded by k-1 zeros), ReLU, max over positions, summed
+    # with fixed weights; autograd of that gives the expected gradients. Words repeat whole
+    # ("0000" twice) and repeat windows inside ("00000000", "aaaa"), which a max must count once
+    torch.manual_seed(2)
+    enc = CharCNNEncoder(embedding_dim=3, channels=5, kernel_sizes=(2, 4), out_dim=2)
+    texts = ["00000000", "0000", "aaaa", "", "Lot 12", "0000", "mg/kg", "x"]
+    ids = torch.from_numpy(char_ids(texts, 8))
+    weights = torch.randn(len(texts), 10)
+    parameters = [enc.embedding.weight, *(p for c in enc.convs for p in c.parameters())]
+    got = torch.autograd.grad((enc._pool(ids) * weights).sum(), parameters)
+    expected_loss = 0.0
+    for row, text in enumerate(texts):
+        m = min(len(text), 8)
+        if m == 0:
+            continue
+        e = enc.embedding(ids[row, :m]).T.unsqueeze(0)                    # (1, D, m)
+        pooled = torch.cat([F.relu(F.conv1d(F.pad(e, (0, k - 1)), conv.weight, conv.bias))
+                            .amax(2) for k, conv in zip(enc.kernel_sizes, enc.convs)], 1)
+        expected_loss = expected_loss + (pooled[0] * weights[row]).sum()
+    expected = torch.autograd.grad(expected_loss, parameters)
+    for g, e in zip(got, expected):
+        torch.testing.assert_close(g, e, rtol=1e-5, atol=1e-6)
+
+
 def test_char_cnn_shape_padding_invariance_and_gradients():
     torch.manual_seed(1)
     enc = CharCNNEncoder(out_dim=8)

@@ -79,6 +79,44 @@ def test_relational_layer_is_rgcn_eq2():
     _assert_power(rgcn_by_hand(*args[:4], TGT, SRC, TYP), out)
 
 
+@pytest.mark.parametrize("aggr", ["mean", "add"])
+def test_relational_layer_gradients_match_rgcnconv(aggr):
+    # reference: torch-geometric's RGCNConv (the layer's own parameters) on its loop over
+    # relations, differentiated by autograd; parallel edges (0 -> 1 twice) count twice in both
+    import torch_geometric.backend
+
+    layer = make_layer("relational", 3, 2, num_relations=2, aggr=aggr)
+    _randomise(layer)
+    edge_index, edge_type = _graph(SRC + [0], TGT + [1], TYP + [0])
+    x = _features(4, 3, seed=4).requires_grad_()
+    weights = _features(4, 2, seed=5)
+    got = torch.autograd.grad((layer(x, edge_index, edge_type) * weights).sum(),
+                              [x, *layer.parameters()])
+    saved = torch_geometric.backend.use_segment_matmul
+    torch_geometric.backend.use_segment_matmul = False
+    try:
+        reference = (layer.conv(x, edge_index, edge_type) * weights).sum()
+    finally:
+        torch_geometric.backend.use_segment_matmul = saved
+    for g, e in zip(got, torch.autograd.grad(reference, [x, *layer.parameters()])):
+        torch.testing.assert_close(g, e, atol=ATOL, rtol=0)
+
+
+def test_relational_layer_follows_edges_changed_in_place():
+    # the layer keeps each graph's sparse operator: an in-place edit of the edge tensors must
+    # not reuse the operator of the edges they held before (rule: eq. 2 by hand, as above)
+    layer = make_layer("relational", 3, 2, num_relations=2)
+    _randomise(layer)
+    x = _features(4, 3)
+    edge_index, edge_type = _graph()
+    layer(x, edge_index, edge_type)
+    edge_index[0, 0], edge_type[-1] = 3, 0
+    args = (_np(layer.conv.weight), _np(layer.conv.root), _np(layer.conv.bias))
+    src, typ = [3, *SRC[1:]], [*TYP[:-1], 0]
+    np.testing.assert_allclose(_np(layer(x, edge_index, edge_type)),
+                               rgcn_by_hand(_np(x), *args, src, TGT, typ), atol=ATOL)
+
+
 def test_relational_layer_basis_decomposition_eq3():
     # Schlichtkrull et al. 2018, eq. 3: W_r = Σ_b a_rb V_b (conv.comp = a, conv.weight = V)
     layer = make_layer("relational", 3, 2, num_relations=3, num_bases=2)

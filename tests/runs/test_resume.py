@@ -193,16 +193,16 @@ def test_resume_keeps_the_best_weights_of_an_earlier_epoch(tmp_path, stop_at):
 
     from tests.runs.training_inputs import tiny_training
 
-    model, graphs, cfg = tiny_training(learning_rate=0.2)
+    model, graphs, cfg = tiny_training(learning_rate=0.3)
     reference = training.train(model, graphs["train"], graphs["val"], NodeClasses(4), cfg, seed=0)
     reference_weights = {k: v.clone() for k, v in model.state_dict().items()}
     assert reference.best_epoch == 4 < cfg["max_epochs"] == reference.epochs_run
 
-    model, graphs, cfg = tiny_training(learning_rate=0.2)
+    model, graphs, cfg = tiny_training(learning_rate=0.3)
     with pytest.raises(Stopped):
         training.train(model, graphs["train"], graphs["val"], NodeClasses(4), cfg, seed=0,
                        checkpoint=StopAfter(tmp_path, stop_at))
-    model, graphs, cfg = tiny_training(learning_rate=0.2)
+    model, graphs, cfg = tiny_training(learning_rate=0.3)
     resumed = training.train(model, graphs["train"], graphs["val"], NodeClasses(4), cfg, seed=0,
                              checkpoint=EpochCheckpoint(tmp_path, "k", "inputs"))
     assert resumed == reference

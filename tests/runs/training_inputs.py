@@ -21,8 +21,8 @@ def _page(generator: torch.Generator, words: int = 12) -> Data:
 
 
 def tiny_training(data_seed: int = 7, learning_rate: float = 0.01):
-    """Model, pages and loop settings. With ``learning_rate=0.2`` the validation macro-F1 peaks
-    at epoch 4 of 8 (0.12, 0.45, 0.46, 0.50, 0.49, 0.42, 0.47, 0.46): a best epoch that is not
+    """Model, pages and loop settings. With ``learning_rate=0.3`` the validation macro-F1 peaks
+    at epoch 4 of 8 (0.50, 0.51, 0.33, 0.52, 0.41, 0.26, 0.35, 0.14): a best epoch that is not
     the last, so the kept weights are not the final ones."""
     seed_everything(0, 1)
     generator = torch.Generator().manual_seed(data_seed)
