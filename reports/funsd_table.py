@@ -40,8 +40,9 @@ ONE_THREAD = {name: "1" for name in ("OMP_NUM_THREADS", "MKL_NUM_THREADS",
                                      "OPENBLAS_NUM_THREADS")}
 COMMON = ("tracking.enabled=false", "train.threads=1", "train.progress=false")
 SMOKE_PRESET = "funsd_rgcn"
-SMOKE = ("train.max_epochs=1", "features.groups=[geometry,text_flags,char_cnn]",
-         "features.line_context=false", "evaluation.bootstrap_resamples=20")
+SMOKE = ("train.max_epochs=1", "train.warmup_epochs=0",
+         "features.groups=[geometry,text_flags,char_cnn]", "features.line_context=false",
+         "evaluation.bootstrap_resamples=20")
 NETWORKS = ("model: relational", "model: attention", "model: transformer", "model: none",
             "model: gated_relational", "model: edge_attention")
 
