@@ -15,6 +15,7 @@ import datetime
 import os
 import platform
 import sys
+import time
 from pathlib import Path
 
 from threadpoolctl import threadpool_limits
@@ -28,6 +29,7 @@ from benchmarks.report import markdown
 from benchmarks.results_table import results_table_figures
 from benchmarks.scale import scale_figures
 from benchmarks.training import training_figures
+from dochar.gate.baseline import cpu_model
 
 FULL = {"small": 1_000, "large": 10_000, "huge": 100_000}
 SMOKE = {"small": 150, "large": 600, "huge": 1_200}
@@ -36,6 +38,15 @@ SMOKE = {"small": 150, "large": 600, "huge": 1_200}
 def datasets_root() -> Path:
     here = Path(__file__).resolve().parents[1]
     return Path(os.environ.get("DOCHAR_DATASETS", here.parent / "shared" / "datasets"))
+
+
+def machine() -> str:
+    """What the figures were measured on: the ratios travel between machines, the seconds do not."""
+    import torch
+
+    return (f"{cpu_model()} ({platform.machine()}, {os.cpu_count()} CPUs, "
+            f"{torch.backends.cpu.get_cpu_capability()}), Python {platform.python_version()}, "
+            f"torch {torch.__version__}")
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -49,6 +60,7 @@ def main(argv: list[str] | None = None) -> int:
     sizes = SMOKE if args.smoke else FULL
     repeats = 1 if args.smoke else args.repeats
     scale = args.scale_sizes or ([20, 40] if args.smoke else [100, 1000, 10_000])
+    load_before, started = os.getloadavg()[0], time.perf_counter()
     with threadpool_limits(limits=1):
         figures = builder_figures(sizes["small"], sizes["large"], sizes["huge"], repeats, judged)
         figures += complete_figures(sizes["small"], sizes["large"], judged)
@@ -65,10 +77,11 @@ def main(argv: list[str] | None = None) -> int:
         figures += results_table_figures(judged)
     command = "python -m benchmarks.run " + " ".join(argv if argv is not None else sys.argv[1:])
     header = (f"# dochar benchmarks\n\n{datetime.date.today().isoformat()}, `{command.strip()}`, "
-              f"{platform.processor() or platform.machine()}, {os.cpu_count()} CPUs, "
-              f"CPU seconds of one thread; training and prediction on "
-              f"{'synthetic certificates (smoke)' if args.smoke else 'FUNSD'}; builders on "
-              f"text-like pages (benchmarks/pages.py).")
+              f"{machine()}, {(time.perf_counter() - started) / 60:.0f} min, load average "
+              f"{load_before:.1f} before and {os.getloadavg()[0]:.1f} after (other work on the "
+              f"machine slows the two-thread row most); CPU seconds of one thread; training and "
+              f"prediction on {'synthetic certificates (smoke)' if args.smoke else 'FUNSD'}; "
+              f"builders on text-like pages (benchmarks/pages.py).")
     table = markdown(figures, header)
     Path(args.out).parent.mkdir(parents=True, exist_ok=True)
     Path(args.out).write_text(table, encoding="utf-8")
