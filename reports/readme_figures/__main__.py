@@ -40,6 +40,7 @@ FIGURES: dict[str, Figure] = {
     "funsd-blank-links": Figure(cheap.funsd_blank_links, cheap=True),
     "benchmarks": Figure(cheap.benchmarks, cheap=True),
     "bench-summary": Figure(cheap.bench_summary, cheap=True),
+    "funsd-table": Figure(cheap.funsd_table, cheap=True),
     "gate-tolerances": Figure(gate_spread.gate_tolerances, cheap=False, takes_keep=True),
     "thread-spread": Figure(gate_spread.thread_spread, cheap=False, takes_keep=True),
     "layout-held-out": Figure(tables.layout_held_out, cheap=False, takes_keep=True),

@@ -141,6 +141,17 @@ def bench_summary() -> str:
             f"`reports/benchmarks.md`.\n")
 
 
+def funsd_table() -> str:
+    """The table ``make funsd-table`` last wrote (reports/funsd-table.md), quoted whole."""
+    path = REPO / "reports" / "funsd-table.md"
+    if not path.is_file():
+        raise FigureUnavailable(f"{path} not found: run `make funsd-table` first")
+    lines = path.read_text(encoding="utf-8").splitlines()
+    body = "\n".join(line for line in lines if not line.startswith("# ")).strip()
+    return (f"{body}\n\n`python -m reports.readme_figures --only funsd-table` copies this from "
+            f"`reports/funsd-table.md`.\n")
+
+
 def benchmarks() -> str:
     """The table ``make bench`` last wrote (reports/benchmarks.md), as docs/benchmarks.md quotes
     it: the bench's own file is the record, so the page cannot drift from it."""

@@ -1,0 +1,1 @@
+"""The data stage: the word table (format, validator, pages), its sources and importers."""

@@ -1,0 +1,92 @@
+"""k nearest words by box distance.
+
+Distance between two words is the shortest distance between their boxes (0 when they touch or
+overlap); ties go to the smaller centre distance, then the smaller ``word_id``. Each target
+listens to exactly ``min(k, n - 1)`` words. An edge is typed by the direction its source lies
+in, by the dominant axis of the centre offset (:func:`dochar.graphs.base.direction_codes`).
+
+Search: candidates come from a window of grid cells around the target (:mod:`dochar.graphs.cells`);
+the window's answer stands once it holds k words nearer than the gap every box outside the window
+must exceed, otherwise that target's window doubles. Near-linear on real pages, exact on any page.
+A page of at most ``DENSE_UP_TO`` words ranks all its pairs at once instead: on a form-sized
+page that is cheaper than building the grid, and the ranking keys are the same.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import ClassVar
+
+import numpy as np
+
+from dochar.data.word_table import Page
+from dochar.graphs.base import (DIRECTIONS, GraphBuilderError, TypedEdges, direction_codes,
+                                make_edges, no_edges)
+from dochar.graphs.cells import cell_index, order_within_groups
+from dochar.graphs.geometry import PageGeometry, page_geometry
+
+DENSE_UP_TO = 200   # words; about where the two searches cost the same on benchmarks/pages.py pages
+
+
+@dataclass(frozen=True)
+class KnnBuilder:
+    k: int = 6
+
+    name: ClassVar[str] = "knn"
+    relations: ClassVar[tuple[str, ...]] = DIRECTIONS
+
+    def __post_init__(self) -> None:
+        if isinstance(self.k, bool) or not isinstance(self.k, (int, np.integer)) or self.k < 1:
+            raise GraphBuilderError(f"graph builder 'knn': k must be a positive integer, "
+                                    f"got {self.k!r}")
+
+    def __call__(self, page: Page) -> TypedEdges:
+        geo = page_geometry(page, self.name)
+        take = min(int(self.k), geo.n - 1)
+        if take < 1:
+            return no_edges(self.relations)
+        source, target = nearest_words(geo, take)
+        dx, dy = (geo.centres[source] - geo.centres[target]).T
+        return make_edges(source, target, direction_codes(dx, dy), self.relations)
+
+
+def nearest_words(geo: PageGeometry, take: int) -> tuple[np.ndarray, np.ndarray]:
+    """The ``take`` nearest other words of every word: (sources, targets)."""
+    if geo.n <= DENSE_UP_TO:
+        return nearest_words_all_pairs(geo, take)
+    index = cell_index(geo.boxes)
+    pending, reach = np.arange(geo.n), index.first_reach(2.0)
+    sources, targets = [], []
+    while len(pending):
+        low, high = index.window(pending, reach)
+        query, box = index.boxes_in(low, high)
+        gap2, centre2, _, _ = geo.pair_keys(pending[query], box)
+        whole = index.covers_grid(low, high)
+        # a settled target's answers all lie within the bound: rank only those pairs
+        usable = (box != pending[query]) & ((gap2 < index.gap_bound2(reach)) | whole[query])
+        query, box, gap2, centre2 = query[usable], box[usable], gap2[usable], centre2[usable]
+        order = order_within_groups(query, (gap2, centre2, geo.rank[box]))
+        query, box, gap2 = query[order], box[order], gap2[order]
+        first = np.searchsorted(query, np.arange(len(pending)))
+        done = whole | (np.bincount(query, minlength=len(pending)) >= take)
+        kept = done[query] & (np.arange(len(query)) - first[query] < take)
+        sources.append(box[kept])
+        targets.append(pending[query[kept]])
+        pending, reach = pending[~done], reach * 2
+    return np.concatenate(sources), np.concatenate(targets)
+
+
+def nearest_words_all_pairs(geo: PageGeometry, take: int) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`nearest_words` by ranking, per target, the pairs within its take-th smallest gap."""
+    n = geo.n
+    everyone = np.arange(n)
+    gap2, centre2, _, _ = geo.pair_keys(everyone[:, None], everyone[None, :])   # (n, n) each
+    gap2[everyone, everyone] = np.inf                          # a word is not its own neighbour
+    kth = np.partition(gap2, take - 1, axis=1)[:, take - 1]
+    query, box = np.nonzero(gap2 <= kth[:, None])               # ties at the cut included
+    order = order_within_groups(query, (gap2[query, box], centre2[query, box],
+                                        geo.rank[box]))
+    query, box = query[order], box[order]
+    first = np.searchsorted(query, np.arange(n))
+    kept = np.arange(len(query)) - first[query] < take
+    return box[kept], query[kept]

@@ -1,0 +1,95 @@
+"""Pages → graphs: typed edges from a builder plus node features, as torch-geometric ``Data``.
+
+Also the flat per-word matrices the scikit-learn baselines read, cut from the same pages with
+the same featurizer, so a GNN and a baseline never see different inputs by accident.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+import torch
+from torch_geometric.data import Data
+from tqdm import tqdm
+
+from dochar.data.word_table import Page
+from dochar.features import WordFeaturizer, char_ngram_hashes
+from dochar.graphs.base import GraphBuilder, TypedEdges
+
+
+@dataclass
+class PageSet:
+    """Pages with their edges, built once and shared by every model of a run."""
+
+    pages: list[Page]
+    edges: list[TypedEdges]
+    relations: tuple[str, ...]
+    edge_attr_names: tuple[str, ...] = ()   # the builder's continuous edge attributes, if any
+
+    @classmethod
+    def build(cls, pages: Sequence[Page], builder: GraphBuilder, *, progress: bool = False,
+              desc: str = "graphs") -> PageSet:
+        pages = list(pages)
+        # disable=None: tqdm draws the bar only when its stream is a terminal
+        edges = [builder(page) for page in tqdm(pages, desc=desc,
+                                                disable=None if progress else True,
+                                                leave=False)]
+        return cls(pages, edges, tuple(builder.relations),
+                   tuple(getattr(builder, "edge_attr_names", ())))
+
+
+def label_indices(page: Page, label_index: dict[str, int]) -> np.ndarray:
+    if page.labels is None:
+        raise ValueError(f"page {page.key}: no 'label' column, cannot train or score on it")
+    return np.array([label_index[label] for label in page.labels], dtype=np.int64)
+
+
+def to_graphs(page_set: PageSet, featurizer: WordFeaturizer,
+              label_index: dict[str, int] | None) -> list[Data]:
+    """One graph per page; node targets ``y`` when ``label_index`` is given."""
+    graphs = []
+    for page, edges in zip(page_set.pages, page_set.edges):
+        data = Data(x=torch.from_numpy(featurizer.transform(page)),
+                    edge_index=torch.from_numpy(edges.edge_index.astype(np.int64)),
+                    edge_type=torch.from_numpy(edges.edge_type.astype(np.int64)),
+                    num_nodes=len(page))
+        if label_index is not None:
+            data.y = torch.from_numpy(label_indices(page, label_index))
+        if featurizer.uses_char_cnn:
+            data.chars = torch.from_numpy(featurizer.char_ids(page))
+        edge_attr = getattr(edges, "edge_attr", None)
+        if edge_attr is not None:
+            data.edge_attr = torch.from_numpy(np.asarray(edge_attr, dtype=np.float32))
+        if featurizer.uses_crop_cnn:
+            data.crops = torch.from_numpy(featurizer.crops(page))
+        graphs.append(data)
+    return graphs
+
+
+def to_matrix(page_set: PageSet, featurizer: WordFeaturizer, *, hash_features: int,
+              neighbour_features: bool) -> np.ndarray:
+    """Per-word rows for a baseline; hashed n-grams stand in for the char CNN, the
+    ``page_image`` columns for the crop CNN (unless already among the features). With
+    ``neighbour_features``, the neighbours' aggregates follow, then those of the incoming edge
+    attributes when the edges carry any."""
+    from dochar.models.baselines import edge_attr_aggregates, neighbour_aggregates
+
+    blocks = []
+    for page, edges in zip(page_set.pages, page_set.edges):
+        parts = [featurizer.transform(page)]
+        if featurizer.uses_char_cnn:
+            parts.append(char_ngram_hashes(page.texts, n_features=hash_features))
+        if featurizer.uses_crop_cnn and "page_image" not in featurizer.groups:
+            parts.append(featurizer.image_features(page))
+        dense = np.hstack(parts)
+        if neighbour_features:
+            dense = np.hstack([dense, neighbour_aggregates(dense, edges.edge_index,
+                                                            edges.edge_type,
+                                                            len(page_set.relations))])
+            if edges.edge_attr is not None:   # the edges' own attributes, as the GNN sees them
+                dense = np.hstack([dense, edge_attr_aggregates(edges.edge_attr, edges.edge_index[1],
+                                                               len(page))])
+        blocks.append(dense)
+    return np.vstack(blocks).astype(np.float32)

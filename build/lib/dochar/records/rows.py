@@ -1,0 +1,171 @@
+"""Table rows from item pieces, and header values written over several lines.
+
+Three ways to find a document's line items:
+
+* **from row links** (a row model's predicted links, or the truth's links of kind ``row``):
+  the rows are the connected components of the links between the pieces' groups; a piece no
+  link touches is a row of its own.
+* **by the layout rule** (no row model), page by page:
+
+  1. *line bands*: pieces sorted by their top edge; a piece whose top lies within half a
+     piece height (the page's median) of the band's first top joins that band.
+  2. *continuation lines*: a band directly under the previous row (its top less than one
+     piece height below that row's bottom) that fills at most half as many columns as the
+     page's fullest band, and whose every piece lies under a cell of its own column in that
+     row, is the next line of that row's wrapped cells: each piece is joined to the cell of its
+     column. Any other band starts a new row.
+
+  Cells of one column within one row are joined in reading order.
+* **by an anchor column** (the shape's ``row_anchor``, e.g. a receipt's item name), page by
+  page: the same line bands; a band holding an anchor piece starts a new item when the current
+  item has its anchor already, and so does a band holding an amount (the shape's
+  ``amount_fields``) of a column the current item has a value of already (an item has one
+  price); every other band joins the current item (a receipt's count, unit price, price and
+  sub-item lines under their item's name). Bands before the first anchor belong to the first
+  item. Cells of one column within one item are joined in reading order.
+
+Header values over several lines (:func:`join_header_lines`): a piece joins the value above it
+when it has the same label, starts within one height of that value's left edge, lies less than
+one height under it, and either nothing stands left of it on its line or its nearest left word
+lies clear of (no horizontal overlap with) every word left of the value's first line. So a
+wrapped value, whose key column is empty on its later lines, is joined, and two dates stacked
+under each other, each with its key beside it, stay two values. Known limit: a value wrapped in
+the right column of a two-column header, where the left column has words on both lines, stays
+two pieces.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Collection, Iterable, Sequence
+
+import numpy as np
+
+from dochar.records.pieces import Value
+
+Row = dict[str, Value]
+
+
+def _join_cells(pieces: Iterable[Value]) -> Row:
+    row: Row = {}
+    for piece in pieces:
+        row[piece.label] = row[piece.label].join(piece) if piece.label in row else piece
+    return row
+
+
+def _top(row: Row) -> tuple[int, float, float]:
+    return (min(v.page for v in row.values()), min(v.box[1] for v in row.values()),
+            min(v.box[0] for v in row.values()))
+
+
+def rows_from_links(pieces: Sequence[Value], links: Iterable[tuple[int, str, str]]) -> list[Row]:
+    """Rows as connected components of ``links`` (page, group, group) between pieces' groups."""
+    parent = list(range(len(pieces)))
+
+    def find(i: int) -> int:
+        while parent[i] != i:
+            parent[i] = parent[parent[i]]
+            i = parent[i]
+        return i
+
+    where = {(p.page, p.group): i for i, p in enumerate(pieces) if p.group}
+    for page, source, target in links:
+        a, b = where.get((page, source)), where.get((page, target))
+        if a is not None and b is not None:
+            parent[find(a)] = find(b)
+    components: dict[int, list[Value]] = {}
+    for i, piece in enumerate(pieces):
+        components.setdefault(find(i), []).append(piece)
+    return sorted((_join_cells(c) for c in components.values()), key=_top)
+
+
+def _bands(pieces: list[Value], height: float) -> list[list[Value]]:
+    bands: list[list[Value]] = []
+    for piece in sorted(pieces, key=lambda p: (p.box[1], p.box[0])):
+        if bands and piece.box[1] - bands[-1][0].box[1] < 0.5 * height:
+            bands[-1].append(piece)
+        else:
+            bands.append([piece])
+    return [sorted(band, key=lambda p: p.box[0]) for band in bands]
+
+
+def _under(piece: Value, cell: Value | None) -> bool:
+    return cell is not None and piece.box[0] < cell.box[2] and cell.box[0] < piece.box[2]
+
+
+def rows_by_layout(pieces: Sequence[Value]) -> list[Row]:
+    """Rows of item pieces by the layout rule (module docstring), page by page."""
+    rows: list[Row] = []
+    for page in sorted({p.page for p in pieces}):
+        on_page = [p for p in pieces if p.page == page]
+        height = float(np.median([p.height for p in on_page]))
+        bands = _bands(on_page, height)
+        fullest = max(len({p.label for p in band}) for band in bands)
+        current: Row | None = None
+        for band in bands:
+            columns = {p.label for p in band}
+            continues = (current is not None and len(columns) <= fullest / 2
+                         and band[0].box[1] - max(v.box[3] for v in current.values()) < height
+                         and all(_under(p, current.get(p.label)) for p in band))
+            if continues:
+                for piece in band:
+                    current[piece.label] = current[piece.label].join(piece)
+            else:
+                current = _join_cells(band)
+                rows.append(current)
+    return rows
+
+
+def rows_by_anchor(pieces: Sequence[Value], anchor: str,
+                   amounts: Collection[str] = ()) -> list[Row]:
+    """Rows of item pieces opened by ``anchor`` pieces, or by a second value of one of the
+    ``amounts`` columns (module docstring), page by page."""
+    rows: list[Row] = []
+    for page in sorted({p.page for p in pieces}):
+        on_page = [p for p in pieces if p.page == page]
+        height = float(np.median([p.height for p in on_page]))
+        current: Row | None = None
+        for band in _bands(on_page, height):
+            labels = {p.label for p in band}
+            if (current is None or (anchor in current and anchor in labels)
+                    or any(label in current for label in labels & set(amounts))):
+                current = {}
+                rows.append(current)
+            for piece in band:
+                current[piece.label] = (current[piece.label].join(piece)
+                                        if piece.label in current else piece)
+    return rows
+
+
+def join_header_lines(pieces: Sequence[Value], others: np.ndarray) -> list[Value]:
+    """One page's header pieces with the later lines of one value joined to its first (module
+    docstring); ``others`` are the boxes (n, 4) of the page's words outside these pieces, whose
+    presence just left of a piece makes it a value of its own."""
+    joined: list[Value] = []
+    for piece in pieces:
+        above = next((i for i in range(len(joined) - 1, -1, -1)
+                      if _continues(joined[i], piece, others)), None)
+        if above is None:
+            joined.append(piece)
+        else:
+            joined[above] = joined[above].join(piece)
+    return joined
+
+
+def _left_of(box: tuple[float, float, float, float], height: float,
+             others: np.ndarray) -> np.ndarray:
+    """Boxes of the words left of ``box`` on its line."""
+    return others[(np.abs(others[:, 1] - box[1]) < 0.5 * height) & (others[:, 2] <= box[0])]
+
+
+def _continues(above: Value, piece: Value, others: np.ndarray) -> bool:
+    height = min(above.height, piece.height)
+    if (above.label != piece.label or above.page != piece.page
+            or abs(piece.box[0] - above.box[0]) > height
+            or not -0.5 * height < piece.box[1] - above.box[3] < height):
+        return False
+    beside = _left_of(piece.box, height, others)
+    if not len(beside):
+        return True
+    nearest = beside[np.argmax(beside[:, 2])]
+    first_line = _left_of(above.box, height, others)
+    return not ((first_line[:, 0] < nearest[2]) & (nearest[0] < first_line[:, 2])).any()

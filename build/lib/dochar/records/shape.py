@@ -1,0 +1,118 @@
+"""The shape of a record, read from a data config's ``record:`` block.
+
+``header_fields`` are word labels whose values belong to the document as a whole (a certificate
+number, its dates); ``item_columns`` are the labels of table cells, one column each, that make
+up a line item; ``items_name`` is the key the list of line items goes under. ``date_fields`` and
+``amount_fields`` name the labels (of either kind) whose values normalisation reads as dates or
+amounts. ``single_fields`` are header fields a document has one value of: of several pieces
+predicted, the one whose least word probability is highest is kept. ``row_anchor`` (optional)
+is the item column that opens a line item: every line holding it starts a new item, and the
+lines under it join that item until the next one (a receipt's item name;
+:func:`dochar.records.rows.rows_by_anchor`). A label may be in one role only, and every label
+named must be one of the data's labels:
+:func:`check_shape` says which key names what, before any data loads.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, fields
+from typing import Any
+
+from dochar.errors import DocharError, did_you_mean
+
+SHAPE_KEYS: tuple[str, ...] = ("header_fields", "item_columns", "items_name", "date_fields",
+                               "amount_fields", "single_fields", "row_anchor")
+
+
+class RecordShapeError(DocharError):
+    """A ``record:`` block that names no label, an unknown label, or a label in two roles."""
+
+
+@dataclass(frozen=True)
+class RecordShape:
+    """Which labels are header fields, which are line-item columns, and how values read."""
+
+    header_fields: tuple[str, ...]
+    item_columns: tuple[str, ...] = ()
+    items_name: str = "items"
+    date_fields: tuple[str, ...] = ()
+    amount_fields: tuple[str, ...] = ()
+    single_fields: tuple[str, ...] = ()   # header fields with one value: the likeliest piece
+    row_anchor: str = ""             # "": rows by the layout rule
+
+    @property
+    def labels(self) -> tuple[str, ...]:
+        return (*self.header_fields, *self.item_columns)
+
+    def to_dict(self) -> dict[str, Any]:
+        """Plain values, as a model manifest and a YAML file hold them."""
+        return {f.name: (list(value) if isinstance(value := getattr(self, f.name), tuple)
+                         else value) for f in fields(self)}
+
+    @classmethod
+    def from_mapping(cls, block: Mapping[str, Any], *, where: str = "data.record",
+                     labels: Sequence[str] | None = None) -> RecordShape:
+        """Read and check a ``record:`` block; ``labels``, when given, are the data's labels."""
+        unknown = sorted(set(block) - set(SHAPE_KEYS))
+        if unknown:
+            raise RecordShapeError(f"config key {where}.{unknown[0]}: unknown; {where} takes "
+                                   f"{', '.join(SHAPE_KEYS)}")
+        values: dict[str, Any] = {}
+        for key in SHAPE_KEYS:
+            if key not in block or block[key] is None:
+                continue
+            value = block[key]
+            if key == "items_name":
+                if not isinstance(value, str) or not value.strip():
+                    raise RecordShapeError(f"config key {where}.items_name={value!r}: expected "
+                                           "a non-empty name")
+                values[key] = value.strip()
+                continue
+            if key == "row_anchor":
+                if not isinstance(value, str):
+                    raise RecordShapeError(f"config key {where}.row_anchor={value!r}: expected "
+                                           "one label")
+                values[key] = value.strip()
+                continue
+            if isinstance(value, str) or not all(isinstance(v, str) for v in value):
+                raise RecordShapeError(f"config key {where}.{key}={value!r}: expected a list "
+                                       "of labels")
+            values[key] = tuple(value)
+        shape = cls(**{"header_fields": (), **values})
+        check_shape(shape, labels, where=where)
+        return shape
+
+
+def check_shape(shape: RecordShape, labels: Sequence[str] | None, *,
+                where: str = "data.record") -> None:
+    """Raise a RecordShapeError naming the key of the first label that cannot be used."""
+    if not shape.labels:
+        raise RecordShapeError(f"config key {where}: names no header_fields and no "
+                               "item_columns")
+    seen: dict[str, str] = {}
+    for key in ("header_fields", "item_columns"):
+        for label in getattr(shape, key):
+            if label in seen:
+                raise RecordShapeError(f"config key {where}.{key}: label {label!r} is also in "
+                                       f"{where}.{seen[label]}; a label has one role")
+            seen[label] = key
+    for key in ("date_fields", "amount_fields"):
+        for label in getattr(shape, key):
+            if label not in seen:
+                raise RecordShapeError(f"config key {where}.{key}: label {label!r} is neither "
+                                       "a header field nor an item column")
+    for label in shape.single_fields:
+        if seen.get(label) != "header_fields":
+            raise RecordShapeError(f"config key {where}.single_fields: label {label!r} is not "
+                                   f"one of {where}.header_fields")
+    if shape.row_anchor and shape.row_anchor not in shape.item_columns:
+        raise RecordShapeError(f"config key {where}.row_anchor: label {shape.row_anchor!r} is "
+                               f"not one of {where}.item_columns")
+    if labels is None:
+        return
+    for key in ("header_fields", "item_columns"):
+        for label in getattr(shape, key):
+            if label not in labels:
+                raise RecordShapeError(f"config key {where}.{key}: label {label!r} is not one "
+                                       f"of data.labels{did_you_mean(label, labels)}")
