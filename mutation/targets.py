@@ -25,7 +25,9 @@ FULL: dict[str, list[str]] = {
     "dochar/models/checkpoints.py": ["tests/runs/test_resume.py",
                                      "tests/models/test_checkpoint_files.py"],
     "dochar/models/template.py": ["tests/models/test_template.py"],
-    "dochar/models/saved.py": ["tests/models/test_saved.py"],
+    "dochar/models/saved.py": ["tests/models/test_saved.py", "tests/models/test_saved_tasks.py",
+                               "tests/models/test_saved_edges.py",
+                               "tests/test_predict_batched.py"],
     "dochar/graphs/candidates.py": ["tests/graphs/test_candidates.py"],
 }
 
