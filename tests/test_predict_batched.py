@@ -5,7 +5,9 @@ probability those of the live model's own probabilities.
 References: the live model applied through the training-time inputs (``to_graphs`` and
 ``predict_proba``), with the top label worked out by ``numpy.argmax``; one-page-at-a-time
 labelling as the oracle for the batched path (each page's graph and features do not depend on
-the other pages, so only float summation order may differ: 1e-6).
+the other pages, so only float summation order may differ: 1e-6). The pieces computed for all
+pages at once (lines, reading order) are checked page by page against the rules read off their
+definitions: every pair of a page compared, a plain sort.
 """
 
 from __future__ import annotations
@@ -16,10 +18,14 @@ import pytest
 import torch
 from hydra import compose, initialize_config_dir
 from omegaconf import OmegaConf
+from scipy.sparse import csr_matrix
+from scipy.sparse.csgraph import connected_components
 
 import data_synth
 from dochar import graphs
-from dochar.data.word_table import iter_pages, validate_word_table
+from dochar.data import lines
+from dochar.data.sources import load_data
+from dochar.data.word_table import Page, iter_pages, validate_word_table
 from dochar.features import WordFeaturizer
 from dochar.models.builders import build_gnn, gnn_arguments
 from dochar.models.fit import FittedModel
@@ -107,3 +113,76 @@ def test_a_run_of_one_label_stops_at_the_end_of_a_page_and_of_a_document():
     assert found[["doc_id", "page", "label", "text", "word_ids", "probability"]].values.tolist(
         ) == [["d", 1, "key", "Lot", "0", 0.9], ["d", 1, "cert_no", "A-12", "1", 0.8],
               ["d", 2, "cert_no", "B7 C9", "0 1", 0.6], ["e", 1, "cert_no", "D1", "0", 0.5]]
+
+
+# --- the per-page pieces, batched over all pages, on FUNSD forms -------------------------------
+
+@pytest.fixture(scope="module")
+def funsd_pages(funsd_root) -> list[Page]:
+    """FUNSD forms (Jaume et al., ICDAR-OST 2019) as the bench reads them."""
+    with initialize_config_dir(config_dir=str(CONFIGS), version_base="1.3"):
+        cfg = compose("config", overrides=["data=funsd", f"data.path={funsd_root}"])
+    return list(iter_pages(load_data(cfg.data, strict=False, progress=False).table))[:80]
+
+
+def _lines_by_every_pair(boxes: np.ndarray) -> np.ndarray:
+    """The line rule read off its definition: every pair of the page compared (y-ranges overlap
+    by at least half the smaller height), components numbered by their first box."""
+    y0, y1 = boxes[:, 1], boxes[:, 3]
+    height = y1 - y0
+    overlap = np.minimum.outer(y1, y1) - np.maximum.outer(y0, y0)
+    joined = (overlap >= 0) & (overlap >= 0.5 * np.minimum.outer(height, height))
+    _, label = connected_components(csr_matrix(joined), directed=False)
+    first_seen = {}
+    return np.array([first_seen.setdefault(value, len(first_seen)) for value in label])
+
+
+def _reading_order_by_hand(boxes: np.ndarray, word_ids: np.ndarray) -> list[int]:
+    """Lines top to bottom by the mean y of their centres (then their smallest word id), words
+    left to right by centre x, then by word id: the rule as a plain sort."""
+    line = _lines_by_every_pair(boxes)
+    centre_x, centre_y = (boxes[:, 0] + boxes[:, 2]) / 2, (boxes[:, 1] + boxes[:, 3]) / 2
+    members = {value: [i for i in range(len(boxes)) if line[i] == value] for value in set(line)}
+    line_y = {value: sum(float(centre_y[i]) for i in rows) / len(rows)
+              for value, rows in members.items()}
+    first_id = {value: min(int(word_ids[i]) for i in rows) for value, rows in members.items()}
+    return sorted(range(len(boxes)), key=lambda i: (line_y[line[i]], first_id[line[i]],
+                                                    centre_x[i], int(word_ids[i])))
+
+
+@pytest.mark.parametrize("pair_cells", [lines.PAIR_CELLS, 97])   # 97: many small blocks
+def test_lines_of_all_pages_at_once_are_those_of_every_pair_of_each_page(
+        funsd_pages, monkeypatch, pair_cells):
+    monkeypatch.setattr(lines, "PAIR_CELLS", pair_cells)
+    boxes = np.concatenate([p.boxes for p in funsd_pages])
+    code = np.repeat(np.arange(len(funsd_pages)), [len(p) for p in funsd_pages])
+    together = lines.line_ids(boxes, page=code)
+    for page, start in zip(funsd_pages, np.cumsum([0] + [len(p) for p in funsd_pages])):
+        alone = _lines_by_every_pair(page.boxes)
+        np.testing.assert_array_equal(lines.line_ids(page.boxes), alone)
+        mine = together[start:start + len(page)]   # the same partition, numbered further on
+        np.testing.assert_array_equal(mine - mine.min(), alone)
+
+
+def test_reading_order_of_all_pages_at_once_reads_each_page_by_the_rule(funsd_pages):
+    pages = funsd_pages[:30]
+    sizes = [len(p) for p in pages]
+    starts = np.cumsum([0] + sizes)
+    code = np.repeat(np.arange(len(pages))[::-1], sizes)   # pages read in ascending code
+    together = lines.reading_order(np.concatenate([p.boxes for p in pages]),
+                                   np.concatenate([p.word_ids for p in pages]), page=code)
+    expected = [starts[i] + position for i in reversed(range(len(pages)))
+                for position in _reading_order_by_hand(pages[i].boxes, pages[i].word_ids)]
+    assert together.tolist() == expected
+    for page in pages[:5]:
+        assert lines.reading_order(page.boxes, page.word_ids).tolist() == \
+            _reading_order_by_hand(page.boxes, page.word_ids)
+
+
+def test_a_flat_box_on_the_bottom_edge_of_a_word_shares_its_line():
+    """Worked by hand: y-ranges [0, 10] and [10, 10] overlap by 0, half the smaller height (0);
+    [12, 20] meets neither. The second page repeats the first: its own lines, numbered on."""
+    boxes = np.array([[0, 0, 5, 10], [6, 10, 9, 10], [0, 12, 5, 20]] * 2, dtype=float)
+    assert lines.line_ids(boxes[:3]).tolist() == [0, 0, 1]
+    assert lines.line_ids(boxes, page=np.array([0, 0, 0, 1, 1, 1])).tolist() == [0, 0, 1,
+                                                                                  2, 2, 3]
