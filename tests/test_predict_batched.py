@@ -186,3 +186,36 @@ def test_a_flat_box_on_the_bottom_edge_of_a_word_shares_its_line():
     assert lines.line_ids(boxes[:3]).tolist() == [0, 0, 1]
     assert lines.line_ids(boxes, page=np.array([0, 0, 0, 1, 1, 1])).tolist() == [0, 0, 1,
                                                                                   2, 2, 3]
+
+
+@pytest.mark.parametrize("k", [1, 8, 30])
+def test_nearest_words_of_all_pages_at_once_are_those_of_each_page_alone(funsd_pages, k):
+    """Oracle: the builder page by page (itself checked against an all-pairs ranking in
+    tests/graphs). Pages of one, two and three words, and a page of one box repeated (ties
+    everywhere), sit among the forms."""
+    tiny = [Page("tiny", n, np.arange(n), ["w"] * n, funsd_pages[0].boxes[:n].copy(), 1000.0,
+                 1000.0) for n in (1, 2, 3)]
+    repeated = Page("same", 1, np.arange(12)[::-1].copy(), ["w"] * 12,
+                    np.tile([[10.0, 10.0, 40.0, 20.0]], (12, 1)), 100.0, 100.0)
+    pages = [tiny[0], *funsd_pages[:25], tiny[1], repeated, tiny[2], *funsd_pages[25:40]]
+    builder = graphs.from_config({"name": "knn", "options": {"k": k}, "reverse_edges": True,
+                                  "self_loops": True})
+    together = builder.build_all(pages)
+    assert len(together) == len(pages)
+    for page, edges in zip(pages, together):
+        alone = builder(page)
+        np.testing.assert_array_equal(edges.edge_index, alone.edge_index)
+        np.testing.assert_array_equal(edges.edge_type, alone.edge_type)
+        assert edges.edge_index.dtype == alone.edge_index.dtype == np.int64
+
+
+def test_a_bad_box_among_many_pages_is_reported_with_its_page_and_word(funsd_pages):
+    bad = funsd_pages[3].boxes.copy()
+    bad[5, 2] = bad[5, 0] - 1.0                       # x1 < x0
+    page = Page(funsd_pages[3].doc_id, 1, funsd_pages[3].word_ids, funsd_pages[3].texts, bad,
+                funsd_pages[3].width, funsd_pages[3].height)
+    builder = graphs.from_config({"name": "knn", "options": {"k": 8}})
+    with pytest.raises(graphs.GraphBuilderError,
+                       match=rf"page {funsd_pages[3].doc_id}.*word_id "
+                             rf"{funsd_pages[3].word_ids[5]} has box"):
+        builder.build_all([*funsd_pages[:3], page])

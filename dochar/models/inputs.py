@@ -32,10 +32,13 @@ class PageSet:
     def build(cls, pages: Sequence[Page], builder: GraphBuilder, *, progress: bool = False,
               desc: str = "graphs") -> PageSet:
         pages = list(pages)
-        # disable=None: tqdm draws the bar only when its stream is a terminal
-        edges = [builder(page) for page in tqdm(pages, desc=desc,
-                                                disable=None if progress else True,
-                                                leave=False)]
+        build_all = getattr(builder, "build_all", None)
+        if build_all is not None and not progress:   # all pages in one pass, the same edges
+            edges = build_all(pages)
+        else:   # disable=None: tqdm draws the bar only when its stream is a terminal
+            edges = [builder(page) for page in tqdm(pages, desc=desc,
+                                                    disable=None if progress else True,
+                                                    leave=False)]
         return cls(pages, edges, tuple(builder.relations),
                    tuple(getattr(builder, "edge_attr_names", ())))
 
