@@ -20,6 +20,7 @@ from hydra import compose, initialize_config_dir
 from omegaconf import OmegaConf
 from scipy.sparse import csr_matrix
 from scipy.sparse.csgraph import connected_components
+from scipy.stats import rankdata
 
 import data_synth
 from dochar import graphs
@@ -27,6 +28,7 @@ from dochar.data import lines
 from dochar.data.sources import load_data
 from dochar.data.word_table import Page, iter_pages, validate_word_table
 from dochar.features import WordFeaturizer
+from dochar.features.geometry import GEOMETRY_NAMES
 from dochar.models.builders import build_gnn, gnn_arguments
 from dochar.models.fit import FittedModel
 from dochar.models.inputs import PageSet, to_graphs
@@ -219,3 +221,44 @@ def test_a_bad_box_among_many_pages_is_reported_with_its_page_and_word(funsd_pag
                        match=rf"page {funsd_pages[3].doc_id}.*word_id "
                              rf"{funsd_pages[3].word_ids[5]} has box"):
         builder.build_all([*funsd_pages[:3], page])
+
+
+def test_features_of_all_pages_at_once_are_each_pages_own(funsd_pages):
+    """The page-level geometry columns (text block extent, rank, median word height) worked per
+    page with scipy.stats.rankdata and numpy.median; every column against page by page."""
+    # by hand: two pages of two words, the first page's right centre (x 20) the second's left
+    # one, and heights 10 and 20 (an even count: median 15)
+    touching = [Page(name, 1, np.array([0, 1]), ["Lot", "7"], np.array(boxes, dtype=float),
+                     100.0, 50.0)
+                for name, boxes in (("a", [[5, 0, 15, 10], [15, 0, 25, 20]]),
+                                    ("b", [[15, 30, 25, 40], [25, 30, 35, 42]]))]
+    pages = [*funsd_pages[:20], Page("one", 1, np.array([4]), ["Lot:"],
+                                     np.array([[5.0, 5.0, 30.0, 15.0]]), 100.0, 50.0),
+             *touching, *funsd_pages[20:30]]
+    featurizer = WordFeaturizer(["geometry", "text_flags", "char_cnn"],
+                                lexicons={"units": ["mg/kg", "date"]}, line_context=True,
+                                standardize=True).fit(pages[:10])
+    together = featurizer.transform_all(pages)
+    assert [len(block) for block in together] == [len(page) for page in pages]
+    for page, block in zip(pages, together):
+        np.testing.assert_array_equal(block, featurizer.transform(page))
+    plain = WordFeaturizer(["geometry"]).fit(pages)
+    names = list(GEOMETRY_NAMES)
+    for page, block in zip(pages, plain.transform_all(pages)):
+        x0, y0, x1, y1 = np.clip(page.boxes, 0, [page.width, page.height] * 2).T
+        cx, cy, height = (x0 + x1) / 2, (y0 + y1) / 2, y1 - y0
+        real = height[height > 1e-3 * page.height]           # SIZE_FLOOR of the page height
+        median = np.median(real) if len(real) else 1e-3 * page.height
+        n = len(page)
+        expected = {
+            "block_x": (cx - x0.min()) / max(x1.max() - x0.min(), 1e-3 * page.width),
+            "rank_x": (rankdata(cx) - 1) / (n - 1) if n > 1 else [0.5],
+            "rank_y": (rankdata(cy) - 1) / (n - 1) if n > 1 else [0.5],
+            "log_rel_height": np.clip(np.log(np.maximum(height, 1e-3 * page.height) / median),
+                                      -6, 6)}
+        for name, values in expected.items():
+            np.testing.assert_allclose(block[:, names.index(name)], values, rtol=1e-6,
+                                       atol=1e-7, err_msg=f"{page.key} {name}")
+    chars = featurizer.char_ids_all(pages)
+    for page, ids in zip(pages, chars):
+        np.testing.assert_array_equal(ids, featurizer.char_ids(page))

@@ -53,15 +53,17 @@ def to_graphs(page_set: PageSet, featurizer: WordFeaturizer,
               label_index: dict[str, int] | None) -> list[Data]:
     """One graph per page; node targets ``y`` when ``label_index`` is given."""
     graphs = []
-    for page, edges in zip(page_set.pages, page_set.edges):
-        data = Data(x=torch.from_numpy(featurizer.transform(page)),
+    features = featurizer.transform_all(page_set.pages)
+    chars = featurizer.char_ids_all(page_set.pages) if featurizer.uses_char_cnn else None
+    for index, (page, edges) in enumerate(zip(page_set.pages, page_set.edges)):
+        data = Data(x=torch.from_numpy(features[index]),
                     edge_index=torch.from_numpy(edges.edge_index.astype(np.int64)),
                     edge_type=torch.from_numpy(edges.edge_type.astype(np.int64)),
                     num_nodes=len(page))
         if label_index is not None:
             data.y = torch.from_numpy(label_indices(page, label_index))
         if featurizer.uses_char_cnn:
-            data.chars = torch.from_numpy(featurizer.char_ids(page))
+            data.chars = torch.from_numpy(chars[index])
         edge_attr = getattr(edges, "edge_attr", None)
         if edge_attr is not None:
             data.edge_attr = torch.from_numpy(np.asarray(edge_attr, dtype=np.float32))
@@ -80,8 +82,9 @@ def to_matrix(page_set: PageSet, featurizer: WordFeaturizer, *, hash_features: i
     from dochar.models.baselines import edge_attr_aggregates, neighbour_aggregates
 
     blocks = []
-    for page, edges in zip(page_set.pages, page_set.edges):
-        parts = [featurizer.transform(page)]
+    features = featurizer.transform_all(page_set.pages)
+    for page, edges, own in zip(page_set.pages, page_set.edges, features):
+        parts = [own]
         if featurizer.uses_char_cnn:
             parts.append(char_ngram_hashes(page.texts, n_features=hash_features))
         if featurizer.uses_crop_cnn and "page_image" not in featurizer.groups:
