@@ -262,3 +262,14 @@ def test_features_of_all_pages_at_once_are_each_pages_own(funsd_pages):
     chars = featurizer.char_ids_all(pages)
     for page, ids in zip(pages, chars):
         np.testing.assert_array_equal(ids, featurizer.char_ids(page))
+
+
+def test_a_run_of_one_label_stops_where_the_document_changes_on_the_same_page_number():
+    """Worked by hand: two documents' first pages, one ``cert_no`` word each: two fields."""
+    words = pd.DataFrame([("d", 1, 0, "B7", 10, 10, 20, 20, "cert_no", 0.6),
+                          ("e", 1, 0, "C9", 10, 10, 20, 20, "cert_no", 0.7)],
+                         columns=["doc_id", "page", "word_id", "text", "x0", "y0", "x1", "y1",
+                                  "predicted", "probability"])
+    found = fields(words, ignore=["other"])
+    assert found[["doc_id", "text", "word_ids"]].values.tolist() == [["d", "B7", "0"],
+                                                                     ["e", "C9", "0"]]

@@ -285,14 +285,26 @@ class SavedModel:
                               **{k: columns[k] for k in BOX_COLUMNS}})
         if all(page.labels is not None for page in words):
             found["label"] = [label for page in words for label in page.labels]
-        found = found.merge(decoded, on=["doc_id", "page", "word_id"], how="left",
-                            validate="one_to_one")
+        found = _join_on_words(found, decoded, validate="one_to_one")
         if task.nodes_are_word_labels:   # the runners-up are word labels too
             runners_up = node_frame.drop(columns=["label", "predicted", "confidence", "x0", "y0",
                                                   "x1", "y1"])
-            found = found.merge(runners_up,
-                                on=["doc_id", "page", "word_id"], how="left")
+            found = _join_on_words(found, runners_up)
         return found.rename(columns={"confidence": "probability"})
+
+
+WORD_KEYS = ["doc_id", "page", "word_id"]
+
+
+def _join_on_words(words: pd.DataFrame, found: pd.DataFrame, **options: Any) -> pd.DataFrame:
+    """``words.merge(found, on=WORD_KEYS, how="left")``; when ``found`` holds the same words in
+    the same order (one node per word), its columns are set beside them instead of matched."""
+    aligned = (len(words) == len(found) and not (set(words) & set(found)) - set(WORD_KEYS)
+               and all(np.array_equal(words[key].to_numpy(), found[key].to_numpy())
+                       for key in WORD_KEYS))
+    if not aligned:
+        return words.merge(found, on=WORD_KEYS, how="left", **options)
+    return pd.concat([words, found.drop(columns=WORD_KEYS).set_axis(words.index)], axis=1)
 
 
 def page_columns(pages: Sequence[Page]) -> dict[str, np.ndarray]:
