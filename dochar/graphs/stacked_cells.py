@@ -54,18 +54,19 @@ class StackedCells:
         once, grouped by query position in ascending order (``CellIndex.boxes_in``)."""
         page = self.page[boxes]
         rows_each = high[:, 1] - low[:, 1] + 1
-        query = np.repeat(np.arange(len(low)), rows_each)
+        query = np.repeat(np.arange(len(low)), rows_each)       # one per window row
         offset = _positions_within(rows_each)
-        row_base = self.first_cell[page[query]] + (low[query, 1] + offset) * self.shape[
-            page[query], 0]
-        first = self.start[row_base + low[query, 0]]
-        counts = self.start[row_base + high[query, 0] + 1] - first
+        left = low[:, 0][query]
+        row_base = (np.repeat(self.first_cell[page], rows_each)
+                    + (np.repeat(low[:, 1], rows_each) + offset)
+                    * np.repeat(self.shape[page, 0], rows_each))
+        first = self.start[row_base + left]
+        counts = self.start[row_base + high[:, 0][query] + 1] - first
         entry = np.repeat(first - _exclusive_cumsum(counts), counts) + np.arange(int(counts.sum()))
-        window_top = np.repeat(offset == 0, counts)
-        query = np.repeat(query, counts)
-        once = ((self.entry_leftmost[entry] | (self.entry_column[entry] == low[query, 0]))
-                & (self.entry_topmost[entry] | window_top))
-        return query[once], self.entry_box[entry[once]]
+        once = ((self.entry_leftmost[entry] | (self.entry_column[entry]
+                                               == np.repeat(left, counts)))
+                & (self.entry_topmost[entry] | np.repeat(offset == 0, counts)))
+        return np.repeat(query, counts)[once], self.entry_box[entry[once]]
 
 
 def stacked_cells(boxes: np.ndarray, starts: np.ndarray) -> StackedCells:
