@@ -29,6 +29,7 @@ from dochar.data.sources import load_data
 from dochar.data.word_table import Page, iter_pages, validate_word_table
 from dochar.features import WordFeaturizer
 from dochar.features.geometry import GEOMETRY_NAMES
+from dochar.metrics.entities import reading_order as entity_reading_order
 from dochar.models.builders import build_gnn, gnn_arguments
 from dochar.models.fit import FittedModel
 from dochar.models.inputs import PageSet, to_graphs
@@ -273,3 +274,11 @@ def test_a_run_of_one_label_stops_where_the_document_changes_on_the_same_page_nu
     found = fields(words, ignore=["other"])
     assert found[["doc_id", "text", "word_ids"]].values.tolist() == [["d", "B7", "0"],
                                                                      ["e", "C9", "0"]]
+
+
+def test_the_reading_order_of_a_frame_goes_document_by_document_page_by_page():
+    """Worked by hand: rows of (b, 2), (a, 10), (b, 1), (a, 9) and one row without a document
+    (not read); each page one word, so the order is that of the sorted (doc_id, page) keys."""
+    frame = pd.DataFrame({"doc_id": ["b", "a", "b", "a", None], "page": [2, 10, 1, 9, 1],
+                          "x0": 0.0, "y0": 0.0, "x1": 5.0, "y1": 5.0})
+    assert entity_reading_order(frame).tolist() == [3, 1, 2, 0]
