@@ -18,6 +18,7 @@ import pytest
 import torch
 from hydra import compose, initialize_config_dir
 from omegaconf import OmegaConf
+from torch_geometric.data import Batch
 from scipy.sparse import csr_matrix
 from scipy.sparse.csgraph import connected_components
 from scipy.stats import rankdata
@@ -32,7 +33,7 @@ from dochar.features.geometry import GEOMETRY_NAMES
 from dochar.metrics.entities import reading_order as entity_reading_order
 from dochar.models.builders import build_gnn, gnn_arguments
 from dochar.models.fit import FittedModel
-from dochar.models.inputs import PageSet, to_graphs
+from dochar.models.inputs import PageSet, stacked_graph, to_graphs
 from dochar.models.saved import load_model, save_model
 from dochar.models.training import predict_proba
 from dochar.predict import fields, label_table
@@ -282,3 +283,18 @@ def test_the_reading_order_of_a_frame_goes_document_by_document_page_by_page():
     frame = pd.DataFrame({"doc_id": ["b", "a", "b", "a", None], "page": [2, 10, 1, 9, 1],
                           "x0": 0.0, "y0": 0.0, "x1": 5.0, "y1": 5.0})
     assert entity_reading_order(frame).tolist() == [3, 1, 2, 0]
+
+
+def test_the_stacked_graph_holds_the_tensors_of_the_batched_page_graphs(funsd_pages):
+    """Oracle: torch-geometric's ``Batch.from_data_list`` over the per-page graphs (node ids
+    offset page by page), with edge attributes and char ids present."""
+    pages = funsd_pages[:12]
+    builder = graphs.from_config({"name": "knn", "options": {"k": 4}, "self_loops": True},
+                                 {"groups": ["offsets", "distance"]})
+    page_set = PageSet.build(pages, builder)
+    featurizer = WordFeaturizer(["geometry", "text_flags", "char_cnn"]).fit(pages)
+    batch = Batch.from_data_list(to_graphs(page_set, featurizer, None))
+    stacked = stacked_graph(page_set, featurizer)
+    assert stacked.num_nodes == batch.num_nodes == sum(len(p) for p in pages)
+    for name in ("x", "edge_index", "edge_type", "chars", "edge_attr"):
+        assert torch.equal(getattr(stacked, name), getattr(batch, name)), name

@@ -73,6 +73,29 @@ def to_graphs(page_set: PageSet, featurizer: WordFeaturizer,
     return graphs
 
 
+def stacked_graph(page_set: PageSet, featurizer: WordFeaturizer) -> Data:
+    """All pages as one graph, nodes laid end to end (a page's node ids offset by the nodes
+    before it; no edge crosses a page): the tensors ``Batch.from_data_list(to_graphs(...))``
+    holds, without a graph object per page (what prediction feeds the model)."""
+    pages, edges = page_set.pages, page_set.edges
+    starts = np.cumsum([0] + [len(page) for page in pages])[:-1]
+    data = Data(x=torch.from_numpy(np.concatenate(featurizer.transform_all(pages))),
+                edge_index=torch.from_numpy(np.concatenate(
+                    [e.edge_index.astype(np.int64) + start for e, start in zip(edges, starts)],
+                    axis=1)),
+                edge_type=torch.from_numpy(np.concatenate(
+                    [e.edge_type.astype(np.int64) for e in edges])),
+                num_nodes=int(sum(len(page) for page in pages)))
+    if featurizer.uses_char_cnn:
+        data.chars = torch.from_numpy(np.concatenate(featurizer.char_ids_all(pages)))
+    if edges and getattr(edges[0], "edge_attr", None) is not None:
+        data.edge_attr = torch.from_numpy(np.concatenate(
+            [np.asarray(e.edge_attr, dtype=np.float32) for e in edges]))
+    if featurizer.uses_crop_cnn:
+        data.crops = torch.from_numpy(np.concatenate([featurizer.crops(p) for p in pages]))
+    return data
+
+
 def to_matrix(page_set: PageSet, featurizer: WordFeaturizer, *, hash_features: int,
               neighbour_features: bool) -> np.ndarray:
     """Per-word rows for a baseline; hashed n-grams stand in for the char CNN, the

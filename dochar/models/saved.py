@@ -44,7 +44,7 @@ from dochar.errors import DocharError
 from dochar.features import CHAR_VOCAB, WordFeaturizer
 from dochar.models.builders import build_gnn, build_template
 from dochar.models.fit import FittedModel
-from dochar.models.inputs import PageSet, to_graphs, to_matrix
+from dochar.models.inputs import PageSet, stacked_graph, to_graphs, to_matrix
 from dochar.graphs.candidates import CandidateOptions
 from dochar.models.objectives import NodeClasses, PairLinks
 from dochar.models.pairs import PageCandidates, page_candidates, pair_matrix, with_pairs
@@ -225,9 +225,12 @@ class SavedModel:
                                   "nodes; dochar predict labels nodes (word, tag or segment "
                                   "models)")
         page_set = PageSet.build(pages, self.builder)
-        if self.kind == "gnn":
-            return NodeClasses(len(self.labels)).outputs(
-                self.model, to_graphs(page_set, self.featurizer, None))
+        if self.kind == "gnn" and not pages:
+            return []
+        if self.kind == "gnn":   # one graph of all pages: the model's rows, cut per page
+            whole, = NodeClasses(len(self.labels)).outputs(
+                self.model, [stacked_graph(page_set, self.featurizer)])
+            return np.split(whole, np.cumsum([len(page) for page in pages])[:-1])
         if self.kind == "template":
             found = self.model.predict_proba(page_set.pages)
             return np.split(found, np.cumsum([len(page) for page in pages])[:-1])
