@@ -283,11 +283,12 @@ class SavedModel:
         node_frame = node_predictions(nodes, probabilities, self.labels)
         decoded = task.word_predictions(nodes, node_frame).drop(columns=["label"])
         columns = page_columns(words)
+        labelled = all(page.labels is not None for page in words)
         found = pd.DataFrame({**{k: columns[k] for k in ("doc_id", "page", "word_id")},
                               "text": [text for page in words for text in page.texts],
-                              **{k: columns[k] for k in BOX_COLUMNS}})
-        if all(page.labels is not None for page in words):
-            found["label"] = [label for page in words for label in page.labels]
+                              **{k: columns[k] for k in BOX_COLUMNS},
+                              **({"label": [label for page in words for label in page.labels]}
+                                 if labelled else {})})
         found = _join_on_words(found, decoded, validate="one_to_one")
         if task.nodes_are_word_labels:   # the runners-up are word labels too
             runners_up = node_frame.drop(columns=["label", "predicted", "confidence", "x0", "y0",
@@ -325,16 +326,17 @@ def node_predictions(pages: Sequence[Page], probabilities: Sequence[np.ndarray],
                      labels: Sequence[str]) -> pd.DataFrame:
     """One row per node with its box: the best class (``predicted``, ``confidence``) and the
     next two."""
-    frame = pd.DataFrame({**page_columns(pages), "label": ""})
+    columns: dict[str, Any] = {**page_columns(pages)}
+    columns["label"] = ""
     proba = np.concatenate(list(probabilities))
     best = np.argsort(-proba, axis=1, kind="stable")[:, :TOP]
     names = np.asarray(labels, dtype=object)
     for rank in range(best.shape[1]):
         name, chance = (("predicted", "confidence") if rank == 0 else
                         (f"top{rank + 1}", f"top{rank + 1}_probability"))
-        frame[name] = names[best[:, rank]].tolist()
-        frame[chance] = np.take_along_axis(proba, best[:, rank:rank + 1], axis=1)[:, 0]
-    return frame
+        columns[name] = names[best[:, rank]].tolist()
+        columns[chance] = np.take_along_axis(proba, best[:, rank:rank + 1], axis=1)[:, 0]
+    return pd.DataFrame(columns)   # one frame built whole, not a column added at a time
 
 
 def find_unit(path: str | Path) -> Path:
