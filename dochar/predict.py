@@ -161,33 +161,41 @@ def fields(words: pd.DataFrame, ignore: Sequence[str]) -> pd.DataFrame:
     consecutive same-label words in reading order (the entity rule of
     :mod:`dochar.metrics.entities`: a new page or a new label starts a run); labels in
     ``ignore`` are no field. Computed on whole columns: one sort, then one reduction per
-    column over the fields' member rows."""
-    ordered = words.iloc[reading_order(words)].reset_index(drop=True)
-    predicted = ordered["predicted"].astype(str).to_numpy(dtype=object)
+    column over the fields' member rows (arrays, not frames)."""
+    order = reading_order(words)
+    column = {name: words[name].to_numpy()[order] for name in ("doc_id", "page", "word_id",
+                                                                "x0", "y0", "x1", "y1",
+                                                                "probability")}
+    texts_in_order = words["text"].to_numpy()[order]
+    predicted = words["predicted"].astype(str).to_numpy(dtype=object)[order]
     kept = ~np.isin(predicted, list(ignore))
-    if "entity" in ordered:
-        kept &= (ordered["entity"].fillna("") != "").to_numpy()
-        group = ordered[kept].groupby(["doc_id", "page", "entity"], sort=False).ngroup()
-        members = np.flatnonzero(kept)[np.argsort(group.to_numpy(), kind="stable")]
-        starts = np.flatnonzero(np.diff(np.sort(group.to_numpy()), prepend=-1))
-    else:
-        page = ordered.groupby(["doc_id", "page"], sort=False).ngroup().to_numpy()
-        new_run = np.ones(len(ordered), dtype=bool)
-        new_run[1:] = (page[1:] != page[:-1]) | (predicted[1:] != predicted[:-1])
+    if "entity" in words:
+        kept &= (words["entity"].fillna("") != "").to_numpy()[order]
+        group = pd.DataFrame({name: values[kept] for name, values in (
+            ("doc_id", column["doc_id"]), ("page", column["page"]),
+            ("entity", words["entity"].to_numpy()[order]))}).groupby(
+            ["doc_id", "page", "entity"], sort=False).ngroup().to_numpy()
+        members = np.flatnonzero(kept)[np.argsort(group, kind="stable")]
+        starts = np.flatnonzero(np.diff(np.sort(group), prepend=-1))
+    else:   # reading order keeps each page's words together: a page starts where a key changes
+        doc, page = column["doc_id"], column["page"]
+        new_run = np.ones(len(order), dtype=bool)
+        new_run[1:] = ((doc[1:] != doc[:-1]) | (page[1:] != page[:-1])
+                       | (predicted[1:] != predicted[:-1]))
         members = np.flatnonzero(kept)
         starts = np.flatnonzero(new_run[members])
     if len(members) == 0:
         return pd.DataFrame(columns=FIELD_COLUMNS)
     ends = np.append(starts[1:], len(members))
-    part = ordered.iloc[members]
-    texts, ids = part["text"].tolist(), list(map(str, part["word_id"].tolist()))
-    first = part.iloc[starts]
-    lowest = np.minimum.reduceat(part["probability"].to_numpy(), starts)
+    texts = texts_in_order[members].tolist()
+    ids = list(map(str, column["word_id"][members].tolist()))
+    heads = members[starts]
+    lowest = np.minimum.reduceat(column["probability"][members], starts)
     return pd.DataFrame({
-        "doc_id": first["doc_id"].to_numpy(), "page": first["page"].astype(int).to_numpy(),
-        "label": predicted[members[starts]].tolist(),
+        "doc_id": column["doc_id"][heads], "page": column["page"][heads].astype(int),
+        "label": predicted[heads].tolist(),
         "text": [" ".join(texts[a:b]) for a, b in zip(starts, ends)],
-        **{name: np.round(reduce.reduceat(part[name].to_numpy(), starts), 2)
+        **{name: np.round(reduce.reduceat(column[name][members], starts), 2)
            for name, reduce in (("x0", np.minimum), ("y0", np.minimum), ("x1", np.maximum),
                                 ("y1", np.maximum))},
         "probability": [round(float(value), 4) for value in lowest],

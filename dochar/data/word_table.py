@@ -15,9 +15,9 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
-from scipy.sparse import coo_matrix
-from scipy.sparse.csgraph import connected_components
 
+# the line rule lives in dochar.data.lines; its names stay importable from here
+from dochar.data.lines import LINE_OVERLAP, line_ids, line_segments, reading_order  # noqa: F401
 from dochar.errors import DocharError
 
 REQUIRED_COLUMNS: tuple[str, ...] = (
@@ -27,8 +27,6 @@ OPTIONAL_COLUMNS: tuple[str, ...] = ("label", "entity_id", "layout_id", "split",
 PAGE_IMAGE = "page_image"   # path of the page's image (or PDF); relative to the table's folder
 COORDINATE_COLUMNS: tuple[str, ...] = ("x0", "y0", "x1", "y1", "page_width", "page_height")
 BOX_TOLERANCE = 0.5  # page units a box may overhang the page edge (scanner rounding)
-LINE_OVERLAP = 0.5   # share of the smaller height two words must overlap by to share a line
-PAIR_CELLS = 2_000_000  # word x word cells compared at once when grouping lines
 MAX_PAGE_SIZE = 1e6  # page units; beyond this a size is a unit mix-up, not a page
 MAX_ID = 1e9         # largest page number or word id (keeps int64 casts exact)
 
@@ -406,70 +404,3 @@ def table_fingerprint(table: pd.DataFrame) -> str:
     """A content hash of a word table: equal tables give equal fingerprints across runs."""
     rows = pd.util.hash_pandas_object(table.sort_index(axis=1), index=False).to_numpy()
     return hashlib.sha256(rows.tobytes()).hexdigest()[:16]
-
-
-def line_ids(boxes: np.ndarray) -> np.ndarray:
-    """Line of each box: the connected components of "y-ranges overlap by at least half the
-    smaller height" (a flat box joins a line its y lies within), so a skewed line holds together.
-    """
-    boxes = np.asarray(boxes, dtype=np.float64).reshape(-1, 4)
-    n = len(boxes)
-    y0, y1 = boxes[:, 1], boxes[:, 3]
-    height = y1 - y0
-    rows, cols = [np.zeros(0, np.int64)], [np.zeros(0, np.int64)]
-    step = max(1, PAIR_CELLS // max(n, 1))
-    for start in range(0, n, step):
-        block = slice(start, min(n, start + step))
-        overlap = np.minimum(y1[block, None], y1[None, :]) - np.maximum(y0[block, None], y0[None, :])
-        smaller = np.minimum(height[block, None], height[None, :])
-        r, c = np.nonzero((overlap >= 0) & (overlap >= LINE_OVERLAP * smaller))
-        rows.append(r + start)
-        cols.append(c)
-    r, c = np.concatenate(rows), np.concatenate(cols)
-    graph = coo_matrix((np.ones(len(r), dtype=np.int8), (r, c)), shape=(n, n))
-    return connected_components(graph, directed=False)[1]
-
-
-def reading_order(boxes: np.ndarray, word_ids: np.ndarray | None = None) -> np.ndarray:
-    """Positions of the boxes in reading order: dochar's one definition of it.
-
-    Lines (:func:`line_ids`) are read top to bottom by the mean y of their word centres, words
-    within a line left to right by centre x; remaining ties go to the smaller ``word_id`` (the
-    position when none is given). Multi-column text is read across the columns, line by line
-    (a known limit of this rule).
-    """
-    boxes = np.asarray(boxes, dtype=np.float64).reshape(-1, 4)
-    n = len(boxes)
-    if n == 0:
-        return np.zeros(0, dtype=np.int64)
-    ids = np.arange(n) if word_ids is None else np.asarray(word_ids)
-    rank = np.empty(n, dtype=np.int64)
-    rank[np.argsort(ids, kind="stable")] = np.arange(n)
-    centre_x, centre_y = (boxes[:, 0] + boxes[:, 2]) / 2, (boxes[:, 1] + boxes[:, 3]) / 2
-    line = line_ids(boxes)
-    count = np.bincount(line)
-    line_y = np.bincount(line, weights=centre_y) / count
-    line_first = np.full(len(count), n, dtype=np.int64)
-    np.minimum.at(line_first, line, rank)
-    line_pos = np.empty(len(count), np.int64)
-    line_pos[np.lexsort((line_first, line_y))] = np.arange(len(count))
-    return np.lexsort((rank, centre_x, line_pos[line]))
-
-
-def line_segments(boxes: np.ndarray, word_ids: np.ndarray | None = None, *,
-                  max_gap: float = 1.0) -> np.ndarray:
-    """Segment id of each box: a reading-order line cut wherever the horizontal gap between
-    neighbouring words exceeds ``max_gap`` times the median word height of the page (an OCR
-    engine's text lines stop at column gaps the same way). Ids follow reading order from 0.
-    """
-    boxes = np.asarray(boxes, dtype=np.float64).reshape(-1, 4)
-    order = reading_order(boxes, word_ids)
-    segment = np.zeros(len(boxes), dtype=np.int64)
-    if len(order) < 2:
-        return segment
-    line = line_ids(boxes)[order]
-    gap = boxes[order[1:], 0] - boxes[order[:-1], 2]
-    height = float(np.median(boxes[:, 3] - boxes[:, 1]))
-    cut = (line[1:] != line[:-1]) | (gap > max_gap * max(height, 1e-9))
-    segment[order] = np.concatenate([[0], np.cumsum(cut)])
-    return segment

@@ -32,7 +32,7 @@ from dochar.features.context import (
     line_texts,
     pool_members,
 )
-from dochar.features.geometry import GEOMETRY_NAMES, geometry_features
+from dochar.features.geometry import GEOMETRY_NAMES, geometry_features_of_pages
 from dochar.features.lexicons import compile_lexicons, lexicon_features
 from dochar.features.options import FeatureOptionError
 from dochar.features.page_image import PAGE_IMAGE_NAMES, PageImageReader
@@ -205,6 +205,23 @@ class WordFeaturizer:
             raw = ((raw - self.mean_) / self.scale_).astype(np.float32)
         return raw
 
+    def transform_all(self, pages: Sequence[Page]) -> list[np.ndarray]:
+        """:meth:`transform` of every page, the per-word groups computed for all pages at once
+        (the same rows as page by page)."""
+        if not self.fitted_:
+            raise RuntimeError("WordFeaturizer.transform called before fit")
+        if self.pool_words:      # a segment page pools its own words: page by page
+            return [self.transform(page) for page in pages]
+        raw = self._own_all(pages)
+        if self.standardize:
+            raw = ((raw - self.mean_) / self.scale_).astype(np.float32)
+        return np.split(raw, np.cumsum([len(page) for page in pages])[:-1])
+
+    def char_ids_all(self, pages: Sequence[Page]) -> list[np.ndarray]:
+        """:meth:`char_ids` of every page, in one pass."""
+        ids = char_ids([text for page in pages for text in page.texts], self.max_chars)
+        return np.split(ids, np.cumsum([len(page) for page in pages])[:-1])
+
     def fit_transform(self, pages: Sequence[Page]) -> list[np.ndarray]:
         self.fit(pages)
         return [self.transform(page) for page in pages]
@@ -234,22 +251,34 @@ class WordFeaturizer:
         return np.concatenate([own, pooled], axis=1)
 
     def _own(self, page: Page) -> np.ndarray:
-        check_page(page)
-        blocks = [np.zeros((len(page), 0), dtype=np.float32)]
+        return self._own_all([page])
+
+    def _own_all(self, pages: Sequence[Page]) -> np.ndarray:
+        """The own columns of pages laid end to end: geometry and text groups over all words at
+        once, the groups that read a page as a whole (image, line context) page by page."""
+        for page in pages:
+            check_page(page)
+        texts = [text for page in pages for text in page.texts]
+        blocks = [np.zeros((len(texts), 0), dtype=np.float32)]
         if "geometry" in self.groups:
-            blocks.append(geometry_features(page))
+            blocks.append(geometry_features_of_pages(pages))
         if "text_flags" in self.groups:
-            blocks.append(text_flag_features(page.texts))
-            blocks.append(lexicon_features(page.texts, self.lexicons))
+            blocks.append(text_flag_features(texts))
+            blocks.append(lexicon_features(texts, self.lexicons))
         if self.embedder is not None:
-            blocks.append(self.embedder(page.texts))
+            blocks.append(self._per_page(pages, lambda page: self.embedder(page.texts)))
         if "page_image" in self.groups:
-            blocks.append(self.images(page).features)
+            blocks.append(self._per_page(pages, lambda page: self.images(page).features))
         if self.line_context:
-            blocks.append(line_context_features(page))
+            blocks.append(self._per_page(pages, line_context_features))
             if self.embedder is not None:
-                blocks.append(self.embedder(line_texts(page)))
+                blocks.append(self._per_page(pages,
+                                             lambda page: self.embedder(line_texts(page))))
         return np.concatenate(blocks, axis=1)
+
+    @staticmethod
+    def _per_page(pages: Sequence[Page], block) -> np.ndarray:
+        return np.concatenate([block(page) for page in pages])
 
 
 def _cache_option(value: object) -> str | None:

@@ -12,6 +12,8 @@ Repairs, applied so every value is finite:
 
 from __future__ import annotations
 
+from collections.abc import Sequence
+
 import numpy as np
 
 from dochar.data.word_table import Page
@@ -32,28 +34,41 @@ SIZE_FLOOR = 1e-3   # fraction of the page side below which a box side counts as
 LOG_CLIP = 6.0      # |log ratio| cap: e^6 ~ 400, past any real word shape
 
 
-def _scaled_ranks(values: np.ndarray) -> np.ndarray:
-    """Average ranks (ties share) mapped to [0, 1]; one word sits in the middle. The same
-    numbers as ``(scipy.stats.rankdata(values) - 1) / (n - 1)``, without its per-call cost."""
-    n = len(values)
-    if n < 2:
-        return np.full(n, 0.5)
-    order = np.argsort(values, kind="stable")
-    ordered = values[order]
-    starts = np.flatnonzero(np.r_[True, ordered[1:] != ordered[:-1]])
-    counts = np.diff(np.r_[starts, n])
-    ranks = np.empty(n)
-    ranks[order] = np.repeat(starts + (counts - 1) / 2.0, counts)   # 0-based average rank
-    return ranks / (n - 1.0)
+def _scaled_ranks(values: np.ndarray, page: np.ndarray, starts: np.ndarray) -> np.ndarray:
+    """Average ranks within each page (ties share) mapped to [0, 1]; a page's one word sits in
+    the middle. The same numbers as ``(scipy.stats.rankdata(v) - 1) / (n - 1)`` on each page's
+    values ``v``, all pages in one sort."""
+    n = np.diff(starts)[page]                                  # words on each word's page
+    order = np.lexsort((values, page))
+    ordered, ordered_page = values[order], page[order]
+    run = np.r_[True, (ordered[1:] != ordered[:-1]) | (ordered_page[1:] != ordered_page[:-1])]
+    heads = np.flatnonzero(run)
+    counts = np.diff(np.r_[heads, len(values)])
+    ranks = np.empty(len(values))
+    # 0-based average rank within the page
+    ranks[order] = np.repeat(heads - starts[ordered_page[heads]] + (counts - 1) / 2.0, counts)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(n < 2, 0.5, ranks / (n - 1.0))
 
 
 def geometry_features(page: Page) -> np.ndarray:
     """(n_words, len(GEOMETRY_NAMES)) float32 geometry block for one page."""
-    width, height = float(page.width), float(page.height)
-    n = len(page)
-    if n == 0:
+    return geometry_features_of_pages([page])
+
+
+def geometry_features_of_pages(pages: Sequence[Page]) -> np.ndarray:
+    """The geometry blocks of pages laid end to end: one row per word, each page scaled by its
+    own size and words (the same numbers as page by page), every column in one pass."""
+    pages = [page for page in pages if len(page)]
+    if not pages:
         return np.zeros((0, len(GEOMETRY_NAMES)), dtype=np.float32)
-    boxes = np.asarray(page.boxes, dtype=np.float64)
+    sizes = np.array([len(page) for page in pages])
+    starts = np.r_[0, np.cumsum(sizes)]
+    heads = starts[:-1]
+    page = np.repeat(np.arange(len(pages)), sizes)
+    width = np.repeat(np.array([float(p.width) for p in pages]), sizes)
+    height = np.repeat(np.array([float(p.height) for p in pages]), sizes)
+    boxes = np.concatenate([np.asarray(p.boxes, dtype=np.float64).reshape(-1, 4) for p in pages])
     x0 = np.clip(boxes[:, 0], 0.0, width)
     x1 = np.clip(boxes[:, 2], 0.0, width)
     y0 = np.clip(boxes[:, 1], 0.0, height)
@@ -61,11 +76,11 @@ def geometry_features(page: Page) -> np.ndarray:
     box_w, box_h = x1 - x0, y1 - y0
     floor_w, floor_h = SIZE_FLOOR * width, SIZE_FLOOR * height
     safe_w, safe_h = np.maximum(box_w, floor_w), np.maximum(box_h, floor_h)
-    real_heights = box_h[box_h > floor_h]
-    median_h = float(np.median(real_heights)) if len(real_heights) else floor_h
+    median_h = _median_above_floor(box_h, floor_h, page, len(pages))[page]
     cx, cy = (x0 + x1) / 2.0, (y0 + y1) / 2.0
-    block_w = max(float(x1.max() - x0.min()), floor_w)
-    block_h = max(float(y1.max() - y0.min()), floor_h)
+    left, top = np.minimum.reduceat(x0, heads)[page], np.minimum.reduceat(y0, heads)[page]
+    block_w = np.maximum(np.maximum.reduceat(x1, heads)[page] - left, floor_w)
+    block_h = np.maximum(np.maximum.reduceat(y1, heads)[page] - top, floor_h)
     nw, nh = box_w / width, box_h / height
     columns = [
         x0 / width, y0 / height, x1 / width, y1 / height,
@@ -74,9 +89,29 @@ def geometry_features(page: Page) -> np.ndarray:
         np.clip(np.log(safe_w / safe_h), -LOG_CLIP, LOG_CLIP),
         np.sqrt(nw * nh),
         1.0 - x1 / width, 1.0 - y1 / height,
-        (cx - x0.min()) / block_w, (cy - y0.min()) / block_h,
-        _scaled_ranks(cx), _scaled_ranks(cy),
+        (cx - left) / block_w, (cy - top) / block_h,
+        _scaled_ranks(cx, page, starts), _scaled_ranks(cy, page, starts),
         np.clip(np.log(safe_h / median_h), -LOG_CLIP, LOG_CLIP),
         np.clip(np.log(safe_w / median_h), -LOG_CLIP, LOG_CLIP),
     ]
     return np.column_stack(columns).astype(np.float32)
+
+
+def _median_above_floor(heights: np.ndarray, floor: np.ndarray, page: np.ndarray,
+                        pages: int) -> np.ndarray:
+    """Per page, ``np.median`` of the heights above the floor (the middle value, or the mean of
+    the two middle ones); the page's floor when none is."""
+    real = heights > floor
+    kept, kept_page = heights[real], page[real]
+    order = np.lexsort((kept, kept_page))
+    kept = kept[order]
+    counts = np.bincount(kept_page, minlength=pages)
+    first = np.r_[0, np.cumsum(counts)[:-1]]
+    page_floor = np.zeros(pages)
+    page_floor[page] = floor
+    lower = kept[np.minimum(first + (counts - 1) // 2, max(len(kept) - 1, 0))] if len(kept) \
+        else np.zeros(pages)
+    upper = kept[np.minimum(first + counts // 2, max(len(kept) - 1, 0))] if len(kept) \
+        else np.zeros(pages)
+    middle = np.where(counts % 2 == 1, lower, (lower + upper) / 2)
+    return np.where(counts > 0, middle, page_floor)

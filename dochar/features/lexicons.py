@@ -86,10 +86,12 @@ def compile_lexicons(lexicons: Mapping[str, Sequence[str]] | None) -> dict[str, 
 
 
 def lexicon_features(texts: Sequence[str], compiled: Mapping[str, frozenset[str]]) -> np.ndarray:
-    """(n_words, n_lists) float32 of 0/1 membership, columns in the mapping's order."""
-    out = np.zeros((len(texts), len(compiled)), dtype=np.float32)
+    """(n_words, n_lists) float32 of 0/1 membership, columns in the mapping's order; each
+    distinct string is looked up once."""
+    distinct = {text: row for row, text in enumerate(dict.fromkeys(texts))}
+    found = np.zeros((len(distinct), len(compiled)), dtype=np.float32)
     for column, keys in enumerate(compiled.values()):
-        for row, text in enumerate(texts):
+        for text, row in distinct.items():
             if any(key in keys for key in word_keys(text)):
-                out[row, column] = 1.0
-    return out
+                found[row, column] = 1.0
+    return found[[distinct[text] for text in texts]].reshape(len(texts), len(compiled))

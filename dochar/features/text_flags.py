@@ -116,5 +116,6 @@ def text_flag_features(texts: list[str]) -> np.ndarray:
     """(n_words, len(TEXT_FLAG_NAMES)) float32 block; each distinct string is computed once."""
     if not texts:
         return np.zeros((0, len(TEXT_FLAG_NAMES)), dtype=np.float32)
-    rows = {text: text_flag_row(text) for text in dict.fromkeys(texts)}
-    return np.array([rows[text] for text in texts], dtype=np.float32)
+    distinct = {text: row for row, text in enumerate(dict.fromkeys(texts))}
+    rows = np.array([text_flag_row(text) for text in distinct], dtype=np.float32)
+    return rows[[distinct[text] for text in texts]]

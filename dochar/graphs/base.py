@@ -120,6 +120,23 @@ def make_edges(source: np.ndarray, target: np.ndarray, types: np.ndarray,
     return TypedEdges(np.stack([source, target]), kind, relations)
 
 
+def edges_by_page(source: np.ndarray, target: np.ndarray, types: np.ndarray,
+                  starts: np.ndarray, relations: tuple[str, ...]) -> list[TypedEdges]:
+    """:func:`make_edges` of every page at once: nodes numbered across pages laid end to end
+    (page p holds ``starts[p]`` to ``starts[p + 1] - 1``; no edge crosses a page), one sort of
+    the packed keys, then each page's edges cut out and numbered from 0. For a builder's own
+    output: endpoints and types are taken as valid (``make_edges`` checks them)."""
+    target, source, types = (np.asarray(a, dtype=np.int64).ravel() for a in (target, source, types))
+    nodes, kinds = max(int(starts[-1]), 1), max(len(relations), 1)
+    keys = np.sort((target * nodes + source) * kinds + types)
+    keys = keys[np.r_[True, keys[1:] != keys[:-1]]] if len(keys) else keys
+    pair, kind = np.divmod(keys, kinds)
+    target, source = np.divmod(pair, nodes)
+    cuts = np.searchsorted(target, starts)
+    return [TypedEdges(np.stack([source[a:b] - offset, target[a:b] - offset]), kind[a:b],
+                       relations) for a, b, offset in zip(cuts[:-1], cuts[1:], starts[:-1])]
+
+
 def no_edges(relations: tuple[str, ...]) -> TypedEdges:
     return TypedEdges(np.zeros((2, 0), np.int64), np.zeros(0, np.int64), relations)
 

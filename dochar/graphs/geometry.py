@@ -7,7 +7,7 @@ never by array position, which makes every builder invariant to the order words 
 
 from __future__ import annotations
 
-from collections.abc import Iterator
+from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
 from functools import cached_property
 
@@ -87,3 +87,25 @@ def page_geometry(page: Page, builder: str) -> PageGeometry:
     rank[np.argsort(word_ids, kind="stable")] = np.arange(n)
     centres = np.column_stack([(boxes[:, 0] + boxes[:, 2]) / 2, (boxes[:, 1] + boxes[:, 3]) / 2])
     return PageGeometry(boxes, centres, rank, float(np.hypot(page.width, page.height)))
+
+
+def stacked_geometry(pages: Sequence[Page], builder: str) -> tuple[PageGeometry, np.ndarray]:
+    """The geometry of pages laid end to end, and where each page starts (plus the total):
+    boxes and centres as each page's own, ``rank`` by word id within each page (numbered across
+    the pages, so it orders words of one page as the page's own rank does), no ``diagonal``
+    (NaN: it belongs to a page). A bad box is reported as :func:`page_geometry` reports it."""
+    sizes = [len(page) for page in pages]
+    starts = np.concatenate([[0], np.cumsum(sizes, dtype=np.int64)])
+    boxes = (np.concatenate([np.asarray(page.boxes, dtype=np.float64).reshape(-1, 4)
+                             for page in pages]) if pages else np.zeros((0, 4)))
+    word_ids = (np.concatenate([np.asarray(page.word_ids).reshape(-1) for page in pages])
+                if pages else np.zeros(0, np.int64))
+    if boxes.shape != (starts[-1], 4) or word_ids.shape != (starts[-1],) or \
+            unusable_boxes(boxes).any():
+        for page in pages:
+            page_geometry(page, builder)           # raises, naming the page and the word
+    page = np.repeat(np.arange(len(pages)), sizes)
+    rank = np.empty(len(boxes), dtype=np.int64)
+    rank[np.lexsort((word_ids, page))] = np.arange(len(boxes))
+    centres = np.column_stack([(boxes[:, 0] + boxes[:, 2]) / 2, (boxes[:, 1] + boxes[:, 3]) / 2])
+    return PageGeometry(boxes, centres, rank, float("nan")), starts

@@ -9,11 +9,15 @@ Search: candidates come from a window of grid cells around the target (:mod:`doc
 the window's answer stands once it holds k words nearer than the gap every box outside the window
 must exceed, otherwise that target's window doubles. Near-linear on real pages, exact on any page.
 A page of at most ``DENSE_UP_TO`` words ranks all its pairs at once instead: on a form-sized
-page that is cheaper than building the grid, and the ranking keys are the same.
+page that is cheaper than building the grid, and the ranking keys are the same. Given many
+pages (:meth:`KnnBuilder.build_all`), one search runs over all of them, each page in a grid of
+its own (:mod:`dochar.graphs.stacked_cells`): the same edges as page by page, without a search
+per page.
 """
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import ClassVar
 
@@ -21,9 +25,10 @@ import numpy as np
 
 from dochar.data.word_table import Page
 from dochar.graphs.base import (DIRECTIONS, GraphBuilderError, TypedEdges, direction_codes,
-                                make_edges, no_edges)
+                                edges_by_page, make_edges, no_edges)
 from dochar.graphs.cells import cell_index, order_within_groups
-from dochar.graphs.geometry import PageGeometry, page_geometry
+from dochar.graphs.geometry import PageGeometry, page_geometry, stacked_geometry
+from dochar.graphs.stacked_cells import stacked_cells
 
 DENSE_UP_TO = 200   # words; about where the two searches cost the same on benchmarks/pages.py pages
 
@@ -48,6 +53,21 @@ class KnnBuilder:
         source, target = nearest_words(geo, take)
         dx, dy = (geo.centres[source] - geo.centres[target]).T
         return make_edges(source, target, direction_codes(dx, dy), self.relations)
+
+    def build_all(self, pages: Sequence[Page]) -> list[TypedEdges]:
+        """Every page's edges, as :meth:`__call__` gives them, by one grid search over all
+        pages (:func:`nearest_words_of_pages`); a page of one word has none."""
+        edges = [no_edges(self.relations)] * len(pages)
+        searched = [i for i, page in enumerate(pages) if len(page) > 1]
+        if searched:
+            geo, starts = stacked_geometry([pages[i] for i in searched], self.name)
+            take = np.minimum(int(self.k), np.diff(starts) - 1)
+            source, target = nearest_words_of_pages(geo, starts, take)
+            dx, dy = (geo.centres[source] - geo.centres[target]).T
+            for i, found in zip(searched, edges_by_page(source, target, direction_codes(dx, dy),
+                                                        starts, self.relations)):
+                edges[i] = found
+        return edges
 
 
 def nearest_words(geo: PageGeometry, take: int) -> tuple[np.ndarray, np.ndarray]:
@@ -90,3 +110,35 @@ def nearest_words_all_pairs(geo: PageGeometry, take: int) -> tuple[np.ndarray, n
     first = np.searchsorted(query, np.arange(n))
     kept = np.arange(len(query)) - first[query] < take
     return box[kept], query[kept]
+
+
+
+def nearest_words_of_pages(geo: PageGeometry, starts: np.ndarray, take: np.ndarray
+                           ) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`nearest_words`'s grid search on pages laid end to end (page p: words
+    ``starts[p]`` to ``starts[p + 1] - 1``, ``take[p]`` neighbours each, at least 1): every
+    page's grid of its own, the rounds run for all pages together, each target's window
+    doubling on its own."""
+    grids = stacked_cells(geo.boxes, starts)
+    wanted = np.repeat(take, np.diff(starts))             # per word
+    pending = np.arange(geo.n)
+    reach = grids.first_reach(pending, 2.0)
+    sources, targets = [], []
+    while len(pending):
+        low, high = grids.window(pending, reach)
+        query, box = grids.boxes_in(pending, low, high)
+        gap2, centre2, _, _ = geo.pair_keys(pending[query], box)
+        whole = grids.covers_grid(pending, low, high)
+        usable = (box != pending[query]) & ((gap2 < grids.gap_bound2(pending, reach)[query])
+                                            | whole[query])
+        query, box, gap2, centre2 = query[usable], box[usable], gap2[usable], centre2[usable]
+        order = order_within_groups(query, (gap2, centre2, geo.rank[box]))
+        query, box = query[order], box[order]
+        first = np.searchsorted(query, np.arange(len(pending)))
+        need = wanted[pending]
+        done = whole | (np.bincount(query, minlength=len(pending)) >= need)
+        kept = done[query] & (np.arange(len(query)) - first[query] < need[query])
+        sources.append(box[kept])
+        targets.append(pending[query[kept]])
+        pending, reach = pending[~done], reach[~done] * 2
+    return np.concatenate(sources), np.concatenate(targets)

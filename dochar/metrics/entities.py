@@ -75,16 +75,28 @@ def reading_order(frame: pd.DataFrame, doc_cols: Sequence[str] = ("doc_id", "pag
     missing = [c for c in (*doc_cols, *([order_col] if order_col else [])) if c not in frame]
     if missing:
         raise MetricInputError(f"reading order needs column(s) {missing}")
-    pages = frame.groupby(list(doc_cols), sort=True, observed=True).indices
     if order_col is not None:
+        pages = frame.groupby(list(doc_cols), sort=True, observed=True).indices
         keys = frame[order_col].to_numpy()
         return np.concatenate([rows[np.argsort(keys[rows], kind="stable")]
                                for rows in pages.values()])
     box_cols = ["x0", "y0", "x1", "y1"]
     if any(c not in frame for c in box_cols):
         raise MetricInputError(f"reading order needs box columns {box_cols} or an order_col")
-    boxes = frame[box_cols].to_numpy(dtype=float)
-    return np.concatenate([rows[line_order(boxes[rows])] for rows in pages.values()])
+    page = _sorted_key_codes(frame, doc_cols)
+    rows = np.flatnonzero(page >= 0)                # rows without a page key have no place
+    boxes = frame[box_cols].to_numpy(dtype=float)[rows]
+    return rows[word_table_reading_order(boxes, page=page[rows])]   # all pages in one pass
+
+
+def _sorted_key_codes(frame: pd.DataFrame, columns: Sequence[str]) -> np.ndarray:
+    """A number per row that orders rows as their keys sort (column by column, as a sorted
+    ``groupby`` numbers its groups); -1 where a key is missing."""
+    code = np.zeros(len(frame), dtype=np.int64)
+    for column in columns:
+        values, distinct = pd.factorize(frame[column], sort=True)
+        code = np.where((code < 0) | (values < 0), -1, code * len(distinct) + values)
+    return code
 
 
 def _ordered(frame: pd.DataFrame, labels: Sequence[str] | None, *, true_col: str, pred_col: str,

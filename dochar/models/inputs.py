@@ -32,10 +32,13 @@ class PageSet:
     def build(cls, pages: Sequence[Page], builder: GraphBuilder, *, progress: bool = False,
               desc: str = "graphs") -> PageSet:
         pages = list(pages)
-        # disable=None: tqdm draws the bar only when its stream is a terminal
-        edges = [builder(page) for page in tqdm(pages, desc=desc,
-                                                disable=None if progress else True,
-                                                leave=False)]
+        build_all = getattr(builder, "build_all", None)
+        if build_all is not None and not progress:   # all pages in one pass, the same edges
+            edges = build_all(pages)
+        else:   # disable=None: tqdm draws the bar only when its stream is a terminal
+            edges = [builder(page) for page in tqdm(pages, desc=desc,
+                                                    disable=None if progress else True,
+                                                    leave=False)]
         return cls(pages, edges, tuple(builder.relations),
                    tuple(getattr(builder, "edge_attr_names", ())))
 
@@ -50,15 +53,17 @@ def to_graphs(page_set: PageSet, featurizer: WordFeaturizer,
               label_index: dict[str, int] | None) -> list[Data]:
     """One graph per page; node targets ``y`` when ``label_index`` is given."""
     graphs = []
-    for page, edges in zip(page_set.pages, page_set.edges):
-        data = Data(x=torch.from_numpy(featurizer.transform(page)),
+    features = featurizer.transform_all(page_set.pages)
+    chars = featurizer.char_ids_all(page_set.pages) if featurizer.uses_char_cnn else None
+    for index, (page, edges) in enumerate(zip(page_set.pages, page_set.edges)):
+        data = Data(x=torch.from_numpy(features[index]),
                     edge_index=torch.from_numpy(edges.edge_index.astype(np.int64)),
                     edge_type=torch.from_numpy(edges.edge_type.astype(np.int64)),
                     num_nodes=len(page))
         if label_index is not None:
             data.y = torch.from_numpy(label_indices(page, label_index))
         if featurizer.uses_char_cnn:
-            data.chars = torch.from_numpy(featurizer.char_ids(page))
+            data.chars = torch.from_numpy(chars[index])
         edge_attr = getattr(edges, "edge_attr", None)
         if edge_attr is not None:
             data.edge_attr = torch.from_numpy(np.asarray(edge_attr, dtype=np.float32))
@@ -66,6 +71,29 @@ def to_graphs(page_set: PageSet, featurizer: WordFeaturizer,
             data.crops = torch.from_numpy(featurizer.crops(page))
         graphs.append(data)
     return graphs
+
+
+def stacked_graph(page_set: PageSet, featurizer: WordFeaturizer) -> Data:
+    """All pages as one graph, nodes laid end to end (a page's node ids offset by the nodes
+    before it; no edge crosses a page): the tensors ``Batch.from_data_list(to_graphs(...))``
+    holds, without a graph object per page (what prediction feeds the model)."""
+    pages, edges = page_set.pages, page_set.edges
+    starts = np.cumsum([0] + [len(page) for page in pages])[:-1]
+    data = Data(x=torch.from_numpy(np.concatenate(featurizer.transform_all(pages))),
+                edge_index=torch.from_numpy(np.concatenate(
+                    [e.edge_index.astype(np.int64) + start for e, start in zip(edges, starts)],
+                    axis=1)),
+                edge_type=torch.from_numpy(np.concatenate(
+                    [e.edge_type.astype(np.int64) for e in edges])),
+                num_nodes=int(sum(len(page) for page in pages)))
+    if featurizer.uses_char_cnn:
+        data.chars = torch.from_numpy(np.concatenate(featurizer.char_ids_all(pages)))
+    if edges and getattr(edges[0], "edge_attr", None) is not None:
+        data.edge_attr = torch.from_numpy(np.concatenate(
+            [np.asarray(e.edge_attr, dtype=np.float32) for e in edges]))
+    if featurizer.uses_crop_cnn:
+        data.crops = torch.from_numpy(np.concatenate([featurizer.crops(p) for p in pages]))
+    return data
 
 
 def to_matrix(page_set: PageSet, featurizer: WordFeaturizer, *, hash_features: int,
@@ -77,8 +105,9 @@ def to_matrix(page_set: PageSet, featurizer: WordFeaturizer, *, hash_features: i
     from dochar.models.baselines import edge_attr_aggregates, neighbour_aggregates
 
     blocks = []
-    for page, edges in zip(page_set.pages, page_set.edges):
-        parts = [featurizer.transform(page)]
+    features = featurizer.transform_all(page_set.pages)
+    for page, edges, own in zip(page_set.pages, page_set.edges, features):
+        parts = [own]
         if featurizer.uses_char_cnn:
             parts.append(char_ngram_hashes(page.texts, n_features=hash_features))
         if featurizer.uses_crop_cnn and "page_image" not in featurizer.groups:

@@ -44,7 +44,7 @@ from dochar.errors import DocharError
 from dochar.features import CHAR_VOCAB, WordFeaturizer
 from dochar.models.builders import build_gnn, build_template
 from dochar.models.fit import FittedModel
-from dochar.models.inputs import PageSet, to_graphs, to_matrix
+from dochar.models.inputs import PageSet, stacked_graph, to_graphs, to_matrix
 from dochar.graphs.candidates import CandidateOptions
 from dochar.models.objectives import NodeClasses, PairLinks
 from dochar.models.pairs import PageCandidates, page_candidates, pair_matrix, with_pairs
@@ -225,9 +225,12 @@ class SavedModel:
                                   "nodes; dochar predict labels nodes (word, tag or segment "
                                   "models)")
         page_set = PageSet.build(pages, self.builder)
-        if self.kind == "gnn":
-            return NodeClasses(len(self.labels)).outputs(
-                self.model, to_graphs(page_set, self.featurizer, None))
+        if self.kind == "gnn" and not pages:
+            return []
+        if self.kind == "gnn":   # one graph of all pages: the model's rows, cut per page
+            whole, = NodeClasses(len(self.labels)).outputs(
+                self.model, [stacked_graph(page_set, self.featurizer)])
+            return np.split(whole, np.cumsum([len(page) for page in pages])[:-1])
         if self.kind == "template":
             found = self.model.predict_proba(page_set.pages)
             return np.split(found, np.cumsum([len(page) for page in pages])[:-1])
@@ -280,19 +283,32 @@ class SavedModel:
         node_frame = node_predictions(nodes, probabilities, self.labels)
         decoded = task.word_predictions(nodes, node_frame).drop(columns=["label"])
         columns = page_columns(words)
+        labelled = all(page.labels is not None for page in words)
         found = pd.DataFrame({**{k: columns[k] for k in ("doc_id", "page", "word_id")},
                               "text": [text for page in words for text in page.texts],
-                              **{k: columns[k] for k in BOX_COLUMNS}})
-        if all(page.labels is not None for page in words):
-            found["label"] = [label for page in words for label in page.labels]
-        found = found.merge(decoded, on=["doc_id", "page", "word_id"], how="left",
-                            validate="one_to_one")
+                              **{k: columns[k] for k in BOX_COLUMNS},
+                              **({"label": [label for page in words for label in page.labels]}
+                                 if labelled else {})})
+        found = _join_on_words(found, decoded, validate="one_to_one")
         if task.nodes_are_word_labels:   # the runners-up are word labels too
             runners_up = node_frame.drop(columns=["label", "predicted", "confidence", "x0", "y0",
                                                   "x1", "y1"])
-            found = found.merge(runners_up,
-                                on=["doc_id", "page", "word_id"], how="left")
+            found = _join_on_words(found, runners_up)
         return found.rename(columns={"confidence": "probability"})
+
+
+WORD_KEYS = ["doc_id", "page", "word_id"]
+
+
+def _join_on_words(words: pd.DataFrame, found: pd.DataFrame, **options: Any) -> pd.DataFrame:
+    """``words.merge(found, on=WORD_KEYS, how="left")``; when ``found`` holds the same words in
+    the same order (one node per word), its columns are set beside them instead of matched."""
+    aligned = (len(words) == len(found) and not (set(words) & set(found)) - set(WORD_KEYS)
+               and all(np.array_equal(words[key].to_numpy(), found[key].to_numpy())
+                       for key in WORD_KEYS))
+    if not aligned:
+        return words.merge(found, on=WORD_KEYS, how="left", **options)
+    return pd.concat([words, found.drop(columns=WORD_KEYS).set_axis(words.index)], axis=1)
 
 
 def page_columns(pages: Sequence[Page]) -> dict[str, np.ndarray]:
@@ -310,16 +326,17 @@ def node_predictions(pages: Sequence[Page], probabilities: Sequence[np.ndarray],
                      labels: Sequence[str]) -> pd.DataFrame:
     """One row per node with its box: the best class (``predicted``, ``confidence``) and the
     next two."""
-    frame = pd.DataFrame({**page_columns(pages), "label": ""})
+    columns: dict[str, Any] = {**page_columns(pages)}
+    columns["label"] = ""
     proba = np.concatenate(list(probabilities))
     best = np.argsort(-proba, axis=1, kind="stable")[:, :TOP]
     names = np.asarray(labels, dtype=object)
     for rank in range(best.shape[1]):
         name, chance = (("predicted", "confidence") if rank == 0 else
                         (f"top{rank + 1}", f"top{rank + 1}_probability"))
-        frame[name] = names[best[:, rank]].tolist()
-        frame[chance] = np.take_along_axis(proba, best[:, rank:rank + 1], axis=1)[:, 0]
-    return frame
+        columns[name] = names[best[:, rank]].tolist()
+        columns[chance] = np.take_along_axis(proba, best[:, rank:rank + 1], axis=1)[:, 0]
+    return pd.DataFrame(columns)   # one frame built whole, not a column added at a time
 
 
 def find_unit(path: str | Path) -> Path:

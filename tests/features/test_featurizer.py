@@ -439,3 +439,19 @@ def test_funsd_pages_featurise_finite():
         np.testing.assert_array_equal(empty, [float(not t.strip()) for t in page.texts])
         with torch.no_grad():
             assert torch.isfinite(encoder(torch.from_numpy(fz.char_ids(page)))).all()
+
+
+@pytest.mark.parametrize("dtype, high", [(np.int16, 90), (np.int64, 90), (np.int64, 70_000)])
+def test_distinct_rows_are_sorted_by_their_bytes_with_each_rows_index(dtype, high):
+    """Oracle: Python's sort of each row's raw bytes (NumPy's order for a row as one block of
+    bytes), first occurrences kept; ids of one byte, two bytes and three bytes."""
+    from dochar.features.char_cnn import _distinct_rows
+
+    rng = np.random.default_rng(7)
+    block = rng.integers(0, high, (60, 5)).astype(dtype)
+    block = np.concatenate([block, block[::3], np.zeros((2, 5), dtype)])
+    order = sorted({row.tobytes(): i for i, row in reversed(list(enumerate(block)))}.items())
+    distinct, index = _distinct_rows(block)
+    np.testing.assert_array_equal(distinct, block[[i for _, i in order]])
+    position = {key: p for p, (key, _) in enumerate(order)}
+    assert index.tolist() == [position[row.tobytes()] for row in block]

@@ -59,7 +59,16 @@ class TransformedBuilder:
         return f"TransformedBuilder({self.base!r}, {list(self.transforms)!r})"
 
     def __call__(self, page: Page) -> TypedEdges:
-        edges = self.base(page)
+        return self._transformed(page, self.base(page))
+
+    def build_all(self, pages: Sequence[Page]) -> list[TypedEdges]:
+        """Every page's edges, as page by page: through the base builder's ``build_all`` when it
+        has one (all pages in one pass), then each page's transforms."""
+        build_all = getattr(self.base, "build_all", None)
+        found = build_all(pages) if build_all is not None else [self.base(p) for p in pages]
+        return [self._transformed(page, edges) for page, edges in zip(pages, found)]
+
+    def _transformed(self, page: Page, edges: TypedEdges) -> TypedEdges:
         edges.check_nodes(len(page), f"graph builder '{self.name}', page {page.key}")
         for transform in self.transforms:
             edges = transform(page, edges)
