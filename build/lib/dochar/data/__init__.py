@@ -1,1 +1,0 @@
-"""The data stage: the word table (format, validator, pages), its sources and importers."""

@@ -1,1 +1,0 @@
-"""The CI regression gate: rules and tolerances, the committed baseline, outputs, the command."""
