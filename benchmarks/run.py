@@ -13,7 +13,6 @@ from __future__ import annotations
 import argparse
 import datetime
 import os
-import platform
 import sys
 import time
 from pathlib import Path
@@ -29,7 +28,7 @@ from benchmarks.report import markdown
 from benchmarks.results_table import results_table_figures
 from benchmarks.scale import scale_figures
 from benchmarks.training import training_figures
-from dochar.gate.baseline import cpu_model
+from dochar.gate.baseline import machine_info
 
 FULL = {"small": 1_000, "large": 10_000, "huge": 100_000}
 SMOKE = {"small": 150, "large": 600, "huge": 1_200}
@@ -44,9 +43,9 @@ def machine() -> str:
     """What the figures were measured on: the ratios travel between machines, the seconds do not."""
     import torch
 
-    return (f"{cpu_model()} ({platform.machine()}, {os.cpu_count()} CPUs, "
-            f"{torch.backends.cpu.get_cpu_capability()}), Python {platform.python_version()}, "
-            f"torch {torch.__version__}")
+    info = machine_info()
+    return (f"{info['cpu']} ({info['architecture']}, {os.cpu_count()} CPUs, "
+            f"{info['cpu_instructions']}), Python {info['python']}, torch {torch.__version__}")
 
 
 def main(argv: list[str] | None = None) -> int:
