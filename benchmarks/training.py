@@ -3,7 +3,9 @@
 * one training epoch (the loop of :func:`dochar.models.training.train`, validation included)
   against the dense products of the relational layers alone, the arithmetic no loop or kernel
   change can avoid; the model computes the same function as the way it was computed before
-  (:mod:`benchmarks.reference_training`);
+  (:mod:`benchmarks.reference_training`); beside it, for context, the dense arithmetic of the
+  whole epoch (every layer, the char CNN, input and head, the validation pass) counted by
+  ``torch.utils.flop_counter`` against the floor's, the share of the epoch the floor leaves out;
 * training to the kept model with the preset's recipe (its schedule, epochs and patience)
   against the forest's fit, and the recipe's validation score against the recipe the preset
   had before issue 25 (:data:`EARLIER_RECIPE`), over seeds 0-2;
@@ -50,6 +52,8 @@ def training_figures(inputs: RunInputs, repeats: int, judged: bool, trees: int =
     epoch = timed(lambda: train(model, graphs["train"], graphs["val"],
                                 NodeClasses(len(inputs.labels)), short, 0), repeats) / EPOCHS
     floor = timed(dense_products(inputs, graphs["train"]), repeats)
+    arithmetic = epoch_flops(inputs, graphs, short) / counted_flops(
+        dense_products(inputs, graphs["train"]))
     words = sum(len(p) for p in inputs.sets["train"].pages)
     _, forest_fit = fitted_forest(inputs, index, trees)
     runs = {name: [trained(inputs, graphs, settings, seed) for seed in SEEDS]
@@ -67,6 +71,10 @@ def training_figures(inputs: RunInputs, repeats: int, judged: bool, trees: int =
                f"words) / the relational layers' dense products alone (forward + backward), "
                f"one thread",
                f"{epoch:.3f} s", f"{floor:.3f} s", epoch / floor, "<=", 1.3, judged),
+        Figure("dense arithmetic of that epoch (all layers, char CNN, input and head, the "
+               "validation pass) / the floor's, floating-point operations counted by "
+               "torch.utils.flop_counter", f"{arithmetic:.3f}", "1 (the floor)",
+               number=arithmetic),
         Figure(f"training to the kept model (best epoch {history.best_epoch}, stopped at "
                f"{history.epochs_run}: {recipe['schedule']} schedule, patience "
                f"{recipe['patience']}) / random forest fit ({trees} trees), same words",
@@ -141,6 +149,24 @@ def dense_products(inputs: RunInputs, graphs) -> Callable[[], None]:
         for stacked in operands:
             (stacked @ weight).sum().backward()
     return products
+
+
+def counted_flops(work: Callable[[], object]) -> int:
+    """Floating-point operations of the dense products (mm, addmm, convolutions) ``work`` runs."""
+    from torch.utils.flop_counter import FlopCounterMode
+
+    with FlopCounterMode(display=False) as counter:
+        work()
+    return counter.get_total_flops()
+
+
+def epoch_flops(inputs: RunInputs, graphs: dict, recipe: Mapping[str, Any]) -> int:
+    """The dense arithmetic of one epoch of the preset, validation included, on a fresh model."""
+    seed_everything(0, 1)
+    model = inputs.model()
+    return counted_flops(lambda: train(model, graphs["train"], graphs["val"],
+                                       NodeClasses(len(inputs.labels)),
+                                       {**recipe, "max_epochs": 1, "patience": 1}, 0))
 
 
 def fitted_forest(inputs: RunInputs, index: dict[str, int], trees: int):

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import weakref
 from collections import OrderedDict
+from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 import torch
@@ -98,11 +99,36 @@ class _SparseProduct(torch.autograd.Function):
     @staticmethod
     def forward(ctx, x: Tensor, operator: tuple[csr_matrix, csr_matrix]) -> Tensor:
         ctx.transposed = operator[1]
-        return torch.from_numpy(operator[0] @ x.detach().numpy())
+        return torch.from_numpy(csr_product(operator[0], x.detach().numpy()))
 
     @staticmethod
     def backward(ctx, grad: Tensor) -> tuple[Tensor, None]:
-        return torch.from_numpy(ctx.transposed @ grad.numpy()), None
+        return torch.from_numpy(csr_product(ctx.transposed, grad.numpy())), None
+
+
+_PARALLEL_FROM = 4096   # nonzeros; below, handing blocks to threads costs more than it saves
+_pools: dict[int, ThreadPoolExecutor] = {}
+
+
+def csr_product(matrix: csr_matrix, dense: np.ndarray) -> np.ndarray:
+    """``matrix @ dense``, in row blocks of equal nonzeros on torch's thread count: SciPy's CSR
+    kernel is single-threaded and releases the GIL, and it computes every row on its own, so
+    the blocks give the one product's result bit for bit on any number of threads."""
+    threads = torch.get_num_threads()
+    if threads < 2 or matrix.nnz < _PARALLEL_FROM:
+        return matrix @ dense
+    cuts = np.searchsorted(matrix.indptr, np.linspace(0, matrix.nnz, threads + 1)[1:-1])
+    bounds = [0, *np.minimum(cuts, matrix.shape[0]).tolist(), matrix.shape[0]]
+    out = np.empty((matrix.shape[0], dense.shape[1]),
+                   dtype=np.result_type(matrix.dtype, dense.dtype))
+
+    def fill(block: int) -> None:
+        low, high = bounds[block], bounds[block + 1]
+        out[low:high] = matrix[low:high] @ dense
+
+    pool = _pools.get(threads) or _pools.setdefault(threads, ThreadPoolExecutor(threads))
+    list(pool.map(fill, range(threads)))
+    return out
 
 
 _KEPT_OPERATORS = 256   # graphs whose operators are kept: every batch of an epoch and then some
