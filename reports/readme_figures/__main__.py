@@ -1,4 +1,5 @@
-"""``python -m reports.readme_figures``: rewrite the figure blocks of README.md and docs/*.md.
+"""``python -m reports.readme_figures``: rewrite the figure blocks of README.md, DEVELOPERS.md
+and docs/*.md.
 
     python -m reports.readme_figures                   the cheap blocks (seconds)
     python -m reports.readme_figures --only demo       one block (repeat --only for more)
@@ -41,6 +42,7 @@ FIGURES: dict[str, Figure] = {
     "benchmarks": Figure(cheap.benchmarks, cheap=True),
     "bench-summary": Figure(cheap.bench_summary, cheap=True),
     "funsd-table": Figure(cheap.funsd_table, cheap=True),
+    "mutation": Figure(cheap.mutation_table, cheap=True),
     "gate-tolerances": Figure(gate_spread.gate_tolerances, cheap=False, takes_keep=True),
     "thread-spread": Figure(gate_spread.thread_spread, cheap=False, takes_keep=True),
     "layout-held-out": Figure(tables.layout_held_out, cheap=False, takes_keep=True),

@@ -152,6 +152,20 @@ def funsd_table() -> str:
             f"`reports/funsd-table.md`.\n")
 
 
+def mutation_table() -> str:
+    """The summary ``make mutate`` last wrote (reports/mutation.md): the line that says how it
+    was made and the table of kill rates per module; the survivors' diffs stay in the report."""
+    path = REPO / "reports" / "mutation.md"
+    if not path.is_file():
+        raise FigureUnavailable(f"{path} not found: run `make mutate` first")
+    lines = path.read_text(encoding="utf-8").splitlines()
+    made = next(line for line in lines if line.startswith("Generated "))
+    start = next(i for i, line in enumerate(lines) if line.startswith("| module"))
+    end = next((i for i in range(start, len(lines)) if not lines[i].startswith("|")), len(lines))
+    return (f"{made}\n\n" + "\n".join(lines[start:end]) + "\n\n`python -m reports.readme_figures "
+            "--only mutation` copies this from `reports/mutation.md`.\n")
+
+
 def benchmarks() -> str:
     """The table ``make bench`` last wrote (reports/benchmarks.md), as docs/benchmarks.md quotes
     it: the bench's own file is the record, so the page cannot drift from it."""

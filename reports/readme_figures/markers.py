@@ -34,8 +34,10 @@ def read_blocks(text: str) -> dict[str, str]:
 
 
 def documents(root: Path) -> list[Path]:
-    """The files that hold figure blocks: ``README.md`` and ``docs/*.md`` under ``root``."""
-    return [root / "README.md", *sorted((root / "docs").glob("*.md"))]
+    """The files that hold figure blocks: ``README.md``, ``DEVELOPERS.md`` (where the checkout
+    has one) and ``docs/*.md`` under ``root``."""
+    guide = [root / "DEVELOPERS.md"] if (root / "DEVELOPERS.md").is_file() else []
+    return [root / "README.md", *guide, *sorted((root / "docs").glob("*.md"))]
 
 
 def find_blocks(paths: list[Path]) -> dict[str, tuple[Path, str]]:
