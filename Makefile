@@ -9,7 +9,7 @@ TORCH_SPEC ?= torch==2.13.0
 TORCH_INDEX ?= https://download.pytorch.org/whl/cpu
 DEMO_EXPERIMENT ?= dochar-demo
 
-.PHONY: install demo test test-all bench bench-smoke funsd-table funsd-table-smoke mutate mutate-smoke gate readme-figures clean
+.PHONY: install demo test test-all bench bench-smoke funsd-table funsd-table-smoke mutate mutate-smoke replant gate readme-figures clean
 
 install: $(STAMP)
 
@@ -64,6 +64,10 @@ mutate: $(STAMP)
 
 mutate-smoke: $(STAMP)
 	$(BIN)/python -m mutation.run --smoke
+
+# The bugs that once slipped past the tests, planted again one at a time (a few minutes).
+replant: $(STAMP)
+	$(BIN)/python -m mutation.planted
 
 gate: $(STAMP)
 	$(BIN)/dochar gate
