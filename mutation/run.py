@@ -14,7 +14,10 @@ tests and unmutated code from the checkout and runs every mutant not yet killed 
 but those marked equivalent;
 ``--report-only`` writes the report of run folders as they stand, e.g. after an
 interruption; given several ``--workdir`` folders, each of one module's separate run, it merges
-them into one report). ``--min-rate`` makes the exit status 1 when a module falls below it.
+them into one report; ``--carry-over REPORT`` adds, for the target modules no folder holds, the
+verdicts of a committed earlier report, provided the module is unchanged since the commit that
+wrote it: an hours-long run is not repeated for code it has already judged). ``--min-rate``
+makes the exit status 1 when a module falls below it.
 
 Run: ``python -m mutation.run [--smoke] [--modules M ...] [--out reports/mutation.md]
 [--workdir DIR] [--workers N] [--min-rate P]``; merge separate runs with ``python -m
@@ -236,8 +239,59 @@ def stale_modules(parts: dict[Path, list[str]]) -> list[str]:
             if (workdir / module).read_bytes() != (ROOT / module).read_bytes()]
 
 
+def carried_over(path: Path, modules: list[str], equivalents: list[Equivalent],
+                 root: Path = ROOT) -> tuple[dict[str, ModuleResult], str]:
+    """The results of ``modules`` as the committed report ``path`` gives them (table row,
+    survivors' diffs, marked equivalents), and the time that report was generated. Each module
+    must be unchanged in the checkout since the commit that last wrote the report, and judged
+    there on the code it now has; survivors are matched against today's equivalent.toml."""
+    relative = str(path.resolve().relative_to(root.resolve()))
+    commit = _git(root, "log", "-1", "--format=%H", "--", relative).strip()
+    if not commit:
+        raise SystemExit(f"--carry-over: {relative} has no commit; commit the report first")
+    text = _git(root, "show", f"{commit}:{relative}")
+    made = re.search(r"^Generated (.+? UTC)", text, re.MULTILINE)
+    rows = {match[1]: (match[2], [int(v) for v in match[3].split(" | ")])
+            for match in re.finditer(r"^\| (\S+\.py)( \([^)]*\))? \| ([\d |]+?) \| [\d.]+% \|$",
+                                     text, re.MULTILINE)}
+    survivors = re.findall(r"^### (\S+)\n\n```diff\n(.*?)\n```$", text, re.MULTILINE | re.DOTALL)
+    marked = re.findall(r"^- `(\S+)`: (.+)$", text, re.MULTILINE)
+    results = {}
+    for module in modules:
+        if module not in rows or (rows[module][0] or "").startswith(" (run on an older"):
+            raise SystemExit(f"--carry-over: {relative} holds no verdicts of {module} on its "
+                             f"code; run it (python -m mutation.run --modules {module})")
+        if subprocess.run(["git", "diff", "--quiet", commit, "--", module], cwd=root).returncode:
+            raise SystemExit(f"--carry-over: {module} changed since {relative} was written "
+                             f"(commit {commit[:10]}); run it afresh")
+        total, killed, survived, equivalent, no_tests, timeout, not_run = rows[module][1]
+        result = ModuleResult(counts=Counter({"killed": killed, "survived": survived + equivalent,
+                                              "no tests": no_tests, "timeout": timeout,
+                                              "not checked": not_run}))
+        result.counts["other"] = total - sum(result.counts.values())
+        prefix = module.removesuffix(".py").replace("/", ".") + "."
+        own = [(m, d) for m, d in survivors if m.startswith(prefix)]
+        result.equivalent = [(m, r) for m, r in marked if m.startswith(prefix)]
+        if len(own) != survived or len(result.equivalent) != equivalent:
+            raise SystemExit(f"--carry-over: {relative}: the row of {module} does not match "
+                             f"its listed survivors and equivalents")
+        for mutant, diff in own:
+            reason = equivalent_reason(module, diff, equivalents)
+            if reason is None:
+                result.survivors.append((mutant, "\n" + diff))   # the report drops line one
+            else:
+                result.equivalent.append((mutant, reason))
+        results[module] = result
+    return results, made[1] if made else commit[:10]
+
+
+def _git(root: Path, *args: str) -> str:
+    return subprocess.run(["git", *args], cwd=root, check=True, capture_output=True,
+                          text=True).stdout
+
+
 def report(results: dict[str, ModuleResult], command: str, mode: str,
-           stale: list[str] = ()) -> str:
+           stale: list[str] = (), carried: dict[str, str] | None = None) -> str:
     lines = [f"# Mutation testing ({mode})", "",
              f"Generated {datetime.datetime.now(datetime.UTC):%Y-%m-%d %H:%M} UTC by `{command}` "
              f"(mutmut). Kill rate = killed / (mutants - equivalent - not run).", "",
@@ -245,8 +299,10 @@ def report(results: dict[str, ModuleResult], command: str, mode: str,
              "kill rate |", "| --- | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: |"]
     total = ModuleResult()
     for module, result in results.items():
-        lines.append(_row(module + (" (run on an older version of the module)"
-                                    if module in stale else ""), result))
+        note = (" (run on an older version of the module)" if module in stale else
+                f" (carried over from the report of {carried[module]}; module unchanged since)"
+                if module in (carried or {}) else "")
+        lines.append(_row(module + note, result))
         total.counts.update(result.counts)
         total.survivors += result.survivors
         total.equivalent += result.equivalent
@@ -285,6 +341,9 @@ def main(argv: list[str] | None = None) -> int:
                              "refreshed from the checkout, every mutant not killed run again")
     parser.add_argument("--report-only", action="store_true",
                         help="no run: report the mutants of --workdir as they stand")
+    parser.add_argument("--carry-over", type=Path, default=None, metavar="REPORT",
+                        help="with --report-only: target modules no --workdir holds take their "
+                             "verdicts from this committed report, if unchanged since")
     parser.add_argument("--min-rate", type=float, default=None,
                         help="exit 1 when a module's kill rate (percent) is below this")
     args = parser.parse_args(argv)
@@ -298,6 +357,8 @@ def main(argv: list[str] | None = None) -> int:
     workdirs = args.workdir or [ROOT / ".mutation" / mode]
     if len(workdirs) > 1 and not args.report_only:
         parser.error("several --workdir folders only with --report-only")
+    if args.carry_over and not args.report_only:
+        parser.error("--carry-over only with --report-only")
     out = args.out or ROOT / "reports" / ("mutation-smoke.md" if args.smoke else "mutation.md")
     if not args.report_only:
         # the smoke test loads no torch, so its mutants fork straight from mutmut's process;
@@ -317,9 +378,15 @@ def main(argv: list[str] | None = None) -> int:
              for workdir in workdirs}
     results = merged(list(parts.values()), targets)
     stale = stale_modules({workdir: list(part) for workdir, part in parts.items()})
+    carried: dict[str, str] = {}
+    if args.carry_over:
+        rest = [module for module in targets if module not in results]
+        earlier, made = carried_over(args.carry_over, rest, load_equivalents(EQUIVALENTS))
+        carried = dict.fromkeys(earlier, made)
+        results = merged([results, earlier], targets)
     command = "python -m mutation.run " + " ".join(argv if argv is not None else sys.argv[1:])
     out.parent.mkdir(parents=True, exist_ok=True)
-    out.write_text(report(results, command.strip(), mode, stale), encoding="utf-8")
+    out.write_text(report(results, command.strip(), mode, stale, carried), encoding="utf-8")
     survivors = sum(len(r.survivors) for r in results.values())
     print(f"{survivors} surviving mutant(s); report: {out}")
     low = [m for m, result in results.items() if args.min_rate is not None

@@ -47,3 +47,97 @@ def test_a_module_run_on_an_older_version_is_marked_in_its_row(tmp_path):
     text = report({module: _result(1, 0)}, "python -m mutation.run --report-only", "full",
                   [module])
     assert f"| {module} (run on an older version of the module) | 1 | 1 |" in text
+
+
+# --- --carry-over: verdicts of a committed report for modules unchanged since ---------------
+
+EARLIER = """# Mutation testing (full)
+
+Generated 2026-11-30 09:15 UTC by `python -m mutation.run` (mutmut). Kill rate = ...
+
+| module | mutants | killed | survived | equivalent | no tests | timeout | not run | kill rate |
+| --- | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: |
+| dochar/a.py | 10 | 6 | 2 | 1 | 1 | 0 | 0 | 66.7% |
+| dochar/b.py (run on an older version of the module) | 3 | 3 | 0 | 0 | 0 | 0 | 0 | 100.0% |
+| **all** | 13 | 9 | 2 | 1 | 1 | 0 | 0 | 75.0% |
+
+Surviving mutants (not marked equivalent): 2
+
+### dochar.a.x_f__mutmut_1
+
+```diff
+@@ -1,2 +1,2 @@
+ def f(x):
+-    return x + 1
++    return x + 2
+```
+
+### dochar.a.x_g__mutmut_4
+
+```diff
+@@ -1,2 +1,2 @@
+ def g(x):
+-    return float(x)
++    return x
+```
+
+## Marked equivalent (mutation/equivalent.toml)
+
+- `dochar.a.x_h__mutmut_2`: h's result is rounded by every caller
+"""
+
+
+def _git_repo(tmp_path):
+    import subprocess
+
+    def git(*args):
+        subprocess.run(["git", *args], cwd=tmp_path, check=True, capture_output=True)
+    git("init", "-q")
+    git("config", "user.email", "t@example.org")
+    git("config", "user.name", "t")
+    (tmp_path / "dochar").mkdir()
+    for name in ("a.py", "b.py"):
+        (tmp_path / "dochar" / name).write_text(f"# {name}\n", encoding="utf-8")
+    (tmp_path / "reports").mkdir()
+    (tmp_path / "reports" / "mutation.md").write_text(EARLIER, encoding="utf-8")
+    git("add", "-A")
+    git("commit", "-qm", "report")
+    return tmp_path
+
+
+def test_an_unchanged_module_keeps_the_verdicts_of_the_committed_report(tmp_path):
+    from mutation.run import carried_over
+
+    root = _git_repo(tmp_path)
+    (root / "reports" / "mutation.md").write_text("edited after the commit\n", encoding="utf-8")
+    results, made = carried_over(root / "reports" / "mutation.md", ["dochar/a.py"], [], root)
+    assert made == "2026-11-30 09:15 UTC"   # the committed text is read, not the edited file
+    text = report(results, "cmd", "full", carried={"dochar/a.py": made})
+    # the row as written in EARLIER, with its note: 6 / (10 - 1 equivalent) = 66.7%
+    assert ("| dochar/a.py (carried over from the report of 2026-11-30 09:15 UTC; module "
+            "unchanged since) | 10 | 6 | 2 | 1 | 1 | 0 | 0 | 66.7% |") in text
+    assert "### dochar.a.x_f__mutmut_1\n\n```diff\n@@ -1,2 +1,2 @@\n def f(x):\n" in text
+    assert "- `dochar.a.x_h__mutmut_2`: h's result is rounded by every caller" in text
+
+
+def test_a_survivor_marked_equivalent_since_leaves_the_survivors(tmp_path):
+    from mutation.run import Equivalent, carried_over
+
+    root = _git_repo(tmp_path)
+    marked = [Equivalent("dochar/a.py", "return float(x)", "return x", "x is a float already")]
+    results, made = carried_over(root / "reports" / "mutation.md", ["dochar/a.py"], marked, root)
+    text = report(results, "cmd", "full", carried={"dochar/a.py": made})
+    # by hand: survived 2 -> 1, equivalent 1 -> 2, rate 6 / (10 - 2) = 75.0%
+    assert "| 10 | 6 | 1 | 2 | 1 | 0 | 0 | 75.0% |" in text
+    assert "x_g__mutmut_4`: x is a float already" in text
+
+
+def test_a_changed_or_never_judged_module_is_refused(tmp_path):
+    from mutation.run import carried_over
+
+    root = _git_repo(tmp_path)
+    with pytest.raises(SystemExit, match=r"dochar/b.py"):   # judged on an older version
+        carried_over(root / "reports" / "mutation.md", ["dochar/b.py"], [], root)
+    (root / "dochar" / "a.py").write_text("# a.py, changed\n", encoding="utf-8")
+    with pytest.raises(SystemExit, match=r"dochar/a.py changed since reports/mutation.md"):
+        carried_over(root / "reports" / "mutation.md", ["dochar/a.py"], [], root)
