@@ -290,3 +290,49 @@ def test_layout_protocols_name_the_documents_without_a_layout():
                                          r"'coa-2', 'coa-4', 'coa-5', 'coa-6'\]\)\. Fill the "
                                          r"column with inferred layout families"):
         make_splits(docs, "layout_held_out", seed=0)
+
+
+def test_random_split_is_a_function_of_the_seed():
+    # 20 documents: 5 to test, 2 of the 15 left to validation (round(0.15 * 15)); an unseeded
+    # draw would repeat itself once in thousands of calls
+    docs = _listed([""] * 20)
+    first, again = (make_splits(docs, "random", seed=7)[0] for _ in range(2))
+    assert (first.train, first.val, first.test) == (again.train, again.val, again.test)
+    assert (len(first.train), len(first.val), len(first.test)) == (13, 2, 5)
+
+
+def test_random_test_cut_leaves_a_document_for_training_and_one_for_validation():
+    # test_size 0.9 of 3: min(max(1, round(2.7)), 3 - 2) = 1; validation of the 2 left:
+    # min(max(1, round(0.3)), 2 - 1) = 1
+    (split,) = make_splits(_listed(["", "", ""]), "random", seed=0, test_size=0.9,
+                           val_size=0.15)
+    assert (len(split.train), len(split.val), len(split.test)) == (1, 1, 1)
+    assert split.protocol == "random"
+
+
+def test_leave_one_layout_out_works_from_two_layouts():
+    # without validation, train and test need one layout each (scikit-learn LeaveOneGroupOut)
+    folds = make_splits(_listed([""] * 4), "leave_one_layout_out", seed=0, val_size=0)
+    assert [(fold.test_layouts, fold.test) for fold in folds] == [
+        (["L0"], ["coa-0", "coa-2"]), (["L1"], ["coa-1", "coa-3"])]
+
+
+def test_layout_kfold_makes_five_folds_by_default():
+    # six layouts: five folds plus one for validation; GroupKFold(5) tests each layout once
+    docs = pd.DataFrame({"doc_id": [f"coa-{i}" for i in range(12)],
+                         "layout_id": [f"L{i % 6}" for i in range(12)]})
+    folds = make_splits(docs, "layout_kfold", seed=0)
+    assert len(folds) == 5
+    assert sorted(layout for fold in folds for layout in fold.test_layouts) == [
+        f"L{i}" for i in range(6)]
+
+
+def test_layout_kfold_validation_is_a_function_of_the_seed():
+    # 12 layouts in 3 folds: each training pool has 8 layouts, of which round(0.3 * 8) = 2 go
+    # to validation; an unseeded draw would repeat all three folds once in 28^3 calls
+    docs = pd.DataFrame({"doc_id": [f"coa-{i}" for i in range(24)],
+                         "layout_id": [f"L{i % 12}" for i in range(24)]})
+    first, again = (make_splits(docs, "layout_kfold", seed=3, n_folds=3, val_size=0.3)
+                    for _ in range(2))
+    assert [(f.train, f.val, f.test) for f in first] == [(f.train, f.val, f.test) for f in again]
+    assert [len(f.val) for f in first] == [4, 4, 4]

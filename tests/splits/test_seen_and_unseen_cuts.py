@@ -38,17 +38,18 @@ def test_a_large_test_share_still_leaves_a_layout_for_training_and_one_for_valid
     assert len(trained) == 1
 
 
-def test_the_split_is_a_function_of_the_seed():
+@pytest.mark.parametrize("protocol", ["seen_and_unseen_layouts", "layout_held_out"])
+def test_the_split_is_a_function_of_the_seed(protocol):
     """Same seed, same parts (five seeds, each cut drawn from several layouts or documents, so
     an unseeded cut would show); over ten seeds the unseen layouts of 12 are not all the same."""
     docs = _docs(12, 3)
     for seed in range(5):
-        first = make_splits(docs, "seen_and_unseen_layouts", seed=seed)[0]
-        again = make_splits(docs, "seen_and_unseen_layouts", seed=seed)[0]
+        first = make_splits(docs, protocol, seed=seed)[0]
+        again = make_splits(docs, protocol, seed=seed)[0]
         assert (first.train, first.val, first.test) == (again.train, again.val, again.test)
     unseen = {tuple(sorted(doc for doc, side in s.test_sides.items() if side == "unseen"))
               for seed in range(10)
-              for s in make_splits(docs, "seen_and_unseen_layouts", seed=seed)}
+              for s in make_splits(docs, protocol, seed=seed)}
     assert len(unseen) > 1
 
 
@@ -73,3 +74,15 @@ def test_the_seen_test_documents_are_drawn_layout_by_layout():
     seen = sorted(doc.split("-")[1] for doc, side in split.test_sides.items() if side == "seen")
     assert len(trained) == 3 and trained == seen
     assert sorted(split.test_sides.values()) == ["seen"] * 3 + ["unseen"] * 2
+
+
+def test_layout_held_out_test_cut_leaves_a_layout_for_training_and_one_for_validation():
+    """3 layouts of 2, test_size 0.9, val_size 0.3: test layouts min(max(1, round(2.7)),
+    3 - 2) = 1; validation layouts of the 2 left min(max(1, round(0.6)), 2 - 1) = 1."""
+    (split,) = make_splits(_docs(3, 2), "layout_held_out", seed=0, test_size=0.9, val_size=0.3)
+    assert split.protocol == "layout_held_out"
+    assert (len(split.train), len(split.val), len(split.test)) == (2, 2, 2)
+    parts = [{doc.split("-")[1] for doc in part} for part in (split.train, split.val, split.test)]
+    assert sorted(len(layouts) for layouts in parts) == [1, 1, 1]
+    assert set().union(*parts) == {"0", "1", "2"}
+    assert split.test_layouts == [f"L{layout}" for layout in parts[2]]
