@@ -61,7 +61,8 @@ def pair_geometry(page: Page, pairs: np.ndarray) -> np.ndarray:
                np.log(width[s] / width[t]), np.log(height[s] / height[t]),
                np.abs(b[s, 0] - b[t, 0]) / w, np.abs(b[s, 1] - b[t, 1]) / h,
                (t - s) / max(len(page), 1)]
-    return np.column_stack([*columns, direction]).astype(np.float32).reshape(len(s), -1)
+    return (np.column_stack([*columns, direction]).astype(np.float32)
+            .reshape(len(s), len(PAIR_GEOMETRY_NAMES)))   # a page without pairs: (0, 17)
 
 
 @dataclass
