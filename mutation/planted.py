@@ -85,7 +85,7 @@ BUGS: tuple[Bug, ...] = (
          "test_the_fallback_needs_a_distance_strictly_below_the_threshold",)),
     Bug("estimator class one past the labels accepted", "dochar/models/saved.py",
         "classes.max() >= len(labels)", "classes.max() > len(labels)",
-        ("tests/models/test_saved.py::test_estimator_classes_must_index_the_labels[one-past]",)),
+        ("tests/models/test_saved.py::test_estimator_classes_must_index_the_labels[one-past-True]",)),
     Bug("resume forgets the best weights", CHECKPOINTS,
         'return int(state["epoch"]) + 1, state["best_state"]',
         'return int(state["epoch"]) + 1, best_state',

@@ -22,3 +22,16 @@ def test_each_planted_bug_still_fits_its_code_and_names_existing_tests(bug):
         function = re.sub(r"\[.*\]$", "", name)
         text = (ROOT / path).read_text(encoding="utf-8")
         assert re.search(rf"^def {re.escape(function)}\(", text, re.MULTILINE), node
+
+
+def test_every_named_test_node_is_collected():
+    # a parametrized id that changed (``[one-past]`` -> ``[one-past-True]``) passes the check
+    # above and stops the tool; pytest's own collection is the reference
+    import subprocess
+    import sys
+
+    nodes = [node for bug in BUGS for node in bug.tests]
+    done = subprocess.run([sys.executable, "-m", "pytest", "--collect-only", "-q",
+                           "-p", "no:cacheprovider", *nodes], cwd=ROOT, capture_output=True,
+                          text=True)
+    assert done.returncode == 0, done.stdout[-2000:] + done.stderr[-2000:]   # 4: not found
