@@ -65,7 +65,8 @@ def assemble_records(words: pd.DataFrame, shape: RecordShape, *, label_col: str 
     words; ``row_links`` (``doc_id, page, source, target`` between groups) gives the rows,
     else the shape's ``row_anchor`` does (an item per line holding it), else the layout rule.
     A ``single_fields`` label found in several pieces keeps the one whose least word
-    probability is highest (the first of equals).
+    probability is highest (the first of equals); an item lacking one of the shape's
+    ``required_columns`` is left out.
     """
     links = _links_by_document(row_links)
     records = []
@@ -92,6 +93,8 @@ def assemble_records(words: pd.DataFrame, shape: RecordShape, *, label_col: str 
                 record.items = rows_by_anchor(items, shape.row_anchor, shape.amount_fields)
             else:
                 record.items = rows_by_layout(items)
+            record.items = [row for row in record.items
+                            if all(column in row for column in shape.required_columns)]
         records.append(record)
     return records
 
@@ -116,8 +119,10 @@ def row_links_of(links: pd.DataFrame | None) -> pd.DataFrame:
 def true_records(words: pd.DataFrame, shape: RecordShape,
                  links: pd.DataFrame | None = None) -> list[Record]:
     """Records from the truth: true labels, ``entity_id`` groups, rows from ``row`` links; a
-    repeated single field stays repeated (the truth is what it is)."""
-    return assemble_records(words, replace(shape, single_fields=()), label_col="label",
+    repeated single field stays repeated and an item lacking a required column stays (the truth
+    is what it is)."""
+    return assemble_records(words, replace(shape, single_fields=(), required_columns=()),
+                            label_col="label",
                             group_col="entity_id", row_links=row_links_of(links))
 
 

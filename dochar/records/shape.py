@@ -8,7 +8,11 @@ amounts. ``single_fields`` are header fields a document has one value of: of sev
 predicted, the one whose least word probability is highest is kept. ``row_anchor`` (optional)
 is the item column that opens a line item: every line holding it starts a new item, and the
 lines under it join that item until the next one (a receipt's item name;
-:func:`dochar.records.rows.rows_by_anchor`). A label may be in one role only, and every label
+:func:`dochar.records.rows.rows_by_anchor`). ``required_columns`` (optional, some of
+``item_columns``) are the cells every line item has (a certificate's analyte and result): a
+predicted item lacking one is left out of the record, since a stray table word (a column
+header read as a cell) would otherwise stand as an item of its own; its words keep their labels
+in ``words.csv``. The truth's items are never left out. A label may be in one role only, and every label
 named must be one of the data's labels:
 :func:`check_shape` says which key names what, before any data loads.
 """
@@ -22,7 +26,8 @@ from typing import Any
 from dochar.errors import DocharError, did_you_mean
 
 SHAPE_KEYS: tuple[str, ...] = ("header_fields", "item_columns", "items_name", "date_fields",
-                               "amount_fields", "single_fields", "row_anchor")
+                               "amount_fields", "single_fields", "row_anchor",
+                               "required_columns")
 
 
 class RecordShapeError(DocharError):
@@ -40,6 +45,7 @@ class RecordShape:
     amount_fields: tuple[str, ...] = ()
     single_fields: tuple[str, ...] = ()   # header fields with one value: the likeliest piece
     row_anchor: str = ""             # "": rows by the layout rule
+    required_columns: tuple[str, ...] = ()   # a predicted item lacking one is left out
 
     @property
     def labels(self) -> tuple[str, ...]:
@@ -106,6 +112,10 @@ def check_shape(shape: RecordShape, labels: Sequence[str] | None, *,
         if seen.get(label) != "header_fields":
             raise RecordShapeError(f"config key {where}.single_fields: label {label!r} is not "
                                    f"one of {where}.header_fields")
+    for label in shape.required_columns:
+        if seen.get(label) != "item_columns":
+            raise RecordShapeError(f"config key {where}.required_columns: label {label!r} is "
+                                   f"not one of {where}.item_columns")
     if shape.row_anchor and shape.row_anchor not in shape.item_columns:
         raise RecordShapeError(f"config key {where}.row_anchor: label {shape.row_anchor!r} is "
                                f"not one of {where}.item_columns")

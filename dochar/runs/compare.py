@@ -7,6 +7,7 @@ from dochar.metrics.evaluate import has_entity_ids, headline_scorers
 from dochar.metrics.intervals import PairedResult, paired_comparison
 from dochar.metrics.record_run import PREFIXES, RECORD_TABLES
 from dochar.metrics.records import record_scorers
+from dochar.metrics.seen_unseen import SIDE_COLUMN
 from dochar.runs.bundle import RunBundle
 from dochar.runs.numbers import p_phrase
 
@@ -35,7 +36,9 @@ def compare_runs(run_a: RunBundle, run_b: RunBundle, *, score: str | None = None
 
 def _record_scores(run_a: RunBundle, run_b: RunBundle) -> dict:
     """Record scores both runs carry (their per-document record tables): ``straight_through``
-    on raw values, ``normalised/straight_through`` on normalised ones, and so on."""
+    on raw values, ``normalised/straight_through`` on normalised ones, and so on; where run A's
+    predictions give each test document its layout side, also ``seen/straight_through`` and
+    ``unseen/straight_through`` (raw values), paired over that side's documents only."""
     found = {}
     for how, table in RECORD_TABLES.items():
         if table in run_a.tables and table in run_b.tables:
@@ -43,6 +46,22 @@ def _record_scores(run_a: RunBundle, run_b: RunBundle) -> dict:
                            for run in (run_a, run_b))
             prefix = PREFIXES[how].removeprefix("records/")
             found.update({f"{prefix}{name}": (frames, scorer)
+                          for name, scorer in record_scorers().items()})
+            if prefix == "":
+                found.update(_side_scores(run_a.predictions, frames))
+    return found
+
+
+def _side_scores(predictions, frames) -> dict:
+    if SIDE_COLUMN not in predictions:
+        return {}
+    sides = predictions.drop_duplicates("doc_id").set_index("doc_id")[SIDE_COLUMN]
+    found = {}
+    for side in ("seen", "unseen"):
+        docs = set(sides.index[sides.astype(str) == side].astype(str))
+        if docs:
+            on_side = tuple(f[f["doc_id"].astype(str).isin(docs)] for f in frames)
+            found.update({f"{side}/{name}": (on_side, scorer)
                           for name, scorer in record_scorers().items()})
     return found
 

@@ -7,7 +7,8 @@ composes the run config of OVERRIDE (e.g. ``+experiment=cord_labels``, or
 ``split=seen_and_unseen_layouts`` for the demo's certificates), loads and splits its data, labels
 the validation documents with the saved model (the same decoding as ``dochar predict``) and
 prints the raw record scores with the data's record shape as configured, without its
-``single_fields``, and (when it has a ``row_anchor``) with rows by the layout rule.
+``single_fields``, without its ``required_columns`` (when it has them), and (when it has a
+``row_anchor``) with rows by the layout rule.
 """
 
 from __future__ import annotations
@@ -37,6 +38,8 @@ def main(model: str, *overrides: str) -> None:
     truth = parses(true_records(words, shape, data.links), shape)
     variants = {"as configured": shape,
                 "no single_fields": dataclasses.replace(shape, single_fields=())}
+    if shape.required_columns:
+        variants["no required_columns"] = dataclasses.replace(shape, required_columns=())
     if shape.row_anchor:
         variants["layout rule rows"] = dataclasses.replace(shape, row_anchor="")
         variants["layout rule rows, no single_fields"] = dataclasses.replace(

@@ -185,3 +185,32 @@ def test_a_single_field_keeps_its_likeliest_piece_and_the_truth_keeps_every_piec
                                                "data.record.header_fields"):
         RecordShape.from_mapping({"header_fields": ["cert_no"], "item_columns": ["analyte"],
                                   "single_fields": ["analyte"]})
+
+
+def test_an_item_lacking_a_required_column_is_left_out_and_the_truth_keeps_it():
+    # a drawn table (9-point type, rows 20 points apart): a column-header word "Max." read as a
+    # result stands alone on its line, then two full rows; worked by hand: with analyte
+    # required, the lone "Max." row is left out and the two full rows stay; without the
+    # requirement (and in the truth, whatever the shape) it is an item of its own
+    words = _words([
+        ("Max.", 200, 20, 230, 29, "result", "h1"),
+        ("Lead", 40, 40, 70, 49, "analyte", "a1"), ("0.2", 200, 40, 215, 49, "result", "r1"),
+        ("Zinc", 40, 60, 70, 69, "analyte", "a2"), ("4.1", 200, 60, 215, 69, "result", "r2"),
+    ])
+    full = [{"analyte": "Lead", "result": "0.2"}, {"analyte": "Zinc", "result": "4.1"}]
+    required = replace(SHAPE, required_columns=("analyte",))
+    (record,) = assemble_records(words, required, label_col="label", group_col="entity_id")
+    assert record.parse(required) == {"results": full}
+    (plain,) = assemble_records(words, SHAPE, label_col="label", group_col="entity_id")
+    assert plain.parse(SHAPE) == {"results": [{"result": "Max."}, *full]}
+    rows = pd.DataFrame({"doc_id": "d", "page": 1, "source": ["a1", "a2"],
+                         "target": ["r1", "r2"], "kind": "row"})
+    (truth,) = true_records(words, required, rows)
+    assert truth.parse(required) == {"results": [{"result": "Max."}, *full]}
+    assert RecordShape.from_mapping({"item_columns": ["analyte", "result"],
+                                     "required_columns": ["analyte"]}).required_columns == (
+        "analyte",)
+    with pytest.raises(RecordShapeError, match="required_columns: label 'cert_no' is not one of "
+                                               "data.record.item_columns"):
+        RecordShape.from_mapping({"header_fields": ["cert_no"], "item_columns": ["analyte"],
+                                  "required_columns": ["cert_no"]})

@@ -25,6 +25,7 @@ import pandas as pd
 import pytest
 
 from dochar.cli import main
+from dochar.metrics.seen_unseen import SIDE_COLUMN
 from dochar.runs.bundle import RunBundle
 from dochar.runs.compare import compare_runs, format_comparison
 
@@ -202,3 +203,22 @@ def test_the_printout_names_an_approximate_randomisation_and_has_four_lines():
     lines = format_comparison(a, b, result, "entity_f1").split("\n")
     assert len(lines) == 4 and lines[0].startswith("A  right") and lines[3] == "verdict: A is better"
     assert "(approximate randomisation, 4 test documents)" in lines[2]
+
+
+def test_record_scores_are_paired_per_layout_side_when_the_runs_know_the_sides():
+    # coa-0 and coa-1 unseen, coa-2 and coa-3 seen (by hand): A is right on all four, B on
+    # the unseen two only -> unseen 1.0 against 1.0, seen 1.0 against 0.0, all 1.0 against
+    # 0.5; a run without sides offers no side scores
+    a, b = _record_run("a", [1] * 4, [1] * 4), _record_run("b", [1, 1, 0, 0], [1] * 4)
+    sides = {"coa-0": "unseen", "coa-1": "unseen", "coa-2": "seen", "coa-3": "seen"}
+    for bundle in (a, b):
+        docs = [f"coa-{d}" for d in range(4)]
+        bundle.predictions = pd.concat([bundle.predictions.assign(doc_id=d) for d in docs])
+        bundle.predictions[SIDE_COLUMN] = bundle.predictions["doc_id"].map(sides)
+    unseen = compare_runs(a, b, score="unseen/straight_through", resamples=10)
+    seen = compare_runs(a, b, score="seen/straight_through", resamples=10)
+    assert (unseen.score_a, unseen.score_b) == pytest.approx((1.0, 1.0))
+    assert (seen.score_a, seen.score_b) == pytest.approx((1.0, 0.0))
+    assert compare_runs(a, b, score="straight_through", resamples=10).score_b == pytest.approx(0.5)
+    with pytest.raises(ValueError, match="choose one of"):
+        compare_runs(_record_run("c", [1] * 4, [1] * 4), b, score="unseen/straight_through")
