@@ -28,17 +28,19 @@ def _cells(bundle: RunBundle, prefix: str = "records/") -> str:
     return " | ".join(interval(bundle.metrics, f"{prefix}{score}") for score in SCORES)
 
 
-EMBEDDING = ["features.groups=[geometry,text_flags,char_cnn,text_embedding]"]
+CONTEXT = ["features.groups=[geometry,text_flags,char_cnn,text_embedding]",
+           "features.line_context=true"]
 DEMO_SYSTEMS = {"relational GNN": ["model=relational"],
                 "random forest": ["model=random_forest"],
-                "relational GNN, with text embedding": ["model=relational", *EMBEDDING],
-                "random forest, with text embedding": ["model=random_forest", *EMBEDDING]}
+                "relational GNN, text embedding and line context": ["model=relational", *CONTEXT],
+                "random forest, text embedding and line context": ["model=random_forest",
+                                                                   *CONTEXT]}
 
 
 def records_demo(keep: Path | None = None) -> str:
     """The demo's GNN and forest scored as records, unseen layouts first, on the demo's
-    features and with the text embedding added; each GNN paired with the forest on its
-    features."""
+    features and with the text embedding and line context added; each GNN paired with the
+    forest on its features."""
     runs = {name: run([*overrides, *DEMO], keep) for name, overrides in DEMO_SYSTEMS.items()}
     names = list(runs)
     m = runs[names[0]].metrics
@@ -50,7 +52,7 @@ def records_demo(keep: Path | None = None) -> str:
               for gnn, forest in ((names[0], names[1]), (names[2], names[3]))]
     return "\n".join([
         f"`dochar run -m model=relational,random_forest {' '.join(DEMO)}`, and the same with "
-        f"`{EMBEDDING[0]}`, on {today()} "
+        f"`{' '.join(CONTEXT)}`, on {today()} "
         f"(the demo's data, seed 0: {int(m['split/seen_test_documents'])} seen-layout and "
         f"{int(m['split/unseen_test_documents'])} unseen-layout test certificates; `python -m "
         f"reports.readme_figures --only records-demo`, one thread on {machine()}; 95% bootstrap "
