@@ -12,8 +12,8 @@ lines under it join that item until the next one (a receipt's item name;
 ``item_columns``) are the cells every line item has (a certificate's analyte and result): a
 predicted item lacking one is left out of the record, since a stray table word (a column
 header read as a cell) would otherwise stand as an item of its own; its words keep their labels
-in ``words.csv``. The truth's items are never left out. A label may be in one role only, and every label
-named must be one of the data's labels:
+in ``words.csv``. The truth's items are never left out. A label may be in one role only, and
+every label named must be one of the data's labels:
 :func:`check_shape` says which key names what, before any data loads.
 """
 

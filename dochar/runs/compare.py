@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import pandas as pd
+
 from dochar import tasks
 from dochar.metrics.evaluate import has_entity_ids, headline_scorers
 from dochar.metrics.intervals import PairedResult, paired_comparison
@@ -52,7 +54,8 @@ def _record_scores(run_a: RunBundle, run_b: RunBundle) -> dict:
     return found
 
 
-def _side_scores(predictions, frames) -> dict:
+def _side_scores(predictions: pd.DataFrame, frames: tuple[pd.DataFrame, pd.DataFrame]) -> dict:
+    """``seen/...`` and ``unseen/...`` record scores: ``frames`` cut to one side's documents."""
     if SIDE_COLUMN not in predictions:
         return {}
     sides = predictions.drop_duplicates("doc_id").set_index("doc_id")[SIDE_COLUMN]
