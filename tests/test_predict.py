@@ -167,10 +167,14 @@ def test_rendered_pdfs_the_model_never_saw_are_labelled_and_scored(trained, tmp_
              "result", "unit", "limit", "verdict"])]
         used = [w for _, v in values for w in v["word_ids"]]
         assert len(used) == len(set(used)) and set(used) <= set(mine["word_id"])
-        # left out: only other pieces of a single field (client, cert_no, sample_id) kept once
+        # left out: other pieces of a single field (client, cert_no, sample_id) kept once, and
+        # the words of line items lacking a required column (synth.yaml: analyte, result), so
+        # every item kept has both
         left_out = mine[~mine["word_id"].isin(used)]
-        assert set(left_out["predicted"]) <= {"client", "cert_no", "sample_id"} & set(
+        columns = {"analyte", "method", "result", "unit", "limit", "verdict"}
+        assert set(left_out["predicted"]) - columns <= {"client", "cert_no", "sample_id"} & set(
             record["fields"])
+        assert all({"analyte", "result"} <= set(item) for item in record["results"])
     table = pd.read_csv(tmp_path / "out" / "records.csv", keep_default_na=False)
     assert len(table) == sum(max(1, len(r["results"])) for r in records)
 
