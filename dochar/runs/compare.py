@@ -9,7 +9,7 @@ from dochar.metrics.evaluate import has_entity_ids, headline_scorers
 from dochar.metrics.intervals import PairedResult, paired_comparison
 from dochar.metrics.record_run import PREFIXES, RECORD_TABLES
 from dochar.metrics.records import record_scorers
-from dochar.metrics.seen_unseen import SIDE_COLUMN
+from dochar.metrics.seen_unseen import SIDE_COLUMN, SIDES
 from dochar.runs.bundle import RunBundle
 from dochar.runs.numbers import p_phrase
 
@@ -60,7 +60,7 @@ def _side_scores(predictions: pd.DataFrame, frames: tuple[pd.DataFrame, pd.DataF
         return {}
     sides = predictions.drop_duplicates("doc_id").set_index("doc_id")[SIDE_COLUMN]
     found = {}
-    for side in ("seen", "unseen"):
+    for side in SIDES:
         docs = set(sides.index[sides.astype(str) == side].astype(str))
         if docs:
             on_side = tuple(f[f["doc_id"].astype(str).isin(docs)] for f in frames)
