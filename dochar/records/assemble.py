@@ -20,8 +20,8 @@ import pandas as pd
 from dochar.data.links_table import ROW_KIND
 from dochar.records.normalise import RAW, normalise
 from dochar.records.pieces import Value, cut_pieces
-from dochar.records.rows import (Row, join_header_lines, rows_by_anchor, rows_by_layout,
-                                 rows_from_links)
+from dochar.records.rows import (Row, join_header_lines, page_slope, rows_by_anchor,
+                                 rows_by_layout, rows_from_links)
 from dochar.records.shape import RecordShape
 
 
@@ -73,7 +73,9 @@ def assemble_records(words: pd.DataFrame, shape: RecordShape, *, label_col: str 
     for doc_id, document in words.groupby(words["doc_id"].astype(str), sort=False):
         record = Record(str(doc_id))
         items: list[Value] = []
-        for _, page in document.groupby("page", sort=True):
+        slopes: dict[int, float] = {}
+        for page_no, page in document.groupby("page", sort=True):
+            slopes[int(page_no)] = page_slope(page[["x0", "y0", "x1", "y1"]].to_numpy(float))
             pieces = cut_pieces(page, shape.labels, label_col, group_col)
             header = [p for p in pieces if p.label in shape.header_fields]
             if group_col is None:
@@ -90,9 +92,10 @@ def assemble_records(words: pd.DataFrame, shape: RecordShape, *, label_col: str 
             if row_links is not None:
                 record.items = rows_from_links(items, links.get(str(doc_id), []))
             elif shape.row_anchor:
-                record.items = rows_by_anchor(items, shape.row_anchor, shape.amount_fields)
+                record.items = rows_by_anchor(items, shape.row_anchor, shape.amount_fields,
+                                              slopes)
             else:
-                record.items = rows_by_layout(items)
+                record.items = rows_by_layout(items, slopes)
             record.items = [row for row in record.items
                             if all(column in row for column in shape.required_columns)]
         records.append(record)

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import math
 from dataclasses import replace
 
 import pandas as pd
@@ -214,3 +215,40 @@ def test_an_item_lacking_a_required_column_is_left_out_and_the_truth_keeps_it():
                                                "data.record.item_columns"):
         RecordShape.from_mapping({"header_fields": ["cert_no"], "item_columns": ["analyte"],
                                   "required_columns": ["cert_no"]})
+
+
+def _tilted_receipt(degrees: float) -> pd.DataFrame:
+    """Four line items (count, a three-word name, price; 20-unit type, 30-unit line pitch)
+    photographed turned by ``degrees`` about the page's top-left corner: each word's box is the
+    upright bounding box of its turned rectangle."""
+    turn = math.radians(degrees)
+    rows = []
+    for item in range(4):
+        top = 100 + 30 * item
+        cells = [("1", 10, 25, "menu.cnt"), ("Kopi", 40, 90, "menu.nm"),
+                 ("susu", 95, 145, "menu.nm"), (f"gula{item}", 150, 200, "menu.nm"),
+                 (f"{item + 1}0.000", 400, 460, "menu.price")]
+        for text, x0, x1, label in cells:
+            corners = [(x, y) for x in (x0, x1) for y in (top, top + 20)]
+            xs = [x * math.cos(turn) - y * math.sin(turn) for x, y in corners]
+            ys = [x * math.sin(turn) + y * math.cos(turn) for x, y in corners]
+            rows.append((text, min(xs), min(ys), max(xs), max(ys), label, ""))
+    return _words(rows)
+
+
+def test_a_tilted_photo_keeps_each_price_with_its_item():
+    # Words on one line turned by 4 degrees have centres on a line of slope tan(4°) = 0.0699
+    # (plane geometry, worked by hand): the price, 400 units right of the count, sits 29 units
+    # higher, a whole line pitch, so level bands would give it to the item above.
+    from dochar.records.rows import page_slope
+
+    words = _tilted_receipt(4.0)
+    boxes = words[["x0", "y0", "x1", "y1"]].to_numpy(float)
+    assert page_slope(boxes) == pytest.approx(math.tan(math.radians(4.0)), abs=1e-9)
+    assert page_slope(_tilted_receipt(0.0)[["x0", "y0", "x1", "y1"]].to_numpy(float)) == 0.0
+    shape = RecordShape((), ("menu.nm", "menu.cnt", "menu.price"), items_name="menu",
+                        row_anchor="menu.nm", amount_fields=("menu.price",))
+    (record,) = assemble_records(words, shape, label_col="label")
+    assert record.parse(shape)["menu"] == [
+        {"menu.nm": f"Kopi susu gula{i}", "menu.cnt": "1", "menu.price": f"{i + 1}0.000"}
+        for i in range(4)]
