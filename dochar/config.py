@@ -51,6 +51,7 @@ class RecordSchema:
     amount_fields: List[str] = field(default_factory=list)
     single_fields: List[str] = field(default_factory=list)  # one value each: the likeliest
     row_anchor: str = ""                  # the item column that opens a line item ("": layout)
+    once_per_item: List[str] = field(default_factory=list)  # a second value opens an item
     required_columns: List[str] = field(default_factory=list)  # an item lacking one: left out
 
 

@@ -83,12 +83,12 @@ def test_cord_json_in_records_out(cord_forest, tmp_path, capsys):
         assert set(left_out["predicted"]) <= set(shape["single_fields"]) & set(record["fields"])
         # the anchor column (the item name) opens the items: one item per predicted name line
         # (no two name lines of these receipts share a line band); an item after the first
-        # has a name or was opened by a second amount of a column its predecessor holds;
+        # has a name or was opened by a second value of a column its predecessor holds once;
         # items run top to bottom
         names = wanted.loc[wanted["predicted"] == shape["row_anchor"], "entity"].nunique()
         assert sum(shape["row_anchor"] in item for item in record["menu"]) == names
-        amounts = set(shape["amount_fields"])
-        assert all(shape["row_anchor"] in item or set(item) & set(before) & amounts
+        once = set(shape["once_per_item"])
+        assert all(shape["row_anchor"] in item or set(item) & set(before) & once
                    for before, item in zip(record["menu"], record["menu"][1:]))
         tops = [min(v["box"][1] for v in item.values()) for item in record["menu"]]
         assert tops == sorted(tops)

@@ -92,7 +92,7 @@ def assemble_records(words: pd.DataFrame, shape: RecordShape, *, label_col: str 
             if row_links is not None:
                 record.items = rows_from_links(items, links.get(str(doc_id), []))
             elif shape.row_anchor:
-                record.items = rows_by_anchor(items, shape.row_anchor, shape.amount_fields,
+                record.items = rows_by_anchor(items, shape.row_anchor, shape.once_per_item,
                                               slopes)
             else:
                 record.items = rows_by_layout(items, slopes)

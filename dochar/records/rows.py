@@ -20,9 +20,9 @@ Three ways to find a document's line items:
   Cells of one column within one row are joined in reading order.
 * **by an anchor column** (the shape's ``row_anchor``, e.g. a receipt's item name), page by
   page: the same line bands; a band holding an anchor piece starts a new item when the current
-  item has its anchor already, and so does a band holding an amount (the shape's
-  ``amount_fields``) of a column the current item has a value of already (an item has one
-  price); every other band joins the current item (a receipt's count, unit price, price and
+  item has its anchor already, and so does a band holding a value of a column the item holds
+  once (the shape's ``once_per_item``: a receipt item's price and unit price) when the current
+  item has one already; every other band joins the current item (a receipt's count, unit price, price and
   sub-item lines under their item's name). Bands before the first anchor belong to the first
   item. Cells of one column within one item are joined in reading order.
 
@@ -160,10 +160,10 @@ def rows_by_layout(pieces: Sequence[Value], slopes: Mapping[int, float] | None =
     return rows
 
 
-def rows_by_anchor(pieces: Sequence[Value], anchor: str, amounts: Collection[str] = (),
+def rows_by_anchor(pieces: Sequence[Value], anchor: str, once: Collection[str] = (),
                    slopes: Mapping[int, float] | None = None) -> list[Row]:
     """Rows of item pieces opened by ``anchor`` pieces, or by a second value of one of the
-    ``amounts`` columns (module docstring), page by page; ``slopes`` as for
+    ``once`` columns (module docstring), page by page; ``slopes`` as for
     :func:`rows_by_layout`."""
     rows: list[Row] = []
     for page in sorted({p.page for p in pieces}):
@@ -173,7 +173,7 @@ def rows_by_anchor(pieces: Sequence[Value], anchor: str, amounts: Collection[str
         for band in _bands(on_page, height, (slopes or {}).get(page, 0.0)):
             labels = {p.label for p in band}
             if (current is None or (anchor in current and anchor in labels)
-                    or any(label in current for label in labels & set(amounts))):
+                    or any(label in current for label in labels & set(once))):
                 current = {}
                 rows.append(current)
             for piece in band:

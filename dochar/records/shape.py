@@ -8,7 +8,9 @@ amounts. ``single_fields`` are header fields a document has one value of: of sev
 predicted, the one whose least word probability is highest is kept. ``row_anchor`` (optional)
 is the item column that opens a line item: every line holding it starts a new item, and the
 lines under it join that item until the next one (a receipt's item name;
-:func:`dochar.records.rows.rows_by_anchor`). ``required_columns`` (optional, some of
+:func:`dochar.records.rows.rows_by_anchor`); ``once_per_item`` (optional, with ``row_anchor``)
+are the item columns an item holds one value of (a receipt item's price and unit price): a line
+holding one the current item has already starts a new item. ``required_columns`` (optional, some of
 ``item_columns``) are the cells every line item has (a certificate's analyte and result): a
 predicted item lacking one is left out of the record, since a stray table word (a column
 header read as a cell) would otherwise stand as an item of its own; its words keep their labels
@@ -27,7 +29,7 @@ from dochar.errors import DocharError, did_you_mean
 
 SHAPE_KEYS: tuple[str, ...] = ("header_fields", "item_columns", "items_name", "date_fields",
                                "amount_fields", "single_fields", "row_anchor",
-                               "required_columns")
+                               "once_per_item", "required_columns")
 
 
 class RecordShapeError(DocharError):
@@ -45,6 +47,7 @@ class RecordShape:
     amount_fields: tuple[str, ...] = ()
     single_fields: tuple[str, ...] = ()   # header fields with one value: the likeliest piece
     row_anchor: str = ""             # "": rows by the layout rule
+    once_per_item: tuple[str, ...] = ()      # a second value of one opens a new item
     required_columns: tuple[str, ...] = ()   # a predicted item lacking one is left out
 
     @property
@@ -112,10 +115,11 @@ def check_shape(shape: RecordShape, labels: Sequence[str] | None, *,
         if seen.get(label) != "header_fields":
             raise RecordShapeError(f"config key {where}.single_fields: label {label!r} is not "
                                    f"one of {where}.header_fields")
-    for label in shape.required_columns:
-        if seen.get(label) != "item_columns":
-            raise RecordShapeError(f"config key {where}.required_columns: label {label!r} is "
-                                   f"not one of {where}.item_columns")
+    for key in ("required_columns", "once_per_item"):
+        for label in getattr(shape, key):
+            if seen.get(label) != "item_columns":
+                raise RecordShapeError(f"config key {where}.{key}: label {label!r} is not one "
+                                       f"of {where}.item_columns")
     if shape.row_anchor and shape.row_anchor not in shape.item_columns:
         raise RecordShapeError(f"config key {where}.row_anchor: label {shape.row_anchor!r} is "
                                f"not one of {where}.item_columns")

@@ -130,7 +130,8 @@ def test_synthetic_round_trip_recovers_the_generators_records_from_true_labels()
 # and price are on the line under its name, then a count and price of no name. A note line
 # above the first name belongs to the first item.
 RECEIPT_SHAPE = RecordShape(("total",), ("nm", "cnt", "unitprice", "price", "sub_nm"),
-                            items_name="menu", row_anchor="nm", amount_fields=("price", "total"))
+                            items_name="menu", row_anchor="nm", amount_fields=("price", "total"),
+                            once_per_item=("price",))
 RECEIPT = _words([
     ("TAKEAWAY", 40, 86, 90, 96, "sub_nm", "l0"),
     ("2", 20, 100, 26, 110, "cnt", "l1"), ("Green", 40, 100, 70, 110, "nm", "l2"),
@@ -165,6 +166,30 @@ def test_an_anchor_column_opens_each_line_item():
         RecordShape.from_mapping({"header_fields": ["total"], "item_columns": ["nm"],
                                   "row_anchor": "total"})
     assert RecordShape.from_mapping({"item_columns": ["nm"], "row_anchor": "nm"}).row_anchor == "nm"
+    with pytest.raises(RecordShapeError, match="once_per_item: label 'total' is not one of "
+                                               "data.record.item_columns"):
+        RecordShape.from_mapping({"header_fields": ["total"], "item_columns": ["nm"],
+                                  "once_per_item": ["total"]})
+
+
+def test_sub_item_prices_and_discounts_repeat_within_one_item():
+    # drawn by hand: a set menu with its price, two sub-item lines each with a price of its
+    # own, a discount line, a second discount line; then the next item's count and price on a
+    # line of no name. Only a second value of a once-per-item column (price) opens an item.
+    words = _words([
+        ("Paket", 40, 100, 70, 110, "nm", "l0"), ("45.00", 150, 100, 180, 110, "price", "l1"),
+        ("Fries", 50, 114, 80, 124, "sub_nm", "l2"), ("0", 150, 114, 156, 124, "sub_price", "l3"),
+        ("Cola", 50, 128, 74, 138, "sub_nm", "l4"), ("5.00", 150, 128, 174, 138, "sub_price", "l5"),
+        ("-4.50", 150, 142, 180, 152, "discount", "l6"),
+        ("-1.00", 150, 156, 180, 166, "discount", "l7"),
+        ("2", 20, 170, 26, 180, "cnt", "l8"), ("9.00", 150, 170, 174, 180, "price", "l9")])
+    shape = RecordShape((), ("nm", "cnt", "price", "discount", "sub_nm", "sub_price"),
+                        items_name="menu", row_anchor="nm", once_per_item=("price",))
+    (record,) = assemble_records(words, shape, label_col="label", group_col="entity_id")
+    assert record.parse(shape)["menu"] == [
+        {"nm": "Paket", "price": "45.00", "discount": "-4.50 -1.00", "sub_nm": "Fries Cola",
+         "sub_price": "0 5.00"},
+        {"cnt": "2", "price": "9.00"}]
 
 
 def test_a_single_field_keeps_its_likeliest_piece_and_the_truth_keeps_every_piece():
@@ -247,7 +272,7 @@ def test_a_tilted_photo_keeps_each_price_with_its_item():
     assert page_slope(boxes) == pytest.approx(math.tan(math.radians(4.0)), abs=1e-9)
     assert page_slope(_tilted_receipt(0.0)[["x0", "y0", "x1", "y1"]].to_numpy(float)) == 0.0
     shape = RecordShape((), ("menu.nm", "menu.cnt", "menu.price"), items_name="menu",
-                        row_anchor="menu.nm", amount_fields=("menu.price",))
+                        row_anchor="menu.nm", once_per_item=("menu.price",))
     (record,) = assemble_records(words, shape, label_col="label")
     assert record.parse(shape)["menu"] == [
         {"menu.nm": f"Kopi susu gula{i}", "menu.cnt": "1", "menu.price": f"{i + 1}0.000"}
