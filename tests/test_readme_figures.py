@@ -94,11 +94,15 @@ def test_seed_spread_takes_the_worst_fall_over_ordered_pairs():
     # worked by hand: pair (0 -> 1): low 0.85 - rerun 0.84 = 0.01 (a fall);
     # pair (1 -> 0): low 0.80 - rerun 0.90 = -0.10 (above the interval); worst = 0.01 at (0, 1).
     # class f1/unit: (0 -> 1): 0.70 - 0.60 = 0.10; (1 -> 0): 0.50 - 0.75 = -0.25.
+    # record straight-through: (0 -> 1): 0.40 - 0.30 = 0.10; (1 -> 0): 0.20 - 0.50 = -0.30.
     scores = {0: {"macro_f1": Score(0.90, 0.85, 0.95), "entity_f1": Score(0.80, 0.78, 0.82),
+                  "records/straight_through": Score(0.50, 0.40, 0.60),
                   "f1/unit": Score(0.75, 0.70, 0.80, 40)},
               1: {"macro_f1": Score(0.84, 0.80, 0.88), "entity_f1": Score(0.81, 0.79, 0.83),
+                  "records/straight_through": Score(0.30, 0.20, 0.40),
                   "f1/unit": Score(0.60, 0.50, 0.70, 35)}}
-    worst = seed_spread(scores)
+    worst = seed_spread(scores, ["macro_f1", "entity_f1", "records/straight_through"])
+    assert worst["records/straight_through"].value == pytest.approx(0.10)
     assert worst["macro_f1"].value == pytest.approx(0.01)
     assert worst["macro_f1"].where == "baseline seed 0, rerun seed 1"
     # entity: (0 -> 1): 0.78 - 0.81 = -0.03; (1 -> 0): 0.79 - 0.80 = -0.01: never below, shown 0
