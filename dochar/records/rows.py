@@ -7,10 +7,10 @@ Three ways to find a document's line items:
   link touches is a row of its own.
 * **by the layout rule** (no row model), page by page:
 
-  1. *line bands*: pieces sorted by the height of their centre above the page's text
-     baseline direction (:func:`page_slope`, so a photographed page held at an angle keeps its
-     lines); a piece whose centre lies within half a piece height (the page's median) of the
-     band's first centre joins that band.
+  1. *line bands*: pieces sorted by the height of their centre, measured square to the page's
+     text lines (:func:`page_slope`: a photographed page held at an angle keeps its lines); a
+     piece whose centre lies within half a piece height (the page's median) of the band's first
+     centre joins that band.
   2. *continuation lines*: a band directly under the previous row (its top less than one
      piece height below that row's bottom) that fills at most half as many columns as the
      page's fullest band, and whose every piece lies under a cell of its own column in that
@@ -20,11 +20,12 @@ Three ways to find a document's line items:
   Cells of one column within one row are joined in reading order.
 * **by an anchor column** (the shape's ``row_anchor``, e.g. a receipt's item name), page by
   page: the same line bands; a band holding an anchor piece starts a new item when the current
-  item has its anchor already, and so does a band holding a value of a column the item holds
+  item has its anchor already, and so does a band holding a value of a column an item holds
   once (the shape's ``once_per_item``: a receipt item's price and unit price) when the current
-  item has one already; every other band joins the current item (a receipt's count, unit price, price and
-  sub-item lines under their item's name). Bands before the first anchor belong to the first
-  item. Cells of one column within one item are joined in reading order.
+  item has one already; every other band joins the current item (a receipt's count, unit
+  price, price, discount and sub-item lines under their item's name). Bands before the first
+  anchor belong to the first item. Cells of one column within one item are joined in reading
+  order.
 
 Header values over several lines (:func:`join_header_lines`): a piece joins the value above it
 when it has the same label, starts within one height of that value's left edge, lies less than

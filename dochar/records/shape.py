@@ -1,22 +1,21 @@
-"""The shape of a record, read from a data config's ``record:`` block.
-
-``header_fields`` are word labels whose values belong to the document as a whole (a certificate
-number, its dates); ``item_columns`` are the labels of table cells, one column each, that make
-up a line item; ``items_name`` is the key the list of line items goes under. ``date_fields`` and
+"""The shape of a record, read from a data config's ``record:`` block. ``header_fields`` are word
+labels whose values belong to the document as a whole (a certificate number, its dates);
+``item_columns`` are the labels of table cells, one column each, that make up a line item;
+``items_name`` is the key the list of line items goes under. ``date_fields`` and
 ``amount_fields`` name the labels (of either kind) whose values normalisation reads as dates or
 amounts. ``single_fields`` are header fields a document has one value of: of several pieces
-predicted, the one whose least word probability is highest is kept. ``row_anchor`` (optional)
-is the item column that opens a line item: every line holding it starts a new item, and the
-lines under it join that item until the next one (a receipt's item name;
+predicted, the one whose least word probability is highest is kept. ``row_anchor`` (optional) is
+the item column that opens a line item: every line holding it starts a new item, and the lines
+under it join that item until the next one (a receipt's item name;
 :func:`dochar.records.rows.rows_by_anchor`); ``once_per_item`` (optional, with ``row_anchor``)
 are the item columns an item holds one value of (a receipt item's price and unit price): a line
-holding one the current item has already starts a new item. ``required_columns`` (optional, some of
-``item_columns``) are the cells every line item has (a certificate's analyte and result): a
-predicted item lacking one is left out of the record, since a stray table word (a column
-header read as a cell) would otherwise stand as an item of its own; its words keep their labels
-in ``words.csv``. The truth's items are never left out. A label may be in one role only, and
-every label named must be one of the data's labels:
-:func:`check_shape` says which key names what, before any data loads.
+holding one the current item has already starts a new item. ``required_columns`` (optional, some
+of ``item_columns``) are the cells every line item has (a certificate's analyte and result): a
+predicted item lacking one is left out of the record, since a stray table word (a column header
+read as a cell) would otherwise stand as an item of its own; its words keep their labels in
+``words.csv``. The truth's items are never left out. A label may be in one role only, and every
+label named must be one of the data's labels: :func:`check_shape` says which key names what,
+before any data loads.
 """
 
 from __future__ import annotations
