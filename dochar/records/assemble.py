@@ -75,7 +75,8 @@ def assemble_records(words: pd.DataFrame, shape: RecordShape, *, label_col: str 
         items: list[Value] = []
         slopes: dict[int, float] = {}
         for page_no, page in document.groupby("page", sort=True):
-            slopes[int(page_no)] = page_slope(page[["x0", "y0", "x1", "y1"]].to_numpy(float))
+            if row_links is None and shape.item_columns:   # only the row rules read it
+                slopes[int(page_no)] = page_slope(page[["x0", "y0", "x1", "y1"]].to_numpy(float))
             pieces = cut_pieces(page, shape.labels, label_col, group_col)
             header = [p for p in pieces if p.label in shape.header_fields]
             if group_col is None:
