@@ -30,14 +30,18 @@ class CellIndex:
     high: np.ndarray      # (n, 2) int64 cell of each box's (x1, y1)
     start: np.ndarray     # (cells + 1,) first entry of each cell (row-major cell ids)
     entry_box: np.ndarray      # box of each entry, entries sorted by cell
-    entry_column: np.ndarray   # column of each entry's cell
-    entry_leftmost: np.ndarray  # the entry is its box's first column
+    entry_inner_column: np.ndarray  # column of each entry's cell, -1 in its box's first column
     entry_topmost: np.ndarray   # the entry is its box's first row
 
     def cells_of(self, points: np.ndarray) -> np.ndarray:
         """Cell (column, row) holding each point (m, 2), clipped to the grid."""
         cell = np.floor((points - self.origin) / self.size).astype(np.int64)
         return np.clip(cell, 0, self.shape - 1)
+
+    def cells_of_x(self, x: np.ndarray) -> np.ndarray:
+        """Column holding each x, clipped to the grid (``cells_of``'s first column)."""
+        return np.minimum(np.floor((x - self.origin[0]) / self.size[0]).astype(np.int64),
+                          self.shape[0] - 1)
 
     def first_reach(self, cells: float) -> float:
         """A first search distance of ``cells`` times the smaller cell side; one side settles
@@ -68,17 +72,17 @@ class CellIndex:
         rows_each = high[:, 1] - low[:, 1] + 1
         query = np.repeat(np.arange(len(low)), rows_each)
         offset = _positions_within(rows_each)
-        row_base = (low[query, 1] + offset) * columns
-        first = self.start[row_base + low[query, 0]]
-        counts = self.start[row_base + high[query, 0] + 1] - first
+        left = low[:, 0][query]
+        row_base = (low[:, 1][query] + offset) * columns
+        first = self.start[row_base + left]
+        counts = self.start[row_base + high[:, 0][query] + 1] - first
         entry = np.repeat(first - _exclusive_cumsum(counts), counts) + np.arange(int(counts.sum()))
-        window_top = np.repeat(offset == 0, counts)
-        query = np.repeat(query, counts)
         # a box filed under several cells of the window is kept at its first cell only: its own
-        # first row (column) or the window's first row (column), whichever comes later
-        once = ((self.entry_leftmost[entry] | (self.entry_column[entry] == low[query, 0]))
-                & (self.entry_topmost[entry] | window_top))
-        return query[once], self.entry_box[entry[once]]
+        # first row (column) or the window's first row (column), whichever comes later; a
+        # window's cells start at its first column, so "inner column <= it" means "at it"
+        once = ((self.entry_inner_column[entry] <= np.repeat(left, counts))
+                & (self.entry_topmost[entry] | np.repeat(offset == 0, counts)))
+        return np.repeat(query, counts)[once], self.entry_box[entry[once]]
 
 
 def cell_index(boxes: np.ndarray) -> CellIndex:
@@ -106,9 +110,9 @@ def cell_index(boxes: np.ndarray) -> CellIndex:
     cell_id = ((low[entry_box, 1] + row_in_box) * shape[0] + low[entry_box, 0] + column_in_box)
     order = np.argsort(cell_id, kind="stable")
     start = np.searchsorted(cell_id[order], np.arange(int(shape[0] * shape[1]) + 1))
+    inner_column = np.where(column_in_box == 0, -1, low[entry_box, 0] + column_in_box)
     return CellIndex(origin, size, shape, low, high, start, entry_box[order],
-                     (low[entry_box, 0] + column_in_box)[order], (column_in_box == 0)[order],
-                     (row_in_box == 0)[order])
+                     inner_column[order], (row_in_box == 0)[order])
 
 
 def _exclusive_cumsum(counts: np.ndarray) -> np.ndarray:

@@ -32,7 +32,7 @@ import numpy as np
 from dochar.data.word_table import Page
 from dochar.graphs.base import (ABOVE, BELOW, DIRECTIONS, LEFT, RIGHT, TypedEdges,
                                 direction_codes, make_edges, no_edges)
-from dochar.graphs.cells import cell_index, order_within_groups
+from dochar.graphs.cells import cell_index
 from dochar.graphs.geometry import page_geometry
 
 FIRST_REACH = 2.0   # first look-ahead, in median word extents along the line of sight
@@ -54,13 +54,11 @@ def sight_pairs(boxes: np.ndarray) -> np.ndarray:
     found = []
     while len(pending):
         a = pending
-        low = index.cells_of(np.column_stack([x0[a], y0[a]]))
-        high = index.cells_of(np.column_stack([x1[a] + reach, y1[a]]))
         edge = x1[a] + reach
+        low = index.low[a]      # the window: from the word's own first cell to its reach
+        high = np.column_stack([index.cells_of_x(edge), index.high[a, 1]])
         edge[~rows.exceeds(low[:, 1], high[:, 1], edge)] = np.inf     # nothing lies beyond
-        query, b = index.boxes_in(low, high)
-        other = b != a[query]
-        query, b = query[other], b[other]
+        query, b = index.boxes_in(low, high)    # the word itself among them: it sees no pair
         i = a[query]
         lo, hi = np.maximum(y0[i], y0[b]), np.minimum(y1[i], y1[b])
         banded = (hi > lo) | ((hi == lo) & (flat[i] | flat[b]))
@@ -72,7 +70,7 @@ def sight_pairs(boxes: np.ndarray) -> np.ndarray:
         hidden = blocked(partner, hider, query, b, lo, hi, boxes)
         covered = hidden_beyond(query[hider], b[hider], a, edge, boxes, ranks, levels, starts)
         done = np.isinf(edge) | (covered & ~flats.exceeds(y0[a], y1[a], edge))
-        sees = (touching | (partner & ~hidden)) & done[query]
+        sees = (touching | (partner & ~hidden)) & done[query] & (b != i)
         first, second = np.minimum(i[sees], b[sees]), np.maximum(i[sees], b[sees])
         found.append(first * n + second)
         pending, reach = pending[~done], reach * 2
@@ -108,13 +106,14 @@ def blocked(partner: np.ndarray, hider: np.ndarray, query: np.ndarray, box: np.n
     first = np.r_[0, np.cumsum(per_query)[:-1]]
     partners = np.flatnonzero(partner)
     counts = per_query[query[partners]]
-    p = np.repeat(partners, counts)
     k = hiders[np.repeat(first[query[partners]], counts)
                + np.arange(int(counts.sum())) - np.repeat(np.cumsum(counts) - counts, counts)]
     kb = box[k]
-    hit = (kb != box[p]) & (x0[kb] < x0[box[p]]) & (y0[kb] < hi[p]) & (y1[kb] > lo[p])
+    mine = box[partners]       # each partner's values, repeated over its hiders
+    hit = ((kb != np.repeat(mine, counts)) & (x0[kb] < np.repeat(x0[mine], counts))
+           & (y0[kb] < np.repeat(hi[partners], counts)) & (y1[kb] > np.repeat(lo[partners], counts)))
     out = np.zeros(len(partner), dtype=bool)
-    out[p[hit]] = True
+    out[np.repeat(partners, counts)[hit]] = True
     return out
 
 
@@ -137,9 +136,10 @@ def hidden_beyond(query: np.ndarray, hider: np.ndarray, targets: np.ndarray, edg
     own_start, own_end = rank0[targets], rank1[targets]
     straddles = np.zeros(len(targets), dtype=bool)
     straddles[query[(y0[hider] < y0[t]) & (boxes[hider, 3] > y0[t])]] = True
-    order = order_within_groups(query, (start,))
-    query, start, end = query[order], start[order], end[order]
     stride = int(rank1.max(initial=0)) + 1
+    # by target, then by start: one stable sort of a combined integer key (ranks < stride)
+    order = np.argsort(query * stride + start, kind="stable")
+    query, start, end = query[order], start[order], end[order]
     reached = np.maximum.accumulate(query * stride + end) - query * stride
     first = np.r_[True, query[1:] != query[:-1]]
     before = np.where(first, own_start[query], np.r_[0, reached[:-1]])

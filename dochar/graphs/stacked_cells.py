@@ -23,8 +23,8 @@ class StackedCells:
     high: np.ndarray      # (n, 2) int64 cell of each box's (x1, y1)
     start: np.ndarray     # (cells + 1,) first entry of each cell
     entry_box: np.ndarray
-    entry_column: np.ndarray    # column of each entry's cell, within its page's grid
-    entry_leftmost: np.ndarray
+    entry_inner_column: np.ndarray   # column of each entry's cell in its page's grid, or -1
+                                     # in its box's first column (``CellIndex``)
     entry_topmost: np.ndarray
 
     def first_reach(self, boxes: np.ndarray, cells: float) -> np.ndarray:
@@ -63,8 +63,7 @@ class StackedCells:
         first = self.start[row_base + left]
         counts = self.start[row_base + high[:, 0][query] + 1] - first
         entry = np.repeat(first - _exclusive_cumsum(counts), counts) + np.arange(int(counts.sum()))
-        once = ((self.entry_leftmost[entry] | (self.entry_column[entry]
-                                               == np.repeat(left, counts)))
+        once = ((self.entry_inner_column[entry] <= np.repeat(left, counts))
                 & (self.entry_topmost[entry] | np.repeat(offset == 0, counts)))
         return np.repeat(query, counts)[once], self.entry_box[entry[once]]
 
@@ -106,8 +105,9 @@ def stacked_cells(boxes: np.ndarray, starts: np.ndarray) -> StackedCells:
     order = np.argsort(cell_id, kind="stable")
     total = int(first_cell[-1] + shape[-1, 0] * shape[-1, 1]) if len(counts) else 0
     start = np.searchsorted(cell_id[order], np.arange(total + 1))
+    inner_column = np.where(column_in_box == 0, -1, column)
     return StackedCells(size, shape, first_cell, page, low, high, start, entry_box[order],
-                        column[order], (column_in_box == 0)[order], (row_in_box == 0)[order])
+                        inner_column[order], (row_in_box == 0)[order])
 
 
 def _medians(values: np.ndarray, page: np.ndarray, starts: np.ndarray) -> np.ndarray:
