@@ -8,11 +8,12 @@ in, by the dominant axis of the centre offset (:func:`dochar.graphs.base.directi
 Search: candidates come from a window of grid cells around the target (:mod:`dochar.graphs.cells`);
 the window's answer stands once it holds k words nearer than the gap every box outside the window
 must exceed, otherwise that target's window doubles. Near-linear on real pages, exact on any page.
-A page of at most ``DENSE_UP_TO`` words ranks all its pairs at once instead: on a form-sized
-page that is cheaper than building the grid, and the ranking keys are the same. Given many
-pages (:meth:`KnnBuilder.build_all`), one search runs over all of them, each page in a grid of
-its own (:mod:`dochar.graphs.stacked_cells`): the same edges as page by page, without a search
-per page.
+A page of at most ``DENSE_UP_TO`` words ranks all its pairs instead, compiled
+(:mod:`dochar.graphs.knn_pairs`): on a form-sized page that is cheaper than building the grid,
+and the ranking keys are the same. Given many pages (:meth:`KnnBuilder.build_all`), one call
+ranks the pairs of all the small pages, and one grid search runs over all the others, each page
+in a grid of its own (:mod:`dochar.graphs.stacked_cells`): the same edges as page by page,
+without a search per page.
 """
 
 from __future__ import annotations
@@ -30,7 +31,8 @@ from dochar.graphs.cells import cell_index, order_within_groups
 from dochar.graphs.geometry import PageGeometry, page_geometry, stacked_geometry
 from dochar.graphs.stacked_cells import stacked_cells
 
-DENSE_UP_TO = 200   # words; about where the two searches cost the same on benchmarks/pages.py pages
+# words; the compiled pair ranking is the faster below about 1,000 (benchmarks/pages.py pages)
+DENSE_UP_TO = 800
 
 
 @dataclass(frozen=True)
@@ -55,17 +57,21 @@ class KnnBuilder:
         return make_edges(source, target, direction_codes(dx, dy), self.relations)
 
     def build_all(self, pages: Sequence[Page]) -> list[TypedEdges]:
-        """Every page's edges, as :meth:`__call__` gives them, by one grid search over all
-        pages (:func:`nearest_words_of_pages`); a page of one word has none."""
+        """Every page's edges, as :meth:`__call__` gives them: the small pages' pairs ranked
+        in one call, one grid search over the others (:func:`nearest_words_of_pages`); a page
+        of one word has none."""
         edges = [no_edges(self.relations)] * len(pages)
-        searched = [i for i, page in enumerate(pages) if len(page) > 1]
-        if searched:
-            geo, starts = stacked_geometry([pages[i] for i in searched], self.name)
+        small = [i for i, page in enumerate(pages) if 1 < len(page) <= DENSE_UP_TO]
+        large = [i for i, page in enumerate(pages) if len(page) > DENSE_UP_TO]
+        for chosen, search in ((small, _all_pairs_of_pages), (large, nearest_words_of_pages)):
+            if not chosen:
+                continue
+            geo, starts = stacked_geometry([pages[i] for i in chosen], self.name)
             take = np.minimum(int(self.k), np.diff(starts) - 1)
-            source, target = nearest_words_of_pages(geo, starts, take)
+            source, target = search(geo, starts, take)
             dx, dy = (geo.centres[source] - geo.centres[target]).T
-            for i, found in zip(searched, edges_by_page(source, target, direction_codes(dx, dy),
-                                                        starts, self.relations)):
+            for i, found in zip(chosen, edges_by_page(source, target, direction_codes(dx, dy),
+                                                      starts, self.relations)):
                 edges[i] = found
         return edges
 
@@ -73,7 +79,7 @@ class KnnBuilder:
 def nearest_words(geo: PageGeometry, take: int) -> tuple[np.ndarray, np.ndarray]:
     """The ``take`` nearest other words of every word: (sources, targets)."""
     if geo.n <= DENSE_UP_TO:
-        return nearest_words_all_pairs(geo, take)
+        return _all_pairs_of_pages(geo, np.array([0, geo.n]), np.array([take]))
     index = cell_index(geo.boxes)
     pending, reach = np.arange(geo.n), index.first_reach(2.0)
     sources, targets = [], []
@@ -96,21 +102,13 @@ def nearest_words(geo: PageGeometry, take: int) -> tuple[np.ndarray, np.ndarray]
     return np.concatenate(sources), np.concatenate(targets)
 
 
-def nearest_words_all_pairs(geo: PageGeometry, take: int) -> tuple[np.ndarray, np.ndarray]:
-    """:func:`nearest_words` by ranking, per target, the pairs within its take-th smallest gap."""
-    n = geo.n
-    everyone = np.arange(n)
-    gap2, centre2, _, _ = geo.pair_keys(everyone[:, None], everyone[None, :])   # (n, n) each
-    gap2[everyone, everyone] = np.inf                          # a word is not its own neighbour
-    kth = np.partition(gap2, take - 1, axis=1)[:, take - 1]
-    query, box = np.nonzero(gap2 <= kth[:, None])               # ties at the cut included
-    order = order_within_groups(query, (gap2[query, box], centre2[query, box],
-                                        geo.rank[box]))
-    query, box = query[order], box[order]
-    first = np.searchsorted(query, np.arange(n))
-    kept = np.arange(len(query)) - first[query] < take
-    return box[kept], query[kept]
+def _all_pairs_of_pages(geo: PageGeometry, starts: np.ndarray, take: np.ndarray
+                        ) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`nearest_words_of_pages` by ranking every pair of each page, compiled."""
+    from dochar.graphs.knn_pairs import nearest_by_all_pairs   # Numba loads on first use
 
+    return nearest_by_all_pairs(geo.boxes, geo.centres, geo.rank, starts.astype(np.int64),
+                                take.astype(np.int64))
 
 
 def nearest_words_of_pages(geo: PageGeometry, starts: np.ndarray, take: np.ndarray
