@@ -30,6 +30,7 @@ from dochar.data.sources import load_data
 from dochar.data.word_table import Page, iter_pages, validate_word_table
 from dochar.features import WordFeaturizer
 from dochar.features.geometry import GEOMETRY_NAMES
+from dochar.graphs import knn as knn_module
 from dochar.metrics.entities import reading_order as entity_reading_order
 from dochar.models.builders import build_gnn, gnn_arguments
 from dochar.models.fit import FittedModel
@@ -192,11 +193,16 @@ def test_a_flat_box_on_the_bottom_edge_of_a_word_shares_its_line():
                                                                                   2, 2, 3]
 
 
+@pytest.mark.parametrize("dense_up_to", [0, 200, knn_module.DENSE_UP_TO])
 @pytest.mark.parametrize("k", [1, 8, 30])
-def test_nearest_words_of_all_pages_at_once_are_those_of_each_page_alone(funsd_pages, k):
-    """Oracle: the builder page by page (itself checked against an all-pairs ranking in
+def test_nearest_words_of_all_pages_at_once_are_those_of_each_page_alone(funsd_pages, k,
+                                                                         dense_up_to,
+                                                                         monkeypatch):
+    """Oracle: the builder page by page (itself checked against a brute-force ranking in
     tests/graphs). Pages of one, two and three words, and a page of one box repeated (ties
-    everywhere), sit among the forms."""
+    everywhere), sit among the forms. Every page takes the stacked grid search (0), the forms
+    split between it and the compiled all-pairs ranking (200), or all take the latter."""
+    monkeypatch.setattr(knn_module, "DENSE_UP_TO", dense_up_to)
     tiny = [Page("tiny", n, np.arange(n), ["w"] * n, funsd_pages[0].boxes[:n].copy(), 1000.0,
                  1000.0) for n in (1, 2, 3)]
     repeated = Page("same", 1, np.arange(12)[::-1].copy(), ["w"] * 12,
