@@ -186,6 +186,7 @@ class GnnModelSchema:
     dropout: float = 0.2
     norm: Optional[str] = "batch"
     residual: bool = True
+    members: int = 1
     layer_options: Dict[str, Any] = field(default_factory=dict)
 
 

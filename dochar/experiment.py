@@ -46,6 +46,14 @@ def check_names(cfg: DictConfig) -> None:
     if cfg.model.kind == "template" and task.target != tasks.NODES:
         raise tasks.TaskError(f"model.kind=template labels words; task {task.name!r} scores "
                               "pairs: choose a GNN or a baseline")
+    members = cfg.model.get("members", 1) if cfg.model.kind == "gnn" else 1
+    if isinstance(members, bool) or not isinstance(members, int) or members < 1:
+        raise tasks.TaskError(f"model.members={members!r}: use a whole number of networks, 1 "
+                              "or more")
+    if members > 1 and task.target != tasks.NODES:
+        raise tasks.TaskError(f"model.members={members}: averaging members labels nodes; task "
+                              f"{task.name!r} scores pairs, whose link cut is chosen per "
+                              "network: use model.members=1")
     chosen = [("graph.name", cfg.graph.name, graphs.BUILDERS)]
     chosen.append(("model.layer", cfg.model.layer, LAYERS) if cfg.model.kind == "gnn"
                   else ("model.estimator", cfg.model.estimator,
@@ -68,6 +76,8 @@ def run_name(cfg: DictConfig) -> str:
         system += "+neighbours"
     if cfg.model.kind == "gnn" and (cfg.model.layer_options or {}).get("num_bases"):
         system += f"+bases{cfg.model.layer_options.num_bases}"
+    if cfg.model.kind == "gnn" and cfg.model.get("members", 1) > 1:
+        system += f"x{cfg.model.members}"
     graph = str(cfg.graph.name)
     for option, mark in (("prune_gutters", "pruned"), ("reverse_edges", "rev"),
                          ("self_loops", "self")):

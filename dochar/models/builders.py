@@ -17,6 +17,7 @@ from omegaconf import DictConfig, OmegaConf
 from dochar.features import CharCNNEncoder, CropCNNEncoder, WordFeaturizer
 from dochar.models.baselines import make_baseline, make_template
 from dochar.models.gnn import GNNStack
+from dochar.models.members import MemberAverage
 from dochar.models.pairs import PairScorer
 from dochar.tasks import PAIRS, Task
 
@@ -40,7 +41,7 @@ def gnn_arguments(cfg: Mapping[str, Any], featurizer: WordFeaturizer, task: Task
              "residual": bool(model_cfg["residual"]),
              "layer_options": dict(_plain(model_cfg.get("layer_options")) or {}),
              "edge_dim": int(edge_dim)}
-    return {"kind": "gnn", "stack": stack,
+    return {"kind": "gnn", "stack": stack, "members": int(model_cfg.get("members", 1)),
             "char_cnn": None if char_cnn is None else {
                 **char_cnn, "kernel_sizes": list(char_cnn["kernel_sizes"])},
             "crop_cnn": _plain(cfg["features"]["crop_cnn"]) if featurizer.uses_crop_cnn else None,
@@ -48,7 +49,22 @@ def gnn_arguments(cfg: Mapping[str, Any], featurizer: WordFeaturizer, task: Task
                 "embedding_dim": int(task.embedding_dim), **pair_head}}
 
 
-def build_gnn(arguments: Mapping[str, Any]) -> torch.nn.Module:
+def build_gnn(arguments: Mapping[str, Any], seeds: Sequence[int] | None = None
+              ) -> torch.nn.Module:
+    """The network, or with ``members`` > 1 their average; ``seeds`` (one per member) seed each
+    member's initial weights, for training (a loaded model's weights replace them)."""
+    members = int(arguments.get("members", 1))
+    if seeds is not None and len(seeds) != members:
+        raise ValueError(f"build_gnn: {len(seeds)} seeds for {members} members")
+    networks = []
+    for seed in seeds or [None] * members:
+        if seed is not None:
+            torch.manual_seed(seed)
+        networks.append(_one_network(arguments))
+    return networks[0] if members == 1 else MemberAverage(networks)
+
+
+def _one_network(arguments: Mapping[str, Any]) -> torch.nn.Module:
     char_cnn = arguments["char_cnn"]
     encoder = CharCNNEncoder(**char_cnn) if char_cnn else None
     crop_cnn = arguments.get("crop_cnn")

@@ -18,6 +18,7 @@ import numpy as np
 import pandas as pd
 from omegaconf import DictConfig, OmegaConf
 from sklearn.metrics import f1_score
+from torch_geometric.data import Batch
 
 from dochar.features import WordFeaturizer
 from dochar.models.builders import (
@@ -31,6 +32,7 @@ from dochar.models.builders import (
 )
 from dochar.models.checkpoints import EpochCheckpoint, inputs_digest, training_key
 from dochar.models.gnn import count_parameters
+from dochar.models.members import member_seeds
 from dochar.models.inputs import PageSet, label_indices, to_graphs, to_matrix
 from dochar.models.objectives import best_threshold, objective_for, sample_negatives
 from dochar.models.pairs import PageCandidates, pair_matrix, with_pairs
@@ -104,33 +106,57 @@ def fit_gnn(cfg: DictConfig, inputs: FitInputs) -> FittedModel:
     arguments = gnn_arguments(cfg, inputs.featurizer, inputs.task, len(inputs.labels),
                               len(inputs.sets["train"].relations),
                               len(inputs.sets["train"].edge_attr_names))
-    model = build_gnn(arguments)
-    objective = objective_for(inputs.task.target, cfg.train, num_classes=len(inputs.labels),
-                              seed=int(cfg.seed),
-                              negative_ratio=getattr(inputs.task, "negative_ratio", None),
-                              val_missed=inputs.missed("val"), rows=inputs.rows_threshold)
-    checkpoint = _checkpoint(cfg, graphs)
+    members = int(arguments["members"])
+    seeds = member_seeds(int(cfg.seed), members) if members > 1 else [int(cfg.seed)]
+    model = build_gnn(arguments, seeds if members > 1 else None)
+    networks = list(model.members) if members > 1 else [model]
     started = time.perf_counter()
-    history = train(model, graphs["train"], graphs["val"], objective, cfg.train, int(cfg.seed),
-                    checkpoint=checkpoint)
+    histories = [_train_one(cfg, inputs, graphs, network, seed, members > 1)
+                 for network, seed in zip(networks, seeds)]
     train_seconds = time.perf_counter() - started
-    if checkpoint is not None:
-        checkpoint.remove()
+    objective = histories[0][1]
     started = time.perf_counter()
     outputs = objective.outputs(model, graphs["test"])
     infer_seconds = time.perf_counter() - started
+    history = histories[0][0]
     score = history.best_val_score if graphs["val"] else float("nan")
+    notes: dict[str, float] = {}
+    if members > 1:     # the average's own validation score; each member's beside it
+        if graphs["val"]:
+            score = objective.validate(model, Batch.from_data_list(list(graphs["val"])))[0]
+        for index, (member_history, _) in enumerate(histories):
+            notes[f"member/{index}/best_epoch"] = float(member_history.best_epoch)
+            notes[f"member/{index}/{objective.score_name}"] = member_history.best_val_score
     cost = {"train_seconds": train_seconds, "parameters": float(count_parameters(model)),
             "pages_per_second": len(graphs["test"]) / max(infer_seconds, 1e-9),
-            "best_epoch": float(history.best_epoch), "epochs_run": float(history.epochs_run),
+            "best_epoch": float(np.mean([h.best_epoch for h, _ in histories])),
+            "epochs_run": float(np.mean([h.epochs_run for h, _ in histories])),
             **_validation(score, objective.score_name)}
     return FittedModel(model, arguments, outputs, cost, threshold=history.threshold,
-                       tables={"training_curve": history.curve()})
+                       notes=notes, tables={"training_curve": history.curve()})
 
 
-def _checkpoint(cfg: DictConfig, graphs: dict[str, list]) -> EpochCheckpoint | None:
+def _train_one(cfg: DictConfig, inputs: FitInputs, graphs: dict[str, list],
+               network: Any, seed: int, member: bool) -> tuple[Any, Any]:
+    """Train one network with its own seed (a member of several: its own checkpoints too);
+    its history and objective. With members, the run's curve is the first member's."""
+    objective = objective_for(inputs.task.target, cfg.train, num_classes=len(inputs.labels),
+                              seed=seed,
+                              negative_ratio=getattr(inputs.task, "negative_ratio", None),
+                              val_missed=inputs.missed("val"), rows=inputs.rows_threshold)
+    checkpoint = _checkpoint(cfg, graphs, seed if member else None)
+    history = train(network, graphs["train"], graphs["val"], objective, cfg.train, seed,
+                    checkpoint=checkpoint)
+    if checkpoint is not None:
+        checkpoint.remove()
+    return history, objective
+
+
+def _checkpoint(cfg: DictConfig, graphs: dict[str, list],
+                member_seed: int | None = None) -> EpochCheckpoint | None:
     """Epoch checkpoints under ``train.checkpoint_dir`` (null: none), keyed by what training
-    depends on, so the same config on the same data resumes a killed run."""
+    depends on, so the same config on the same data resumes a killed run (and a member of
+    several, by its seed, its own training)."""
     folder = cfg.train.get("checkpoint_dir")
     if not folder:
         return None
@@ -141,7 +167,8 @@ def _checkpoint(cfg: DictConfig, graphs: dict[str, list]) -> EpochCheckpoint | N
              if "crop_cnn" in cfg.features.groups else {})
     key = training_key({**OmegaConf.to_container(cfg.model, resolve=True), "char_cnn": encoder,
                         **({"crop_cnn": crops} if crops else {}),
-                        "task": OmegaConf.to_container(cfg.task, resolve=True)},
+                        "task": OmegaConf.to_container(cfg.task, resolve=True),
+                        **({} if member_seed is None else {"member_seed": member_seed})},
                        cfg.train, int(cfg.seed), inputs)
     return EpochCheckpoint(folder, key, inputs)
 
