@@ -14,7 +14,7 @@ from reports.readme_figures.tables import interval, p_value
 
 SCORES = ("straight_through", "field_f1", "ted_accuracy", "row_f1")
 DEMO = ["split=seen_and_unseen_layouts"]
-RECEIPTS = {"GNN (graph transformer, `cord_labels`)": "cord_labels",
+RECEIPTS = {"GNN (graph transformer, 3 members, `cord_labels`)": "cord_labels",
             "forest (`cord_labels_forest`)": "cord_labels_forest"}
 
 
