@@ -32,8 +32,8 @@ from dochar.models.builders import (
 )
 from dochar.models.checkpoints import EpochCheckpoint, inputs_digest, training_key
 from dochar.models.gnn import count_parameters
-from dochar.models.members import member_seeds
 from dochar.models.inputs import PageSet, label_indices, to_graphs, to_matrix
+from dochar.models.members import member_seeds
 from dochar.models.objectives import best_threshold, objective_for, sample_negatives
 from dochar.models.pairs import PageCandidates, pair_matrix, with_pairs
 from dochar.models.template import OUTCOMES
