@@ -238,6 +238,7 @@ class TrainSchema:
     patience: int = 20
     pages_per_batch: int = 8
     class_weighting: str = "balanced"
+    label_smoothing: float = 0.0
     threads: int = 1
     progress: bool = True
     checkpoint_dir: Optional[str] = "outputs/checkpoints"

@@ -54,18 +54,27 @@ def node_inputs(batch: Data) -> tuple:
 
 class NodeClasses:
     """Weighted cross-entropy over node classes; validation macro-F1 (scikit-learn's, over the
-    classes present)."""
+    classes present). ``label_smoothing`` ε trains toward (1 − ε) on the true class and ε / C
+    spread over all C (Szegedy et al., "Rethinking the Inception Architecture", CVPR 2016), so
+    a network stops pushing confident logits further; probabilities stay usable for averaging
+    members and for flagging words to review."""
 
     score_name = "val_macro_f1"
 
-    def __init__(self, num_classes: int, class_weighting: str = "balanced") -> None:
+    def __init__(self, num_classes: int, class_weighting: str = "balanced",
+                 label_smoothing: float = 0.0) -> None:
+        if not 0.0 <= label_smoothing < 1.0:
+            raise TrainOptionError(f"config key train.label_smoothing={label_smoothing!r}: "
+                                   "expected a number in [0, 1)")
         self.num_classes, self.class_weighting = num_classes, class_weighting
+        self.label_smoothing = float(label_smoothing)
         self.loss_fn: torch.nn.Module | None = None
         self.threshold = None   # node classes need no decision threshold
 
     def start(self, train_graphs: Sequence[Data]) -> None:
         self.loss_fn = torch.nn.CrossEntropyLoss(
-            weight=class_weights(train_graphs, self.num_classes, self.class_weighting))
+            weight=class_weights(train_graphs, self.num_classes, self.class_weighting),
+            label_smoothing=self.label_smoothing)
 
     def epoch_graphs(self, train_graphs: Sequence[Data], epoch: int) -> Sequence[Data]:
         return train_graphs
@@ -216,4 +225,5 @@ def objective_for(target: str, train_cfg: Mapping[str, Any], *, num_classes: int
     if target == "pairs":
         return PairLinks(str(train_cfg["class_weighting"]), negative_ratio, seed, val_missed,
                          rows)
-    return NodeClasses(num_classes, check_class_weighting(str(train_cfg["class_weighting"])))
+    return NodeClasses(num_classes, check_class_weighting(str(train_cfg["class_weighting"])),
+                       float(train_cfg.get("label_smoothing", 0.0)))

@@ -34,3 +34,45 @@ def test_absent_class_gets_one_and_present_ones_keep_sklearns_ratios():
 
 def test_no_weighting_is_all_ones():
     assert class_weights(pages([0, 1]), 3, "none").tolist() == [1.0, 1.0, 1.0]
+
+
+class _Fixed(torch.nn.Module):
+    """A 'network' that returns given logits, so the loss alone is under test."""
+
+    def __init__(self, logits: list[list[float]]) -> None:
+        super().__init__()
+        self.logits = torch.tensor(logits)
+
+    def forward(self, *inputs) -> torch.Tensor:
+        return self.logits
+
+
+def test_label_smoothing_matches_the_formula_worked_by_hand():
+    """Szegedy et al., CVPR 2016, section 7: the target is (1 − ε) on the true class plus ε / C
+    on every class, so the loss is (1 − ε)(−log p_y) + (ε / C) Σ_c (−log p_c)."""
+    from dochar.models.objectives import NodeClasses
+
+    logits = [[2.0, 0.5, -1.0], [0.0, 1.0, 3.0]]
+    y = [0, 1]
+    epsilon, classes = 0.1, 3
+    z = np.array(logits)
+    log_p = z - np.log(np.exp(z).sum(axis=1, keepdims=True))
+    expected = np.mean([(1 - epsilon) * -log_p[i, y[i]] + epsilon / classes * -log_p[i].sum()
+                        for i in range(2)])
+    objective = NodeClasses(classes, "none", label_smoothing=epsilon)
+    objective.start(pages(y))
+    batch = Data(x=torch.zeros(2, 1), edge_index=torch.zeros(2, 0, dtype=torch.long),
+                 edge_type=torch.zeros(0, dtype=torch.long), y=torch.tensor(y))
+    assert objective.loss(_Fixed(logits), batch).item() == pytest.approx(expected, rel=1e-6)
+    plain = NodeClasses(classes, "none")
+    plain.start(pages(y))
+    assert plain.loss(_Fixed(logits), batch).item() == pytest.approx(
+        np.mean([-log_p[i, y[i]] for i in range(2)]), rel=1e-6)
+
+
+@pytest.mark.parametrize("epsilon", [-0.1, 1.0])
+def test_label_smoothing_outside_zero_to_one_is_refused_by_its_key(epsilon):
+    from dochar.models.objectives import NodeClasses, TrainOptionError
+
+    with pytest.raises(TrainOptionError, match="train.label_smoothing"):
+        NodeClasses(3, "none", label_smoothing=epsilon)
