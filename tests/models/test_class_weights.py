@@ -76,3 +76,12 @@ def test_label_smoothing_outside_zero_to_one_is_refused_by_its_key(epsilon):
 
     with pytest.raises(TrainOptionError, match="train.label_smoothing"):
         NodeClasses(3, "none", label_smoothing=epsilon)
+
+
+def test_the_run_option_reaches_the_loss():
+    from dochar.models.objectives import objective_for
+
+    objective = objective_for("nodes", {"class_weighting": "none", "label_smoothing": 0.2},
+                              num_classes=3, seed=0)
+    objective.start(pages([0, 1, 2]))
+    assert objective.loss_fn.label_smoothing == 0.2
