@@ -194,6 +194,8 @@ NO_DATA = ("data=word_table", "data.path=no/such/words.csv", "data.labels=[analy
     (["train.learning_rate=0"], "config key train.learning_rate=0"),
     (["train.schedule=linear"], "config key train.schedule='linear'"),
     (["train.schedule=cosine", "train.warmup_epochs=120"], "config key train.warmup_epochs=120"),
+    (["train.label_smoothing=1.5"], "config key train.label_smoothing=1.5"),
+    (["model.members=0"], "model.members=0: use a whole number"),
     (["data.record.item_columns=[analyte,lot]"],
      "config key data.record.item_columns: label 'lot' is not one of data.labels"),
 ])

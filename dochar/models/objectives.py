@@ -35,6 +35,13 @@ def check_class_weighting(scheme: str) -> str:
     return scheme
 
 
+def check_label_smoothing(epsilon: float) -> float:
+    if not 0.0 <= epsilon < 1.0:
+        raise TrainOptionError(f"config key train.label_smoothing={epsilon!r}: expected a "
+                               "number in [0, 1)")
+    return float(epsilon)
+
+
 def class_weights(graphs: Sequence[Data], num_classes: int, scheme: str) -> torch.Tensor:
     """Inverse-frequency weights n / (C * n_c) (scikit-learn's 'balanced'); absent classes get 1."""
     if check_class_weighting(scheme) == "none":
@@ -63,11 +70,8 @@ class NodeClasses:
 
     def __init__(self, num_classes: int, class_weighting: str = "balanced",
                  label_smoothing: float = 0.0) -> None:
-        if not 0.0 <= label_smoothing < 1.0:
-            raise TrainOptionError(f"config key train.label_smoothing={label_smoothing!r}: "
-                                   "expected a number in [0, 1)")
         self.num_classes, self.class_weighting = num_classes, class_weighting
-        self.label_smoothing = float(label_smoothing)
+        self.label_smoothing = check_label_smoothing(label_smoothing)
         self.loss_fn: torch.nn.Module | None = None
         self.threshold = None   # node classes need no decision threshold
 

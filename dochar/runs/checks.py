@@ -28,7 +28,11 @@ from dochar.features.text_embedding import require_embedding
 from dochar.models.baselines import check_baseline_options, make_template
 from dochar.models.gnn import GNNStack
 from dochar.models.layers import LayerOptionError
-from dochar.models.objectives import TrainOptionError, check_class_weighting
+from dochar.models.objectives import (
+    TrainOptionError,
+    check_class_weighting,
+    check_label_smoothing,
+)
 from dochar.records.shape import RecordShape
 
 # train.* numbers and the least value each may take
@@ -108,6 +112,7 @@ def _check_train(train: DictConfig) -> None:
         raise TrainOptionError(f"config key train.learning_rate={train.learning_rate!r}: "
                                f"expected a positive number")
     check_class_weighting(str(train.class_weighting))
+    check_label_smoothing(float(train.get("label_smoothing", 0.0)))
     if train.get("schedule", "constant") not in SCHEDULES:
         raise TrainOptionError(f"config key train.schedule={train.schedule!r}: expected one of "
                                f"{list(SCHEDULES)}")
