@@ -3,7 +3,7 @@ members' softmax outputs, each member starts from its own seed and trains on its
 members saves and reloads the average, and options that cannot work are refused by name.
 
 References: the mean of softmax outputs is the deep ensemble's prediction (Lakshminarayanan,
-Pritzel and Blundell, NeurIPS 2017, section 2.4); SciPy's ``softmax`` computes each member's
+Pritzel and Blundell, NeurIPS 2017; its section 2.4, cited from memory); SciPy's ``softmax`` computes each member's
 probabilities independently of torch; the seed scheme is worked out by hand.
 """
 
