@@ -3,8 +3,9 @@ members' softmax outputs, each member starts from its own seed and trains on its
 members saves and reloads the average, and options that cannot work are refused by name.
 
 References: the mean of softmax outputs is the deep ensemble's prediction (Lakshminarayanan,
-Pritzel and Blundell, NeurIPS 2017; its section 2.4, cited from memory); SciPy's ``softmax`` computes each member's
-probabilities independently of torch; the seed scheme is worked out by hand.
+Pritzel and Blundell, NeurIPS 2017; its section 2.4, cited from memory); SciPy's ``softmax``
+computes each member's probabilities independently of torch; the seed scheme is worked out by
+hand.
 """
 
 from __future__ import annotations
