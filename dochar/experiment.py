@@ -54,6 +54,10 @@ def check_names(cfg: DictConfig) -> None:
         raise tasks.TaskError(f"model.members={members}: averaging members labels nodes; task "
                               f"{task.name!r} scores pairs, whose link cut is chosen per "
                               "network: use model.members=1")
+    if cfg.train.get("label_smoothing", 0.0) and task.target != tasks.NODES:
+        raise tasks.TaskError(f"train.label_smoothing={cfg.train.label_smoothing}: smoothing "
+                              f"applies to node classes; task {task.name!r} scores pairs: use "
+                              "train.label_smoothing=0")
     chosen = [("graph.name", cfg.graph.name, graphs.BUILDERS)]
     chosen.append(("model.layer", cfg.model.layer, LAYERS) if cfg.model.kind == "gnn"
                   else ("model.estimator", cfg.model.estimator,

@@ -195,6 +195,7 @@ NO_DATA = ("data=word_table", "data.path=no/such/words.csv", "data.labels=[analy
     (["train.schedule=linear"], "config key train.schedule='linear'"),
     (["train.schedule=cosine", "train.warmup_epochs=120"], "config key train.warmup_epochs=120"),
     (["train.label_smoothing=1.5"], "config key train.label_smoothing=1.5"),
+    (["task=links", "train.label_smoothing=0.1"], "smoothing applies to node classes"),
     (["model.members=0"], "model.members=0: use a whole number"),
     (["data.record.item_columns=[analyte,lot]"],
      "config key data.record.item_columns: label 'lot' is not one of data.labels"),
