@@ -53,6 +53,7 @@ class RecordSchema:
     row_anchor: str = ""                  # the item column that opens a line item ("": layout)
     once_per_item: List[str] = field(default_factory=list)  # a second value opens an item
     required_columns: List[str] = field(default_factory=list)  # an item lacking one: left out
+    sub_item_columns: Dict[str, str] = field(default_factory=dict)  # sub-item -> item column
 
 
 @dataclass

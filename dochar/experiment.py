@@ -25,6 +25,7 @@ from dochar.models.fit import FitInputs, FittedModel, fit_model, system_name
 from dochar.models.inputs import PageSet
 from dochar.models.pairs import PageCandidates, page_candidates
 from dochar.models.training import seed_everything
+from dochar.records.line_status import settle_pages
 from dochar.runs.bundle import RunBundle
 from dochar.runs.frames import edge_frame, pages_to_draw, pair_frame, prediction_frame
 from dochar.runs.page_pictures import page_pictures
@@ -158,6 +159,9 @@ def run_experiment(cfg: DictConfig) -> tuple[RunBundle, FittedModel]:
     inputs = FitInputs(sets, featurizer, labels, task, _candidates(task, task_pages, sets))
     torch.manual_seed(int(cfg.seed))
     fitted = fit_model(cfg, inputs)
+    shape = record_shape(cfg.data)
+    if not inputs.pairs:   # each line read whole, as an item or a sub-item (as predict does)
+        fitted.outputs = settle_pages(inputs.sets["test"].pages, fitted.outputs, labels, shape)
     predictions = _predictions(task, task_pages["test"], inputs, fitted,
                                split.assignment.test_sides)
     words = task.word_predictions(sets["test"].pages, predictions)
@@ -165,7 +169,6 @@ def run_experiment(cfg: DictConfig) -> tuple[RunBundle, FittedModel]:
                       words=words, word_labels=word_labels)
     metrics = scores.metrics
     metrics.update(_pair_notes(inputs, fitted, predictions))
-    shape = record_shape(cfg.data)
     if shape is not None and not words.empty:   # a links task decodes to no word labels
         tested = {doc for doc, part in part_of.items() if part == "test"}
         found, record_tables = record_evaluation(scored_words(split.table, words, tested),

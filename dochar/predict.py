@@ -32,6 +32,7 @@ import os
 import re
 import sys
 import tempfile
+from functools import partial
 from collections.abc import Sequence
 from pathlib import Path
 
@@ -53,8 +54,9 @@ from dochar.metrics.entities import reading_order
 from dochar.metrics.words import score_words
 from dochar.models.saved import SavedModel, SavedModelError, load_model
 from dochar.records.assemble import assemble_records
+from dochar.records.line_status import settle_pages
 from dochar.records.output import write_records
-from dochar.records.shape import RecordShape, RecordShapeError
+from dochar.records.shape import RecordShape, RecordShapeError, shape_or_none
 from dochar.runs.bundle import PROBABILITY_PREFIX
 from dochar.runs.frames import pair_frame
 from dochar.runs.tracking import MODEL_DIR, resolve_uri
@@ -233,10 +235,12 @@ def score(words: pd.DataFrame, saved: SavedModel) -> list[str]:
     return lines
 
 
-def label_table(saved: SavedModel, table: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame]:
+def label_table(saved: SavedModel, table: pd.DataFrame, shape: RecordShape | None = None
+                ) -> tuple[pd.DataFrame, pd.DataFrame]:
     """A validated word table to per-word predictions and the grouped fields: graphs,
-    features, one forward pass over all pages, labels, fields (what ``make bench`` times)."""
-    words = saved.label_words(table)
+    features, one forward pass over all pages, labels (each line settled as an item or a
+    sub-item when ``shape`` names sub-item columns), fields (what ``make bench`` times)."""
+    words = saved.label_words(table, settle=partial(settle_pages, shape=shape))
     return words, fields(words, saved.manifest["entity_ignore"])
 
 
@@ -254,7 +258,8 @@ def run(args: argparse.Namespace) -> int:
     table = read_inputs(args)
     if saved.task.target == PAIRS:
         return write_links(saved, table, args.out)
-    words, found = label_table(saved, table)
+    shape = record_shape(args.record_shape, saved)
+    words, found = label_table(saved, table, shape)
     words_path = write_word_table(words, args.out / f"words.{args.words_format}")
     write_text_atomic(args.out / "fields.csv", found.to_csv(index=False))
     documents = list(dict.fromkeys(words["doc_id"]))
@@ -266,7 +271,6 @@ def run(args: argparse.Namespace) -> int:
         for line in score(words, saved):
             print(line)
     written = [words_path, args.out / "fields.json", args.out / "fields.csv"]
-    shape = record_shape(args.record_shape, saved)
     if shape is not None:
         records = assemble_records(words, shape, label_col="predicted",
                                    group_col="entity" if "entity" in words else None)
@@ -280,25 +284,20 @@ def record_shape(path: Path | None, saved: SavedModel) -> RecordShape | None:
     """The shape from ``--record-shape`` (a YAML mapping, or one under a ``record:`` key), else
     the one saved with the model; its labels must be labels the model predicts."""
     if path is None:
-        block = saved.manifest["data"].get("record") or {}
-        if not (block.get("header_fields") or block.get("item_columns")):
-            return None
-        where = "data.record"
-    else:
-        import yaml
+        return shape_or_none(saved.manifest["data"].get("record"), labels=saved.word_labels)
+    import yaml
 
-        try:
-            block = yaml.safe_load(path.read_text())
-        except (OSError, yaml.YAMLError) as error:
-            raise RecordShapeError(f"--record-shape {path}: not a readable YAML file ({error})"
-                                   ) from None
-        if isinstance(block, dict) and isinstance(block.get("record"), dict):
-            block = block["record"]
-        if not isinstance(block, dict):
-            raise RecordShapeError(f"--record-shape {path}: expected a mapping of "
-                                   "header_fields, item_columns, ...")
-        where = f"{path}: record"
-    return RecordShape.from_mapping(block, where=where, labels=saved.word_labels)
+    try:
+        block = yaml.safe_load(path.read_text())
+    except (OSError, yaml.YAMLError) as error:
+        raise RecordShapeError(f"--record-shape {path}: not a readable YAML file ({error})"
+                               ) from None
+    if isinstance(block, dict) and isinstance(block.get("record"), dict):
+        block = block["record"]
+    if not isinstance(block, dict):
+        raise RecordShapeError(f"--record-shape {path}: expected a mapping of "
+                               "header_fields, item_columns, ...")
+    return RecordShape.from_mapping(block, where=f"{path}: record", labels=saved.word_labels)
 
 
 LINK_COLUMNS = ["doc_id", "page", "source_id", "target_id", "text", "probability"]

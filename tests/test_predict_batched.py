@@ -38,6 +38,7 @@ from dochar.models.inputs import PageSet, stacked_graph, to_graphs
 from dochar.models.saved import load_model, save_model
 from dochar.models.training import predict_proba
 from dochar.predict import fields, label_table
+from dochar.records.shape import RecordShape
 from dochar.tasks import WordLabels
 from tests.helpers import CONFIGS
 
@@ -304,3 +305,31 @@ def test_the_stacked_graph_holds_the_tensors_of_the_batched_page_graphs(funsd_pa
     assert stacked.num_nodes == batch.num_nodes == sum(len(p) for p in pages)
     for name in ("x", "edge_index", "edge_type", "chars", "edge_attr"):
         assert torch.equal(getattr(stacked, name), getattr(batch, name)), name
+
+
+def test_a_shape_with_sub_item_columns_settles_each_line_before_labels_are_given(labelled):
+    """With the untrained model's two most frequent best labels mapped as an item column and its
+    sub-item form (the mapping is the test's, not the data's): a word whose live best label is
+    neither keeps label and probability; one whose best is either is labelled one of the two,
+    with the probability of both together (docs/records.md, the line status rule)."""
+    saved, table, pages, live, labels = labelled
+    proba = np.concatenate(live)
+    best = proba.argmax(axis=1)
+    pair = np.bincount(best, minlength=len(labels)).argsort()[::-1][:2].tolist()
+    sub, item = labels[pair[0]], labels[pair[1]]
+    others = tuple(label for label in labels if label not in (sub, item))
+    shape = RecordShape(header_fields=others, item_columns=(item, sub),
+                        sub_item_columns=((sub, item),))
+    words, _ = label_table(saved, table, shape)
+    keys = pd.DataFrame({"doc_id": [p.doc_id for p in pages for _ in range(len(p))],
+                         "page": [p.page for p in pages for _ in range(len(p))],
+                         "word_id": np.concatenate([p.word_ids for p in pages])})
+    got = keys.merge(words, on=["doc_id", "page", "word_id"], how="left")
+    settled = np.isin(best, pair)
+    assert 0 < settled.sum() < len(best)
+    assert got.loc[~settled, "predicted"].tolist() == [labels[i] for i in best[~settled]]
+    np.testing.assert_allclose(got.loc[~settled, "probability"], proba[~settled].max(axis=1),
+                               rtol=0, atol=1e-6)
+    assert set(got.loc[settled, "predicted"]) <= {sub, item}
+    np.testing.assert_allclose(got.loc[settled, "probability"], proba[settled][:, pair].sum(axis=1),
+                               rtol=0, atol=1e-6)

@@ -31,7 +31,7 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from importlib import metadata
 from pathlib import Path
-from typing import Any
+from typing import Any, Callable
 
 import numpy as np
 import pandas as pd
@@ -65,6 +65,10 @@ TRUSTED_ESTIMATOR_TYPES: tuple[str, ...] = (
 TOP = 3   # labels kept per word in predictions
 BOX_COLUMNS = ("x0", "y0", "x1", "y1")
 LIBRARIES = ("torch", "torch-geometric", "scikit-learn", "numpy", "skops", "dochar")
+
+
+# a later stage's decoding of node probabilities: (node pages, probabilities, labels) -> same
+Settle = Callable[[Sequence[Page], list[np.ndarray], Sequence[str]], list[np.ndarray]]
 
 
 class SavedModelError(DocharError):
@@ -122,7 +126,9 @@ def _sha256(path: Path) -> str:
 def _record_block(data: Mapping[str, Any]) -> dict[str, Any]:
     """The data's ``record:`` block as plain values (what ``dochar predict`` assembles)."""
     block = data.get("record") or {}
-    return {str(k): v if isinstance(v, str) else [str(x) for x in v]
+    return {str(k): (v if isinstance(v, str) else
+                     {str(a): str(b) for a, b in v.items()} if isinstance(v, Mapping) else
+                     [str(x) for x in v])
             for k, v in dict(block).items() if v is not None}
 
 
@@ -269,17 +275,21 @@ class SavedModel:
         return dict(hash_features=int(self.manifest["featurizer"]["hash_features"]),
                     neighbour_features=bool(self.manifest["model"].get("neighbour_features")))
 
-    def label_words(self, table: pd.DataFrame) -> pd.DataFrame:
+    def label_words(self, table: pd.DataFrame, settle: Settle | None = None) -> pd.DataFrame:
         """One row per word of a validated word table: its box, the word label the task decodes
         from the model's predictions (``predicted``, with the node's ``probability`` and, where
         the task groups words, the ``entity`` it put the word in), and, for word nodes, the next
-        two labels."""
+        two labels. ``settle`` (node pages, their probabilities, labels -> probabilities) is a
+        later stage's decoding applied first, e.g. the record's line status
+        (:func:`dochar.records.line_status.settle_pages`)."""
         words = list(iter_pages(table))
         if not words:
             raise SavedModelError("no words to label")
         task = self.task
         nodes = task.input_pages(words)
         probabilities = self.predict_proba(nodes)
+        if settle is not None:
+            probabilities = settle(nodes, probabilities, self.labels)
         node_frame = node_predictions(nodes, probabilities, self.labels)
         decoded = task.word_predictions(nodes, node_frame).drop(columns=["label"])
         columns = page_columns(words)

@@ -13,7 +13,10 @@ holding one the current item has already starts a new item. ``required_columns``
 of ``item_columns``) are the cells every line item has (a certificate's analyte and result): a
 predicted item lacking one is left out of the record, since a stray table word (a column header
 read as a cell) would otherwise stand as an item of its own; its words keep their labels in
-``words.csv``. The truth's items are never left out. A label may be in one role only, and every
+``words.csv``. The truth's items are never left out. ``sub_item_columns`` (optional, a mapping
+between item columns: sub-item column -> the item column it stands for, a receipt's
+``menu.sub_nm: menu.nm``) makes decoding read each printed line whole, as an item or as a
+sub-item (:mod:`dochar.records.line_status`). A label may be in one role only, and every
 label named must be one of the data's labels: :func:`check_shape` says which key names what,
 before any data loads.
 """
@@ -28,7 +31,7 @@ from dochar.errors import DocharError, did_you_mean
 
 SHAPE_KEYS: tuple[str, ...] = ("header_fields", "item_columns", "items_name", "date_fields",
                                "amount_fields", "single_fields", "row_anchor",
-                               "once_per_item", "required_columns")
+                               "once_per_item", "required_columns", "sub_item_columns")
 
 
 class RecordShapeError(DocharError):
@@ -48,6 +51,7 @@ class RecordShape:
     row_anchor: str = ""             # "": rows by the layout rule
     once_per_item: tuple[str, ...] = ()      # a second value of one opens a new item
     required_columns: tuple[str, ...] = ()   # a predicted item lacking one is left out
+    sub_item_columns: tuple[tuple[str, str], ...] = ()   # (sub-item column, item column)
 
     @property
     def labels(self) -> tuple[str, ...]:
@@ -55,8 +59,10 @@ class RecordShape:
 
     def to_dict(self) -> dict[str, Any]:
         """Plain values, as a model manifest and a YAML file hold them."""
-        return {f.name: (list(value) if isinstance(value := getattr(self, f.name), tuple)
-                         else value) for f in fields(self)}
+        plain = {f.name: (list(value) if isinstance(value := getattr(self, f.name), tuple)
+                          else value) for f in fields(self)}
+        plain["sub_item_columns"] = dict(self.sub_item_columns)
+        return plain
 
     @classmethod
     def from_mapping(cls, block: Mapping[str, Any], *, where: str = "data.record",
@@ -77,6 +83,13 @@ class RecordShape:
                                            "a non-empty name")
                 values[key] = value.strip()
                 continue
+            if key == "sub_item_columns":
+                if not isinstance(value, Mapping) or not all(
+                        isinstance(k, str) and isinstance(v, str) for k, v in value.items()):
+                    raise RecordShapeError(f"config key {where}.sub_item_columns={value!r}: "
+                                           "expected a mapping, sub-item column: item column")
+                values[key] = tuple((k.strip(), v.strip()) for k, v in value.items())
+                continue
             if key == "row_anchor":
                 if not isinstance(value, str):
                     raise RecordShapeError(f"config key {where}.row_anchor={value!r}: expected "
@@ -90,6 +103,15 @@ class RecordShape:
         shape = cls(**{"header_fields": (), **values})
         check_shape(shape, labels, where=where)
         return shape
+
+
+def shape_or_none(block: Mapping[str, Any] | None, *, where: str = "data.record",
+                  labels: Sequence[str] | None = None) -> RecordShape | None:
+    """The shape of a ``record:`` block; None when it names no header field and no item
+    column (the data has no record)."""
+    if not block or not (block.get("header_fields") or block.get("item_columns")):
+        return None
+    return RecordShape.from_mapping(block, where=where, labels=labels)
 
 
 def check_shape(shape: RecordShape, labels: Sequence[str] | None, *,
@@ -119,6 +141,14 @@ def check_shape(shape: RecordShape, labels: Sequence[str] | None, *,
             if seen.get(label) != "item_columns":
                 raise RecordShapeError(f"config key {where}.{key}: label {label!r} is not one "
                                        f"of {where}.item_columns")
+    for sub, item in shape.sub_item_columns:
+        for label in (sub, item):
+            if seen.get(label) != "item_columns":
+                raise RecordShapeError(f"config key {where}.sub_item_columns: label {label!r} "
+                                       f"is not one of {where}.item_columns")
+        if sub == item:
+            raise RecordShapeError(f"config key {where}.sub_item_columns: {sub!r} names "
+                                   "itself; map a sub-item column to another item column")
     if shape.row_anchor and shape.row_anchor not in shape.item_columns:
         raise RecordShapeError(f"config key {where}.row_anchor: label {shape.row_anchor!r} is "
                                f"not one of {where}.item_columns")

@@ -11,12 +11,16 @@ with dochar's safe loader (:func:`dochar.models.saved.load_model`).
 
 from __future__ import annotations
 
+from functools import partial
+
 import mlflow
 import pandas as pd
 from mlflow.pyfunc import PythonModel
 
 from dochar.data.word_table import validate_word_table
 from dochar.models.saved import SavedModelError, load_model
+from dochar.records.line_status import settle_pages
+from dochar.records.shape import shape_or_none
 
 UNIT_ARTIFACT = "dochar_model"
 
@@ -26,13 +30,15 @@ class WordLabeller(PythonModel):
 
     def load_context(self, context) -> None:
         self.saved = load_model(context.artifacts[UNIT_ARTIFACT])
+        self.settle = partial(settle_pages, shape=shape_or_none(
+            self.saved.manifest["data"].get("record"), labels=self.saved.word_labels))
 
     def predict(self, context, model_input, params=None):   # no hints: MLflow reads them as a schema
         if not isinstance(model_input, pd.DataFrame):
             raise SavedModelError(f"expected a word table as a pandas DataFrame, got "
                                   f"{type(model_input).__name__}")
         checked = validate_word_table(model_input, source="model input", strict=True)
-        return self.saved.label_words(checked.table)
+        return self.saved.label_words(checked.table, settle=self.settle)
 
 
 mlflow.models.set_model(WordLabeller())

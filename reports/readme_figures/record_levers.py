@@ -15,11 +15,13 @@ from __future__ import annotations
 
 import dataclasses
 import sys
+from functools import partial
 
 from dochar.data.sources import load_data
 from dochar.metrics.records import record_frame, record_scorers
 from dochar.models.saved import load_model
 from dochar.records.assemble import assemble_records, parses, true_records
+from dochar.records.line_status import settle_pages
 from dochar.runs.checks import record_shape
 from dochar.splits import split_run
 from reports.readme_figures.cheap import compose
@@ -31,7 +33,7 @@ def main(model: str, *overrides: str) -> None:
     data = load_data(cfg.data, progress=False)
     validation = split_run(data.table, cfg.split, int(cfg.seed)).assignment.val
     words = data.table[data.table["doc_id"].isin(validation)]
-    labelled = load_model(model).label_words(words)
+    labelled = load_model(model).label_words(words, settle=partial(settle_pages, shape=shape))
     keep = [c for c in ("predicted", "probability", "entity") if c in labelled]
     words = words.merge(labelled[["doc_id", "page", "word_id", *keep]],
                         on=["doc_id", "page", "word_id"])

@@ -1,5 +1,7 @@
 """A model saved from any run is applied by ``dochar predict`` and gives back the run's own
-word predictions: every task whose model labels nodes, every model kind, every feature option.
+word predictions: every task whose model labels nodes, every model kind, every feature option;
+so does the MLflow model's class (:class:`dochar.runs.pyfunc_model.WordLabeller`) given the same
+unit.
 
 Reference: the run itself. Its predictions were made by the live model in the training process;
 the saved unit is rebuilt in ``dochar predict`` from the arguments that built the model and the
@@ -9,6 +11,8 @@ save/load round trip). Fields are checked against the task's own decoding rule s
 """
 
 from __future__ import annotations
+
+from types import SimpleNamespace
 
 import pandas as pd
 import pytest
@@ -20,6 +24,7 @@ from dochar.data.word_table import REQUIRED_COLUMNS
 from dochar.experiment import run_experiment
 from dochar.models.saved import save_model
 from dochar.predict import main
+from dochar.runs.pyfunc_model import UNIT_ARTIFACT, WordLabeller
 from dochar.tasks.entity_tags import OUTSIDE
 
 SMALL = ["data.documents=16", "train.max_epochs=2", "train.patience=2",
@@ -37,6 +42,10 @@ CASES = {
     "tags-forest": ["task=entity_tags", *FOREST],
     "segments-gnn-context": ["task=segment_labels", *GNN, *CONTEXT],
     "segments-forest": ["task=segment_labels", *FOREST],
+    # each line settled as item or sub-item, in the run and in predict alike (the mapping of
+    # two certificate columns is the test's: it makes the rule change words)
+    "words-forest-lines": ["task=word_labels", *FOREST,
+                           "+data.record.sub_item_columns={result:analyte,unit:limit}"],
 }
 
 
@@ -64,6 +73,13 @@ def test_predict_with_a_saved_model_gives_the_runs_own_words(case, tmp_path):
     merged = expected.astype({"doc_id": str}).merge(
         words.astype({"doc_id": str})[[*keys, "predicted"]], on=keys, suffixes=("_run", ""))
     assert len(merged) == len(expected) == len(words)
+    assert (merged["predicted_run"] == merged["predicted"]).all()
+    labeller = WordLabeller()   # the logged MLflow model's class, given the unit as MLflow does
+    labeller.load_context(SimpleNamespace(artifacts={UNIT_ARTIFACT: str(unit)}))
+    served = labeller.predict(None, test_words[[*REQUIRED_COLUMNS, "label", "entity_id"]])
+    merged = expected.astype({"doc_id": str}).merge(
+        served.astype({"doc_id": str})[[*keys, "predicted"]], on=keys, suffixes=("_run", ""))
+    assert len(merged) == len(expected)
     assert (merged["predicted_run"] == merged["predicted"]).all()
 
     found = pd.read_csv(tmp_path / "out" / "fields.csv", keep_default_na=False)
