@@ -6,9 +6,11 @@ records (entity ids and row links). Whatever is lost here is lost by the decodin
 a model. ``python -m reports.readme_figures.records_ceiling [documents]`` prints one line per
 score (raw and normalised) with its 95% bootstrap interval over documents.
 
-``python -m reports.readme_figures.records_ceiling cord`` does the same on CORD's validation
-receipts (``DOCHAR_DATASETS`` or ``../shared/datasets``), with true labels and the true line
-groups, once per row rule: the layout rule and the anchor rule of the data's ``row_anchor``.
+``python -m reports.readme_figures.records_ceiling cord [train|val|test]`` does the same on CORD's
+receipts of one part (validation unless named; ``DOCHAR_DATASETS`` or ``../shared/datasets``),
+with true labels and the true line groups, once per row rule: the layout rule and the anchor
+rule of the data's ``row_anchor``. Rules are chosen on the training and validation parts; the
+test part is there to say how much of a model's test score the rule itself costs.
 """
 
 from __future__ import annotations
@@ -49,13 +51,13 @@ def main(documents: int = 300) -> None:
         _print(perfect, truth, shape, how, how)
 
 
-def receipts() -> None:
-    """CORD's validation receipts: the layout rule against the anchor rule, raw values."""
+def receipts(part: str = "val") -> None:
+    """CORD's receipts of one part: the layout rule against the anchor rule, raw values."""
     with initialize_config_dir(str(CONFIG_DIR), version_base=None):
         cfg = compose("config", overrides=["data=cord"])
     shape = record_shape(cfg.data)
     data = load_data(cfg.data, progress=False)
-    words = data.table[data.table["split"] == "val"]
+    words = data.table[data.table["split"] == part]
     truth = true_records(words, shape, data.links)
     for rule, anchor in (("layout", ""), ("anchor", shape.row_anchor)):
         ruled = dataclasses.replace(shape, row_anchor=anchor)
@@ -64,7 +66,7 @@ def receipts() -> None:
 
 
 if __name__ == "__main__":
-    if sys.argv[1:] == ["cord"]:
-        receipts()
+    if sys.argv[1:2] == ["cord"]:
+        receipts(*sys.argv[2:3])
     else:
         main(*(int(a) for a in sys.argv[1:]))
