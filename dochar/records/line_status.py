@@ -18,7 +18,7 @@ from collections.abc import Sequence
 
 import numpy as np
 
-from dochar.records.rows import page_slope
+from dochar.records.rows import line_bands, levels, page_slope
 from dochar.records.shape import RecordShape
 
 FLOOR = 1e-12   # log of a zero probability
@@ -35,36 +35,26 @@ def column_pairs(shape: RecordShape | None, labels: Sequence[str]) -> np.ndarray
 def settle_lines(boxes: np.ndarray, probabilities: np.ndarray, pairs: np.ndarray) -> np.ndarray:
     """One page's node probabilities (n, classes) with each line band's cells all read as items
     or all as sub-items (module docstring); ``boxes`` (n, 4) are the nodes' boxes."""
-    settled = np.array(probabilities, dtype=np.float64, copy=True)
-    if not len(pairs) or not len(settled):
-        return settled
-    best = settled.argmax(axis=1)
+    given = np.asarray(probabilities)
+    settled = given.astype(np.float64)
+    best = settled.argmax(axis=1) if settled.size else np.zeros(0, dtype=np.int64)
     column = np.full(len(settled), -1)
     for k, (sub, item) in enumerate(pairs):
         column[(best == sub) | (best == item)] = k
     cells = np.flatnonzero(column >= 0)
     if not len(cells):
-        return settled
+        return given.copy()
     boxes = np.asarray(boxes, dtype=np.float64).reshape(-1, 4)
     height = float(np.median(boxes[cells, 3] - boxes[cells, 1]))
-    slope = page_slope(boxes)
-    level = (boxes[:, 1] + boxes[:, 3]) / 2 - slope * (boxes[:, 0] + boxes[:, 2]) / 2
-    order = cells[np.argsort(level[cells], kind="stable")]
-    bands: list[list[int]] = []
-    for cell in order:
-        if bands and level[cell] - level[bands[-1][0]] < 0.5 * height:
-            bands[-1].append(cell)
-        else:
-            bands.append([cell])
-    for band in bands:
-        rows = np.array(band)
+    for band in line_bands(levels(boxes[cells], page_slope(boxes)), height):
+        rows = cells[band]
         chosen = pairs[column[rows]]                    # (cells, 2): sub, item class
         both = settled[rows[:, None], chosen]
         as_sub, as_item = np.log(np.maximum(both, FLOOR)).sum(axis=0)
         keep = 0 if as_sub > as_item else 1
         settled[rows, chosen[:, keep]] = np.minimum(both.sum(axis=1), 1.0)   # float32 rounding
         settled[rows, chosen[:, 1 - keep]] = 0.0
-    return settled.astype(np.asarray(probabilities).dtype)
+    return settled.astype(given.dtype)
 
 
 def settle_pages(pages: Sequence, probabilities: Sequence[np.ndarray], labels: Sequence[str],

@@ -118,18 +118,32 @@ def page_slope(boxes: np.ndarray) -> float:
     return slope if abs(slope) > SLOPE_Z * standard_error else 0.0
 
 
-def _bands(pieces: list[Value], height: float, slope: float) -> list[list[Value]]:
-    def level(piece: Value) -> float:
-        x0, y0, x1, y1 = piece.box
-        return (y0 + y1) / 2 - slope * (x0 + x1) / 2
+def levels(boxes: np.ndarray, slope: float) -> np.ndarray:
+    """Each box's centre height measured square to text lines of ``slope`` (dy/dx)."""
+    boxes = np.asarray(boxes, dtype=np.float64).reshape(-1, 4)
+    return (boxes[:, 1] + boxes[:, 3]) / 2 - slope * (boxes[:, 0] + boxes[:, 2]) / 2
 
-    bands: list[list[Value]] = []
-    for piece in sorted(pieces, key=lambda p: (level(p), p.box[0])):
-        if bands and level(piece) - level(bands[-1][0]) < 0.5 * height:
-            bands[-1].append(piece)
+
+def line_bands(level: np.ndarray, height: float, left: np.ndarray | None = None
+               ) -> list[list[int]]:
+    """Indices of boxes in line bands, top to bottom: taken by level (then by ``left`` edge),
+    a box whose level lies within half ``height`` of its band's first level joins that band."""
+    order = (np.lexsort((left, level)) if left is not None
+             else np.argsort(level, kind="stable"))
+    bands: list[list[int]] = []
+    for i in order.tolist():
+        if bands and level[i] - level[bands[-1][0]] < 0.5 * height:
+            bands[-1].append(i)
         else:
-            bands.append([piece])
-    return [sorted(band, key=lambda p: p.box[0]) for band in bands]
+            bands.append([i])
+    return bands
+
+
+def _bands(pieces: list[Value], height: float, slope: float) -> list[list[Value]]:
+    boxes = np.array([piece.box for piece in pieces], dtype=np.float64)
+    left = boxes[:, 0]
+    return [[pieces[i] for i in sorted(band, key=lambda i: left[i])]
+            for band in line_bands(levels(boxes, slope), height, left)]
 
 
 def _under(piece: Value, cell: Value | None) -> bool:

@@ -72,6 +72,25 @@ def test_lines_are_decided_apart_and_other_cells_stay():
     assert settled[4] == pytest.approx(found[4])
 
 
+def test_a_tilted_line_is_one_band():
+    """A photo held at a slant (slope 0.1): the price at a line's right end sits 40 px above
+    the name at its left end, four line heights, yet both are one printed line. Words between
+    them (other labels) give the page its slope, as on a receipt."""
+    xs = np.arange(0, 401, 40.0)
+    lines = [[x, 100 + 60 * k + 0.1 * x, x + 30, 110 + 60 * k + 0.1 * x]
+             for k in range(3) for x in xs]
+    boxes = np.array(lines)
+    found = np.array([row(other=1.0)] * len(boxes))
+    name, price = 0, len(xs) - 1          # the first line's two ends
+    found[name] = row(nm=0.1, sub_nm=0.9)
+    found[price] = row(price=0.55, sub_price=0.45)
+    # one band: sub-items 0.9 * 0.45 = 0.405 > items 0.1 * 0.55 = 0.055; apart, the price
+    # would stay an item price
+    settled = settle_lines(boxes, found, PAIRS)
+    assert LABELS[settled[price].argmax()] == "sub_price"
+    assert LABELS[settled[name].argmax()] == "sub_nm"
+
+
 def test_a_tie_keeps_the_item_reading():
     boxes = np.array([[10, 100, 20, 110], [40, 100, 150, 110]], float)
     found = np.array([row(cnt=0.5, sub_cnt=0.5), row(nm=0.2, sub_nm=0.8)])
