@@ -54,6 +54,7 @@ class RecordSchema:
     once_per_item: List[str] = field(default_factory=list)  # a second value opens an item
     required_columns: List[str] = field(default_factory=list)  # an item lacking one: left out
     sub_item_columns: Dict[str, str] = field(default_factory=dict)  # sub-item -> item column
+    line_arithmetic: Dict[str, str] = field(default_factory=dict)  # count, unit_price, amount
 
 
 @dataclass

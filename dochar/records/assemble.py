@@ -94,7 +94,7 @@ def assemble_records(words: pd.DataFrame, shape: RecordShape, *, label_col: str 
                 record.items = rows_from_links(items, links.get(str(doc_id), []))
             elif shape.row_anchor:
                 record.items = rows_by_anchor(items, shape.row_anchor, shape.once_per_item,
-                                              slopes)
+                                              slopes, shape.line_arithmetic)
             else:
                 record.items = rows_by_layout(items, slopes)
             record.items = [row for row in record.items

@@ -24,8 +24,11 @@ Three ways to find a document's line items:
   once (the shape's ``once_per_item``: a receipt item's price and unit price) when the current
   item has one already; every other band joins the current item (a receipt's count, unit
   price, price, discount and sub-item lines under their item's name). Bands before the first
-  anchor belong to the first item. Cells of one column within one item are joined in reading
-  order.
+  anchor belong to the first item. With the shape's ``line_arithmetic`` (count, unit price and
+  amount columns), a band of a count and a unit price without an amount opens the item below
+  it when their product is the amount on the next band's anchor line and not the current
+  item's (a receipt that prints "2 x 24,000" above the item's name). Cells of one column within
+  one item are joined in reading order.
 
 Header values over several lines (:func:`join_header_lines`): a piece joins the value above it
 when it has the same label, starts within one height of that value's left edge, lies less than
@@ -39,11 +42,14 @@ two pieces.
 
 from __future__ import annotations
 
+import re
 from collections.abc import Collection, Iterable, Mapping, Sequence
+from decimal import Decimal, InvalidOperation
 
 import numpy as np
 from scipy.spatial import cKDTree
 
+from dochar.records.normalise import as_amount
 from dochar.records.pieces import Value
 
 Row = dict[str, Value]
@@ -176,25 +182,63 @@ def rows_by_layout(pieces: Sequence[Value], slopes: Mapping[int, float] | None =
 
 
 def rows_by_anchor(pieces: Sequence[Value], anchor: str, once: Collection[str] = (),
-                   slopes: Mapping[int, float] | None = None) -> list[Row]:
+                   slopes: Mapping[int, float] | None = None,
+                   arithmetic: Sequence[str] = ()) -> list[Row]:
     """Rows of item pieces opened by ``anchor`` pieces, or by a second value of one of the
     ``once`` columns (module docstring), page by page; ``slopes`` as for
-    :func:`rows_by_layout`."""
+    :func:`rows_by_layout`. ``arithmetic`` (count, unit price, amount columns) lets a line of
+    count and unit price open the item below it when their product is that item's amount
+    (:func:`_opens_item_below`)."""
     rows: list[Row] = []
     for page in sorted({p.page for p in pieces}):
         on_page = [p for p in pieces if p.page == page]
         height = float(np.median([p.height for p in on_page]))
         current: Row | None = None
-        for band in _bands(on_page, height, (slopes or {}).get(page, 0.0)):
+        bands = _bands(on_page, height, (slopes or {}).get(page, 0.0))
+        for k, band in enumerate(bands):
             labels = {p.label for p in band}
-            if (current is None or (anchor in current and anchor in labels)
-                    or any(label in current for label in labels & set(once))):
+            opens = (current is None or (anchor in current and anchor in labels)
+                     or any(label in current for label in labels & set(once))
+                     or (bool(arithmetic) and k + 1 < len(bands)
+                         and _opens_item_below(band, current, bands[k + 1], anchor,
+                                               arithmetic)))
+            if opens:
                 current = {}
                 rows.append(current)
             for piece in band:
                 current[piece.label] = (current[piece.label].join(piece)
                                         if piece.label in current else piece)
     return rows
+
+
+def _amount(text: str) -> Decimal | None:
+    """An amount, read past a leading "x" or "@" of a unit price ("x4.00", "@9500")."""
+    try:
+        return Decimal(as_amount(text.strip().lstrip("xX@").strip()))
+    except InvalidOperation:
+        return None
+
+
+def _opens_item_below(band: list[Value], current: Row, below: list[Value], anchor: str,
+                      arithmetic: Sequence[str]) -> bool:
+    """A band without an anchor, holding a count and a unit price and no amount, under an item
+    with its anchor: it belongs to the next band's item (a receipt that prints "2 x 24,000"
+    above the item's name) when the next band holds an anchor and an amount that count × unit
+    price gives, and the current item's amount is not that product. Receipts' own arithmetic
+    (count × unit price = amount, common practice) decides, not distance."""
+    count, unit_price, amount = arithmetic
+    cells = {p.label: p for p in band}
+    under = {p.label: p for p in below}
+    if (anchor in cells or amount in cells or count not in cells or unit_price not in cells
+            or anchor not in current or anchor not in under or amount not in under):
+        return False
+    number = re.search(r"\d+", cells[count].text)
+    unit = _amount(cells[unit_price].text)
+    if number is None or unit is None:
+        return False
+    product = int(number.group()) * unit
+    return product == _amount(under[amount].text) and (
+        amount not in current or product != _amount(current[amount].text))
 
 
 def join_header_lines(pieces: Sequence[Value], others: np.ndarray) -> list[Value]:

@@ -16,7 +16,10 @@ read as a cell) would otherwise stand as an item of its own; its words keep thei
 ``words.csv``. The truth's items are never left out. ``sub_item_columns`` (optional, a mapping
 between item columns: sub-item column -> the item column it stands for, a receipt's
 ``menu.sub_nm: menu.nm``) makes decoding read each printed line whole, as an item or as a
-sub-item (:mod:`dochar.records.line_status`). A label may be in one role only, and every
+sub-item (:mod:`dochar.records.line_status`). ``line_arithmetic`` (optional, with
+``row_anchor``: ``count``, ``unit_price`` and ``amount``, three item columns) lets a line of a
+count and a unit price go to the item below it when their product is that item's amount
+(:func:`dochar.records.rows.rows_by_anchor`). A label may be in one role only, and every
 label named must be one of the data's labels: :func:`check_shape` says which key names what,
 before any data loads.
 """
@@ -31,7 +34,9 @@ from dochar.errors import DocharError, did_you_mean
 
 SHAPE_KEYS: tuple[str, ...] = ("header_fields", "item_columns", "items_name", "date_fields",
                                "amount_fields", "single_fields", "row_anchor",
-                               "once_per_item", "required_columns", "sub_item_columns")
+                               "once_per_item", "required_columns", "sub_item_columns",
+                               "line_arithmetic")
+ARITHMETIC_KEYS = ("count", "unit_price", "amount")
 
 
 class RecordShapeError(DocharError):
@@ -52,6 +57,7 @@ class RecordShape:
     once_per_item: tuple[str, ...] = ()      # a second value of one opens a new item
     required_columns: tuple[str, ...] = ()   # a predicted item lacking one is left out
     sub_item_columns: tuple[tuple[str, str], ...] = ()   # (sub-item column, item column)
+    line_arithmetic: tuple[str, ...] = ()   # count, unit price, amount columns (or none)
 
     @property
     def labels(self) -> tuple[str, ...]:
@@ -62,6 +68,7 @@ class RecordShape:
         plain = {f.name: (list(value) if isinstance(value := getattr(self, f.name), tuple)
                           else value) for f in fields(self)}
         plain["sub_item_columns"] = dict(self.sub_item_columns)
+        plain["line_arithmetic"] = dict(zip(ARITHMETIC_KEYS, self.line_arithmetic))
         return plain
 
     @classmethod
@@ -89,6 +96,16 @@ class RecordShape:
                     raise RecordShapeError(f"config key {where}.sub_item_columns={value!r}: "
                                            "expected a mapping, sub-item column: item column")
                 values[key] = tuple((k.strip(), v.strip()) for k, v in value.items())
+                continue
+            if key == "line_arithmetic":
+                if not value:
+                    continue
+                if not isinstance(value, Mapping) or set(value) != set(ARITHMETIC_KEYS) or not all(
+                        isinstance(v, str) for v in value.values()):
+                    raise RecordShapeError(f"config key {where}.line_arithmetic={value!r}: "
+                                           "expected a mapping of count, unit_price and "
+                                           "amount to item columns")
+                values[key] = tuple(value[k].strip() for k in ARITHMETIC_KEYS)
                 continue
             if key == "row_anchor":
                 if not isinstance(value, str):
@@ -149,6 +166,13 @@ def check_shape(shape: RecordShape, labels: Sequence[str] | None, *,
         if sub == item:
             raise RecordShapeError(f"config key {where}.sub_item_columns: {sub!r} names "
                                    "itself; map a sub-item column to another item column")
+    for role, label in zip(ARITHMETIC_KEYS, shape.line_arithmetic):
+        if seen.get(label) != "item_columns":
+            raise RecordShapeError(f"config key {where}.line_arithmetic.{role}: label "
+                                   f"{label!r} is not one of {where}.item_columns")
+    if shape.line_arithmetic and not shape.row_anchor:
+        raise RecordShapeError(f"config key {where}.line_arithmetic: it moves lines between "
+                               f"the items of a row_anchor; set {where}.row_anchor")
     if shape.row_anchor and shape.row_anchor not in shape.item_columns:
         raise RecordShapeError(f"config key {where}.row_anchor: label {shape.row_anchor!r} is "
                                f"not one of {where}.item_columns")
