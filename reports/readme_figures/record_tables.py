@@ -82,8 +82,9 @@ def receipts_records(keep: Path | None = None) -> str:
         f"`dochar run +experiment=cord_labels seed=0` and `+experiment=cord_labels_forest` on "
         f"{today()} ({gnn.predictions['doc_id'].nunique()} test receipts; `python -m "
         f"reports.readme_figures --only receipts-records`, one thread on {machine()}; 95% "
-        "bootstrap intervals over test receipts; line items by the anchor rule, each printed "
-        "line read whole as an item or a sub-item, one value kept per single field):",
+        "bootstrap intervals over test receipts; line items by the anchor rule, count lines "
+        "placed by their arithmetic, each printed line read whole as an item or a sub-item, one "
+        "value kept per single field):",
         "",
         "| system | straight-through | field F1 | TED accuracy | row F1 |",
         "|---|---|---|---|---|",
