@@ -41,28 +41,24 @@ def test_a_count_line_above_its_name_joins_the_item_below():
         {"nm": "ORANGE JUICE", "price": "48,000"}]
 
 
-def test_a_count_line_under_its_name_stays_when_the_product_is_the_item_above():
+@pytest.mark.parametrize("first, count, unit, second", [
     # 2 x 12.00 = 24.00, the price on the name's own line; the next item costs 24.00 too, so
     # the product names both and the line stays where the anchor rule puts it ("x12.00" reads
     # as 12.00)
-    words = _words([
-        ("Tea", 40, 100, 60, 110, "nm", "l0"), ("24.00", 150, 100, 180, 110, "price", "l1"),
-        ("2", 40, 114, 46, 124, "cnt", "l2"), ("x12.00", 60, 114, 96, 124, "unitprice", "l3"),
-        ("Cake", 40, 128, 64, 138, "nm", "l4"), ("24.00", 150, 128, 180, 138, "price", "l5")])
-    assert _items(words) == [
-        {"nm": "Tea", "cnt": "2", "unitprice": "x12.00", "price": "24.00"},
-        {"nm": "Cake", "price": "24.00"}]
-
-
-def test_a_product_that_is_no_ones_amount_changes_nothing():
+    (("Tea", "24.00"), "2", "x12.00", ("Cake", "24.00")),
     # 3 x 5.00 = 15.00 is neither 20.00 (above) nor 16.00 (below)
+    (("Rice", "20.00"), "3", "@5.00", ("Soup", "16.00")),
+], ids=["product-is-both-amounts", "product-is-no-amount"])
+def test_a_count_line_stays_with_the_item_above_unless_only_the_item_below_fits(
+        first, count, unit, second):
     words = _words([
-        ("Rice", 40, 100, 64, 110, "nm", "l0"), ("20.00", 150, 100, 180, 110, "price", "l1"),
-        ("3", 40, 114, 46, 124, "cnt", "l2"), ("@5.00", 60, 114, 84, 124, "unitprice", "l3"),
-        ("Soup", 40, 128, 64, 138, "nm", "l4"), ("16.00", 150, 128, 180, 138, "price", "l5")])
+        (first[0], 40, 100, 64, 110, "nm", "l0"), (first[1], 150, 100, 180, 110, "price", "l1"),
+        (count, 40, 114, 46, 124, "cnt", "l2"), (unit, 60, 114, 96, 124, "unitprice", "l3"),
+        (second[0], 40, 128, 64, 138, "nm", "l4"),
+        (second[1], 150, 128, 180, 138, "price", "l5")])
     assert _items(words) == [
-        {"nm": "Rice", "cnt": "3", "unitprice": "@5.00", "price": "20.00"},
-        {"nm": "Soup", "price": "16.00"}]
+        {"nm": first[0], "cnt": count, "unitprice": unit, "price": first[1]},
+        {"nm": second[0], "price": second[1]}]
 
 
 def test_a_unit_price_after_x_or_at_reads_as_its_amount():
