@@ -243,6 +243,7 @@ class TrainSchema:
     label_smoothing: float = 0.0
     threads: int = 1
     progress: bool = True
+    retrain_on_val: bool = False
     checkpoint_dir: Optional[str] = "outputs/checkpoints"
 
 

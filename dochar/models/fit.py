@@ -113,17 +113,20 @@ def fit_gnn(cfg: DictConfig, inputs: FitInputs) -> FittedModel:
     started = time.perf_counter()
     histories = [_train_one(cfg, inputs, graphs, network, seed, members > 1)
                  for network, seed in zip(networks, seeds)]
-    train_seconds = time.perf_counter() - started
     objective = histories[0][1]
+    score = histories[0][0].best_val_score if graphs["val"] else float("nan")
+    if members > 1 and graphs["val"]:   # the average's own validation score
+        score = objective.validate(model, Batch.from_data_list(list(graphs["val"])))[0]
+    if retrains_on_val(cfg, inputs):
+        model = _retrain_on_val(cfg, inputs, graphs, arguments, seeds,
+                                [history.best_epoch for history, _ in histories])
+    train_seconds = time.perf_counter() - started
     started = time.perf_counter()
     outputs = objective.outputs(model, graphs["test"])
     infer_seconds = time.perf_counter() - started
     history = histories[0][0]
-    score = history.best_val_score if graphs["val"] else float("nan")
     notes: dict[str, float] = {}
-    if members > 1:     # the average's own validation score; each member's beside it
-        if graphs["val"]:
-            score = objective.validate(model, Batch.from_data_list(list(graphs["val"])))[0]
+    if members > 1:     # each member's validation score beside the average's
         for index, (member_history, _) in enumerate(histories):
             notes[f"member/{index}/best_epoch"] = float(member_history.best_epoch)
             notes[f"member/{index}/{objective.score_name}"] = member_history.best_val_score
@@ -150,6 +153,31 @@ def _train_one(cfg: DictConfig, inputs: FitInputs, graphs: dict[str, list],
     if checkpoint is not None:
         checkpoint.remove()
     return history, objective
+
+
+def retrains_on_val(cfg: DictConfig, inputs: FitInputs) -> bool:
+    """``train.retrain_on_val`` is set and there are validation pages to add."""
+    return bool(cfg.train.get("retrain_on_val")) and bool(inputs.sets["val"].pages)
+
+
+def _retrain_on_val(cfg: DictConfig, inputs: FitInputs, graphs: dict[str, list],
+                    arguments: dict[str, Any], seeds: list[int], epochs: list[int]) -> Any:
+    """The network(s) trained afresh on the training and validation pages together, each member
+    from its seed for the epochs its early-stopped run kept, on the same learning-rate curve:
+    the second pass of early stopping (Goodfellow, Bengio and Courville, "Deep Learning", 2016,
+    section 7.8, Algorithm 7.2), so the final model learns from the validation pages too. The
+    validation pages have chosen the epochs (and a link task's cut); they score nothing
+    afterwards. Not checkpointed: a killed run repeats this pass."""
+    model = build_gnn(arguments, seeds)
+    networks = list(model.members) if len(seeds) > 1 else [model]
+    pooled = list(graphs["train"]) + list(graphs["val"])
+    for network, seed, last_epoch in zip(networks, seeds, epochs):
+        objective = objective_for(inputs.task.target, cfg.train, num_classes=len(inputs.labels),
+                                  seed=seed,
+                                  negative_ratio=getattr(inputs.task, "negative_ratio", None),
+                                  val_missed=0, rows=inputs.rows_threshold)
+        train(network, pooled, [], objective, cfg.train, seed, last_epoch=max(last_epoch, 1))
+    return model
 
 
 def _checkpoint(cfg: DictConfig, graphs: dict[str, list],
@@ -197,16 +225,24 @@ def _sizes(inputs: FitInputs, part: str) -> np.ndarray:
     return np.cumsum(counts)[:-1]
 
 
+def _training_rows(cfg: DictConfig, inputs: FitInputs, parts: tuple[str, ...]
+                   ) -> tuple[np.ndarray, np.ndarray]:
+    """A baseline's training rows and targets from ``parts``; for pair tasks with a
+    ``negative_ratio``, every positive and that many negatives per positive (seeded)."""
+    rows = np.vstack([_rows(cfg, inputs, part) for part in parts])
+    targets = np.concatenate([_targets(inputs, part) for part in parts])
+    ratio = getattr(inputs.task, "negative_ratio", None)
+    if inputs.pairs and ratio is not None:
+        keep = sample_negatives(targets == 1, float(ratio), np.random.default_rng(int(cfg.seed)))
+        rows, targets = rows[keep], targets[keep]
+    return rows, targets
+
+
 def fit_baseline(cfg: DictConfig, inputs: FitInputs) -> FittedModel:
     arguments = baseline_arguments(cfg)
     estimator = build_baseline(arguments)
-    rows, targets = _rows(cfg, inputs, "train"), _targets(inputs, "train")
-    ratio = getattr(inputs.task, "negative_ratio", None)
-    if inputs.pairs and ratio is not None:   # every positive, `ratio` negatives per positive
-        keep = sample_negatives(targets == 1, float(ratio), np.random.default_rng(int(cfg.seed)))
-        rows, targets = rows[keep], targets[keep]
     started = time.perf_counter()
-    estimator.fit(rows, targets)
+    estimator.fit(*_training_rows(cfg, inputs, ("train",)))
     train_seconds = time.perf_counter() - started
 
     def probabilities(part: str) -> np.ndarray:
@@ -230,6 +266,12 @@ def fit_baseline(cfg: DictConfig, inputs: FitInputs) -> FittedModel:
     elif val is not None:   # the GNN's early-stopping score: macro F1 over the classes present
         score = float(f1_score(_targets(inputs, "val"), val.argmax(axis=1), average="macro",
                                zero_division=0))
+    if retrains_on_val(cfg, inputs):   # as the GNN's second pass: fit afresh on both parts
+        started = time.perf_counter()
+        estimator = build_baseline(arguments)
+        estimator.fit(*_training_rows(cfg, inputs, ("train", "val")))
+        train_seconds += time.perf_counter() - started
+        test = probabilities("test")
     outputs = np.split(test[:, 1] if inputs.pairs else test, _sizes(inputs, "test"))
     cost = {"train_seconds": train_seconds, "parameters": float(estimator_size(estimator)),
             "pages_per_second": len(inputs.sets["test"].pages) / max(infer_seconds, 1e-9),
@@ -241,7 +283,8 @@ def fit_baseline(cfg: DictConfig, inputs: FitInputs) -> FittedModel:
 
 
 def fit_template(cfg: DictConfig, inputs: FitInputs) -> FittedModel:
-    """Per-layout templates from the training pages (no features, no validation use); page
+    """Per-layout templates from the training pages (no features; validation only scores them,
+    for sweeps, unless ``train.retrain_on_val`` adds its pages' templates afterwards); page
     outcomes are logged as ``template/<outcome>_pages`` and kept as the ``template_pages`` table."""
     arguments = template_arguments(cfg, inputs.labels)
     estimator = build_template(arguments)
@@ -249,17 +292,24 @@ def fit_template(cfg: DictConfig, inputs: FitInputs) -> FittedModel:
     started = time.perf_counter()
     estimator.fit(sets["train"].pages)
     train_seconds = time.perf_counter() - started
+    validation: dict[str, float] = {}
+    if sets["val"].pages:
+        predicted = estimator.predict_proba(sets["val"].pages).argmax(axis=1)
+        validation = _validation(float(f1_score(_targets(inputs, "val"), predicted,
+                                                average="macro", zero_division=0)),
+                                 "val_macro_f1")
+    if retrains_on_val(cfg, inputs):
+        started = time.perf_counter()
+        estimator = build_template(arguments)
+        estimator.fit(list(sets["train"].pages) + list(sets["val"].pages))
+        train_seconds += time.perf_counter() - started
     started = time.perf_counter()
     full = estimator.predict_proba(sets["test"].pages)
     infer_seconds = time.perf_counter() - started
     matches = estimator.match_pages(sets["test"].pages)
     cost = {"train_seconds": train_seconds, "parameters": float(estimator.n_template_words_),
-            "pages_per_second": len(sets["test"].pages) / max(infer_seconds, 1e-9)}
-    if sets["val"].pages:   # templates learn nothing from validation; sweeps still rank them
-        predicted = estimator.predict_proba(sets["val"].pages).argmax(axis=1)
-        cost.update(_validation(float(f1_score(_targets(inputs, "val"), predicted,
-                                               average="macro", zero_division=0)),
-                                "val_macro_f1"))
+            "pages_per_second": len(sets["test"].pages) / max(infer_seconds, 1e-9),
+            **validation}
     counts = matches["outcome"].value_counts()
     notes = {f"template/{outcome}_pages": float(counts.get(outcome, 0)) for outcome in OUTCOMES}
     notes["template/families"] = float(len(estimator.families_))

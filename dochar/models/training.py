@@ -86,12 +86,13 @@ def epoch_learning_rate(cfg: Mapping[str, Any], epoch: int) -> float:
 
 def train(model: torch.nn.Module, train_graphs: Sequence[Data], val_graphs: Sequence[Data],
           objective: Any, cfg: Mapping[str, Any], seed: int,
-          checkpoint: Any = None) -> TrainHistory:
+          checkpoint: Any = None, last_epoch: int | None = None) -> TrainHistory:
     """AdamW on the objective's loss, at each epoch's learning rate; keep the weights of the
     best validation epoch. AdamW runs fused (one element-wise pass per tensor: a third of the
     time of torch's default per-operation update on CPU, and the same at any thread count).
 
-    ``checkpoint`` (an ``EpochCheckpoint``) is saved after every epoch and resumed from first."""
+    ``checkpoint`` (an ``EpochCheckpoint``) is saved after every epoch and resumed from first.
+    ``last_epoch`` stops the run there, on the learning-rate curve of ``max_epochs``."""
     generator = torch.Generator().manual_seed(seed)
     optimizer = torch.optim.AdamW(model.parameters(), lr=float(cfg["learning_rate"]),
                                   weight_decay=float(cfg["weight_decay"]), fused=True)
@@ -102,7 +103,9 @@ def train(model: torch.nn.Module, train_graphs: Sequence[Data], val_graphs: Sequ
     first = 1
     if checkpoint is not None:
         first, best_state = checkpoint.restore(model, optimizer, generator, history, best_state)
-    epochs = tqdm(range(first, int(cfg["max_epochs"]) + 1), desc="epochs", leave=False,
+    stop = int(cfg["max_epochs"]) if last_epoch is None else min(last_epoch,
+                                                                  int(cfg["max_epochs"]))
+    epochs = tqdm(range(first, stop + 1), desc="epochs", leave=False,
                   disable=None if cfg.get("progress", True) else True)
     for epoch in epochs:
         model.train()
