@@ -83,6 +83,7 @@ class FittedModel:
     featurizer: WordFeaturizer | None = None                       # set by fit_model
     notes: dict[str, float] = field(default_factory=dict)         # extra run metrics
     tables: dict[str, pd.DataFrame] = field(default_factory=dict)  # extra run tables
+    trained_on: tuple[str, ...] = ("train",)                       # parts the model learned from
 
 
 def system_name(model_cfg: Mapping[str, Any]) -> str:
@@ -323,4 +324,6 @@ FITTERS = {"gnn": fit_gnn, "baseline": fit_baseline, "template": fit_template}
 def fit_model(cfg: DictConfig, inputs: FitInputs) -> FittedModel:
     fitted = FITTERS[str(cfg.model.kind)](cfg, inputs)
     fitted.featurizer = inputs.featurizer
+    if retrains_on_val(cfg, inputs):
+        fitted.trained_on = ("train", "val")
     return fitted

@@ -158,6 +158,7 @@ def save_model(destination: str | Path, fitted: FittedModel, config: Mapping[str
         "entity_ignore": list((config.get("evaluation") or {}).get("entity_ignore", ["other"])),
         "featurizer": featurizer_state(featurizer, int(config["features"]["hash_features"])),
         "arguments": fitted.arguments, "threshold": fitted.threshold,
+        "trained_on": list(fitted.trained_on),
         "libraries": library_versions(), "files": {},
     }
     with atomic_folder(destination) as staging:     # manifest last, then one rename
@@ -203,6 +204,12 @@ class SavedModel:
     @property
     def kind(self) -> str:
         return str(self.manifest["kind"])
+
+    @property
+    def trained_on(self) -> tuple[str, ...]:
+        """The split parts the model learned from: ``("train", "val")`` after
+        ``train.retrain_on_val``, whose validation scores then say nothing."""
+        return tuple(self.manifest.get("trained_on", ["train"]))
 
     def expect(self, *, labels: Sequence[str] | None = None, task: str | None = None) -> None:
         """Refuse a config whose task or label set differs from the one the model learned."""

@@ -28,12 +28,17 @@ from reports.readme_figures.cheap import compose
 
 
 def main(model: str, *overrides: str) -> None:
+    saved = load_model(model)
+    if "val" in saved.trained_on:
+        raise SystemExit(f"{model}: this model also learned from the validation documents "
+                         "(train.retrain_on_val=true), so validation cannot score its decoding; "
+                         "use the model of the same run with train.retrain_on_val=false")
     cfg = compose(*overrides)
     shape = record_shape(cfg.data)
     data = load_data(cfg.data, progress=False)
     validation = split_run(data.table, cfg.split, int(cfg.seed)).assignment.val
     words = data.table[data.table["doc_id"].isin(validation)]
-    labelled = load_model(model).label_words(words, settle=partial(settle_pages, shape=shape))
+    labelled = saved.label_words(words, settle=partial(settle_pages, shape=shape))
     keep = [c for c in ("predicted", "probability", "entity") if c in labelled]
     words = words.merge(labelled[["doc_id", "page", "word_id", *keep]],
                         on=["doc_id", "page", "word_id"])

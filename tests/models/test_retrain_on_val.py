@@ -5,7 +5,8 @@ and retrain on all of the data ... for the same number of steps"; dochar counts 
 the data, the book's second option). The checks: which pages each pass sees and for how long,
 counted from the word table and the split; the learning rates of the second pass against the
 cosine schedule worked by hand (Loshchilov and Hutter, ICLR 2017, eq. 5); the validation score
-left as the first pass made it; the forest fitted on exactly the training and validation words.
+left as the first pass made it; the forest fitted on exactly the training and validation words;
+the saved model recording both parts, so validation tools refuse it.
 """
 
 from __future__ import annotations
@@ -17,7 +18,9 @@ import pytest
 from dochar.data.sources import load_data
 from dochar.experiment import run_experiment
 from dochar.models import fit as fit_module
+from dochar.models.saved import load_model, save_model
 from dochar.splits import split_run
+from reports.readme_figures import record_levers
 from tests.test_combinations import SYNTH, make_config
 
 SCHEDULE = ["train.max_epochs=5", "train.patience=5", "train.schedule=cosine",
@@ -109,3 +112,17 @@ def test_the_forest_fits_again_on_the_training_and_validation_words(monkeypatch)
              for part in ("train", "val")}
     assert fitted_rows == [words["train"], words["train"] + words["val"]]
 
+
+
+def test_a_saved_model_says_it_learned_from_validation_and_validation_tools_refuse_it(tmp_path):
+    cfg = make_config("knn", "relational", "geometry_text",
+                      [*SYNTH, "train.retrain_on_val=true"])
+    bundle, fitted = run_experiment(cfg)
+    folder = save_model(tmp_path / "model", fitted, bundle.config, labels=bundle.labels)
+    assert load_model(folder).trained_on == ("train", "val")
+    with pytest.raises(SystemExit, match="also learned from the validation documents"):
+        record_levers.main(str(folder))
+    plain = make_config("knn", "relational", "geometry_text", SYNTH)
+    bundle, fitted = run_experiment(plain)
+    folder = save_model(tmp_path / "plain", fitted, bundle.config, labels=bundle.labels)
+    assert load_model(folder).trained_on == ("train",)
