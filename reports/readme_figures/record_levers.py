@@ -32,7 +32,7 @@ def main(model: str, *overrides: str) -> None:
     if "val" in saved.trained_on:
         raise SystemExit(f"{model}: this model also learned from the validation documents "
                          "(train.retrain_on_val=true), so validation cannot score its decoding; "
-                         "use the model of the same run with train.retrain_on_val=false")
+                         "score the model of a run with train.retrain_on_val=false instead")
     cfg = compose(*overrides)
     shape = record_shape(cfg.data)
     data = load_data(cfg.data, progress=False)
