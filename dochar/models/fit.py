@@ -168,7 +168,8 @@ def _retrain_on_val(cfg: DictConfig, inputs: FitInputs, graphs: dict[str, list],
     the second pass of early stopping (Goodfellow, Bengio and Courville, "Deep Learning", 2016,
     section 7.8, Algorithm 7.2), so the final model learns from the validation pages too. The
     validation pages have chosen the epochs (and a link task's cut); they score nothing
-    afterwards. Not checkpointed: a killed run repeats this pass."""
+    afterwards. Not checkpointed, and the first pass's checkpoints are gone by then: a run
+    killed during this pass trains both passes again."""
     model = build_gnn(arguments, seeds)
     networks = list(model.members) if len(seeds) > 1 else [model]
     pooled = list(graphs["train"]) + list(graphs["val"])
