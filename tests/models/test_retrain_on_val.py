@@ -6,7 +6,8 @@ the data, the book's second option). The checks: which pages each pass sees and 
 counted from the word table and the split; the learning rates of the second pass against the
 cosine schedule worked by hand (Loshchilov and Hutter, ICLR 2017, eq. 5); the validation score
 left as the first pass made it; the forest fitted on exactly the training and validation words;
-the saved model recording both parts, so validation tools refuse it.
+templates adding the validation pages only after scoring them; the saved model recording both
+parts, so validation tools refuse it.
 """
 
 from __future__ import annotations
@@ -14,14 +15,16 @@ from __future__ import annotations
 import math
 
 import pytest
+from hydra import compose, initialize_config_dir
 
+from dochar.config import CONFIG_DIR
 from dochar.data.sources import load_data
 from dochar.experiment import run_experiment
 from dochar.models import fit as fit_module
 from dochar.models.saved import load_model, save_model
 from dochar.splits import split_run
 from reports.readme_figures import record_levers
-from tests.test_combinations import SYNTH, make_config
+from tests.test_combinations import SYNTH, TINY, make_config
 
 SCHEDULE = ["train.max_epochs=5", "train.patience=5", "train.schedule=cosine",
             "train.warmup_epochs=1", "train.learning_rate=0.003"]
@@ -126,3 +129,31 @@ def test_a_saved_model_says_it_learned_from_validation_and_validation_tools_refu
     bundle, fitted = run_experiment(plain)
     folder = save_model(tmp_path / "plain", fitted, bundle.config, labels=bundle.labels)
     assert load_model(folder).trained_on == ("train",)
+
+
+def test_templates_add_the_validation_pages_after_scoring_them(monkeypatch):
+    with initialize_config_dir(config_dir=str(CONFIG_DIR), version_base="1.3"):
+        plain = compose("config", overrides=[*TINY, *SYNTH, "model=layout_template"])
+        cfg = compose("config", overrides=[*TINY, *SYNTH, "model=layout_template",
+                                           "train.retrain_on_val=true"])
+    _, plain_fit = run_experiment(plain)
+    fitted_pages = []
+    real_build = fit_module.build_template
+
+    def build(arguments):
+        estimator = real_build(arguments)
+        real_fit = estimator.fit
+
+        def fit(pages):
+            fitted_pages.append(len(pages))
+            return real_fit(pages)
+
+        estimator.fit = fit
+        return estimator
+
+    monkeypatch.setattr(fit_module, "build_template", build)
+    _, fitted = run_experiment(cfg)
+    pages = _pages_per_part(cfg)
+    assert fitted_pages == [pages["train"], pages["train"] + pages["val"]]
+    assert fitted.trained_on == ("train", "val")
+    assert fitted.cost["val_macro_f1"] == plain_fit.cost["val_macro_f1"]
