@@ -32,8 +32,8 @@ import os
 import re
 import sys
 import tempfile
-from functools import partial
 from collections.abc import Sequence
+from functools import partial
 from pathlib import Path
 
 import numpy as np
